@@ -1,0 +1,504 @@
+#include "config/load.h"
+
+#include <yaml-cpp/yaml.h>
+
+#include <cmath>
+#include <fstream>
+#include <set>
+#include <sstream>
+
+namespace config {
+
+std::string Problem::ToString() const {
+  std::ostringstream out;
+  out << file;
+  if (line > 0) out << ':' << line << ':' << column;
+  out << ": ";
+  if (!path.empty()) out << path << ": ";
+  out << message;
+  return out.str();
+}
+
+namespace {
+
+using monitors::Method;
+
+class Reader {
+ public:
+  explicit Reader(std::string file) : file_(std::move(file)) {}
+
+  void Add(const YAML::Node& at, const std::string& path, const std::string& message) {
+    Problem p;
+    p.file = file_;
+    if (at.IsDefined()) {
+      const YAML::Mark m = at.Mark();
+      if (m.line >= 0) {
+        p.line = m.line + 1;
+        p.column = m.column + 1;
+      }
+    }
+    p.path = path;
+    p.message = message;
+    problems_.push_back(std::move(p));
+  }
+
+  // Reports keys of `map` that are not in `known`.
+  void CheckKeys(const YAML::Node& map, const std::string& path,
+                 const std::set<std::string>& known) {
+    for (auto it = map.begin(); it != map.end(); ++it) {
+      const std::string key = it->first.Scalar();
+      if (!known.count(key)) {
+        std::string list;
+        for (const auto& k : known) list += (list.empty() ? "" : ", ") + k;
+        Add(it->first, Join(path, key), "unknown key (known keys: " + list + ")");
+      }
+    }
+  }
+
+  static std::string Join(const std::string& path, const std::string& key) {
+    return path.empty() ? key : path + "." + key;
+  }
+
+  bool Double(const YAML::Node& n, const std::string& path, double& out) {
+    if (!n.IsScalar()) {
+      Add(n, path, "must be a number");
+      return false;
+    }
+    try {
+      out = n.as<double>();
+    } catch (const YAML::Exception&) {
+      Add(n, path, "must be a number, got '" + n.Scalar() + "'");
+      return false;
+    }
+    if (!std::isfinite(out)) {
+      Add(n, path, "must be a finite number, got '" + n.Scalar() + "'");
+      return false;
+    }
+    return true;
+  }
+
+  // Reads an optional number within [lo, hi] (open ends when lo_open / hi_open).
+  void Range(const YAML::Node& map, const std::string& key, const std::string& path, double& out,
+             double lo, bool lo_open, double hi, bool hi_open) {
+    const YAML::Node n = map[key];
+    if (!n.IsDefined()) return;
+    double v = 0;
+    if (!Double(n, Join(path, key), v)) return;
+    const bool bad = (lo_open ? v <= lo : v < lo) || (hi_open ? v >= hi : v > hi);
+    if (bad) {
+      std::ostringstream msg;
+      msg << "must be in " << (lo_open ? '(' : '[') << lo << ", " << hi << (hi_open ? ')' : ']')
+          << ", got " << n.Scalar();
+      Add(n, Join(path, key), msg.str());
+      return;
+    }
+    out = v;
+  }
+
+  void Int(const YAML::Node& map, const std::string& key, const std::string& path, long& out,
+           long lo, long hi) {
+    const YAML::Node n = map[key];
+    if (!n.IsDefined()) return;
+    long v = 0;
+    try {
+      if (!n.IsScalar()) throw YAML::Exception(n.Mark(), "not a scalar");
+      v = n.as<long>();
+    } catch (const YAML::Exception&) {
+      Add(n, Join(path, key), "must be a whole number, got '" + n.Scalar() + "'");
+      return;
+    }
+    if (v < lo || v > hi) {
+      Add(n, Join(path, key),
+          "must be in [" + std::to_string(lo) + ", " + std::to_string(hi) + "], got " + n.Scalar());
+      return;
+    }
+    out = v;
+  }
+
+  bool String(const YAML::Node& n, const std::string& path, std::string& out) {
+    if (!n.IsScalar()) {
+      Add(n, path, "must be a string");
+      return false;
+    }
+    out = n.Scalar();
+    return true;
+  }
+
+  std::vector<Problem>& problems() { return problems_; }
+
+ private:
+  std::string file_;
+  std::vector<Problem> problems_;
+};
+
+void ReadMatch(Reader& r, const YAML::Node& n, const std::string& path, Match& m) {
+  if (n.IsScalar()) {
+    m.key = n.Scalar();
+  } else if (n.IsMap()) {
+    r.CheckKeys(n, path, {"key", "labels"});
+    if (n["key"].IsDefined()) r.String(n["key"], path + ".key", m.key);
+    const YAML::Node labels = n["labels"];
+    if (labels.IsDefined()) {
+      if (!labels.IsMap()) {
+        r.Add(labels, path + ".labels", "must be a map of label name to value");
+      } else {
+        for (auto it = labels.begin(); it != labels.end(); ++it) {
+          std::string value;
+          if (r.String(it->second, path + ".labels." + it->first.Scalar(), value))
+            m.labels.emplace_back(it->first.Scalar(), value);
+        }
+      }
+    }
+  } else {
+    r.Add(n, path, "must be a key glob such as \"north/*\" or {key: ..., labels: {...}}");
+    return;
+  }
+  if (m.key.empty()) r.Add(n, path, "the key glob is empty");
+}
+
+void ReadStart(Reader& r, const YAML::Node& n, const std::string& path,
+               monitors::StartSpec& start) {
+  using monitors::StartKind;
+  if (n.IsScalar()) {
+    if (n.Scalar() == "first-actual") {
+      start.kind = StartKind::kFirstActual;
+      start.count = 1;
+    } else {
+      r.Add(n, path,
+            "must be first-actual, {mean_of_first: k}, {level: .., trend: .., season: [..]} or "
+            "{fitted: n}, got '" + n.Scalar() + "'");
+    }
+    return;
+  }
+  if (!n.IsMap()) {
+    r.Add(n, path, "must be first-actual or a map");
+    return;
+  }
+  if (n["mean_of_first"].IsDefined() || n["fitted"].IsDefined()) {
+    const bool fitted = n["fitted"].IsDefined();
+    const std::string key = fitted ? "fitted" : "mean_of_first";
+    r.CheckKeys(n, path, {key});
+    start.kind = fitted ? StartKind::kFitted : StartKind::kMeanOfFirst;
+    long k = -1;
+    r.Int(n, key, path, k, 1, 100000);
+    if (k > 0) start.count = static_cast<int>(k);
+    return;
+  }
+  r.CheckKeys(n, path, {"level", "trend", "season"});
+  start.kind = StartKind::kExplicit;
+  if (!n["level"].IsDefined()) {
+    r.Add(n, path, "an explicit start needs 'level'");
+  } else {
+    r.Double(n["level"], path + ".level", start.level);
+  }
+  if (n["trend"].IsDefined()) r.Double(n["trend"], path + ".trend", start.trend);
+  const YAML::Node season = n["season"];
+  if (season.IsDefined()) {
+    if (!season.IsSequence()) {
+      r.Add(season, path + ".season", "must be a list of numbers");
+    } else {
+      for (std::size_t i = 0; i < season.size(); ++i) {
+        double v = 0;
+        if (r.Double(season[i], path + ".season[" + std::to_string(i) + "]", v))
+          start.season.push_back(v);
+      }
+    }
+  }
+}
+
+void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors::RuleSpec& rule,
+              bool& ok) {
+  ok = false;
+  if (!n.IsMap()) {
+    r.Add(n, path, "a rule must be a map with name, signal and limit");
+    return;
+  }
+  const std::size_t before = r.problems().size();
+  r.CheckKeys(n, path,
+              {"name", "signal", "limit", "clear", "persistence", "direction", "severity"});
+  if (!n["name"].IsDefined())
+    r.Add(n, path, "a rule needs a 'name'");
+  else
+    r.String(n["name"], path + ".name", rule.name);
+  std::string text;
+  if (!n["signal"].IsDefined()) {
+    r.Add(n, path, "a rule needs a 'signal' (trigg, cusum or error)");
+  } else if (r.String(n["signal"], path + ".signal", text)) {
+    auto s = monitors::ParseSignalKind(text);
+    if (!s)
+      r.Add(n["signal"], path + ".signal", "must be trigg, cusum or error, got '" + text + "'");
+    else
+      rule.signal = *s;
+  }
+  if (!n["limit"].IsDefined()) {
+    r.Add(n, path, "a rule needs a 'limit'");
+  } else if (rule.signal == monitors::SignalKind::kTrigg) {
+    r.Range(n, "limit", path, rule.limit, 0.0, true, 1.0, true);
+  } else {
+    r.Range(n, "limit", path, rule.limit, 0.0, true, 1e6, false);
+  }
+  rule.clear = rule.limit;
+  r.Range(n, "clear", path, rule.clear, 0.0, false, 1e6, false);
+  if (rule.clear > rule.limit && n["clear"].IsDefined())
+    r.Add(n["clear"], path + ".clear", "must not exceed the limit (it is the level below which "
+                                       "the rule stops holding)");
+  long persistence = 1;
+  r.Int(n, "persistence", path, persistence, 1, 10000);
+  rule.persistence = static_cast<int>(persistence);
+  if (n["direction"].IsDefined() && r.String(n["direction"], path + ".direction", text)) {
+    auto d = monitors::ParseDirection(text);
+    if (!d)
+      r.Add(n["direction"], path + ".direction",
+            "must be both, under-forecast or over-forecast, got '" + text + "'");
+    else
+      rule.direction = *d;
+  }
+  if (n["severity"].IsDefined() && r.String(n["severity"], path + ".severity", text)) {
+    auto s = monitors::ParseSeverity(text);
+    if (!s)
+      r.Add(n["severity"], path + ".severity",
+            "must be info, warning or critical, got '" + text + "'");
+    else
+      rule.severity = *s;
+  }
+  ok = r.problems().size() == before;
+}
+
+void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy& p) {
+  using monitors::StartKind;
+  static const std::set<std::string> kKeys = {
+      "name",   "match",      "period",       "method",        "alpha",       "adaptive",
+      "trend_beta", "damping", "season_gamma", "season_length", "start",       "signal_beta",
+      "warmup", "gaps",       "coverage",     "initial_mad",   "max_gap",     "rules"};
+  if (!n.IsMap()) {
+    r.Add(n, path, "a policy must be a map");
+    return;
+  }
+  r.CheckKeys(n, path, kKeys);
+  monitors::PolicySpec& s = p.spec;
+  std::string text;
+
+  if (!n["name"].IsDefined()) {
+    r.Add(n, path, "a policy needs a 'name'");
+  } else if (r.String(n["name"], path + ".name", p.name)) {
+    bool good = !p.name.empty();
+    for (char c : p.name)
+      if (!(std::isalnum(static_cast<unsigned char>(c)) || c == '-' || c == '_' || c == '.'))
+        good = false;
+    if (!good)
+      r.Add(n["name"], path + ".name",
+            "must be non-empty letters, digits, '-', '_' or '.', got '" + p.name + "'");
+  }
+  if (!n["match"].IsDefined())
+    r.Add(n, path, "a policy needs 'match' (a key glob such as \"north/*\", or \"*\")");
+  else
+    ReadMatch(r, n["match"], path + ".match", p.match);
+
+  if (!n["period"].IsDefined()) {
+    r.Add(n, path, "a policy needs 'period' (day, week or month)");
+  } else if (r.String(n["period"], path + ".period", text)) {
+    auto k = monitors::ParsePeriodKind(text);
+    if (!k)
+      r.Add(n["period"], path + ".period", "must be day, week or month, got '" + text + "'");
+    else
+      p.period = *k;
+  }
+  if (n["method"].IsDefined() && r.String(n["method"], path + ".method", text)) {
+    auto m = monitors::ParseMethod(text);
+    if (!m)
+      r.Add(n["method"], path + ".method",
+            "must be ses, holt, damped, seasonal-add, seasonal-mul, croston or sba, got '" + text +
+                "'");
+    else
+      s.method = *m;
+  }
+  const Method method = s.method;
+  s.constants.alpha = 0.2;
+  r.Range(n, "alpha", path, s.constants.alpha, 0.0, false, 1.0, false);
+  s.constants.beta = 0.1;
+  r.Range(n, "trend_beta", path, s.constants.beta, 0.0, false, 1.0, false);
+  s.constants.phi = method == Method::kDamped ? 0.98 : 1.0;
+  r.Range(n, "damping", path, s.constants.phi, 0.0, true, 1.0, false);
+  s.constants.gamma = 0.1;
+  r.Range(n, "season_gamma", path, s.constants.gamma, 0.0, false, 1.0, false);
+  long m = 1;
+  r.Int(n, "season_length", path, m, 2, 1000);
+  s.constants.season_length = static_cast<int>(m);
+  if (monitors::IsSeasonal(method) && !n["season_length"].IsDefined())
+    r.Add(n, path, "method " + std::string(monitors::MethodName(method)) +
+                       " needs 'season_length' (periods per season, e.g. 52 for weeks in a year)");
+  if (!monitors::IsSeasonal(method) && n["season_length"].IsDefined())
+    r.Add(n["season_length"], path + ".season_length",
+          "only seasonal-add and seasonal-mul use a season_length");
+  if (!monitors::HasTrend(method))
+    for (const char* key : {"trend_beta", "damping"})
+      if (n[key].IsDefined())
+        r.Add(n[key], Reader::Join(path, key),
+              std::string("method ") + std::string(monitors::MethodName(method)) +
+                  " has no trend; remove '" + key + "'");
+  if (method == Method::kHolt && n["damping"].IsDefined())
+    r.Add(n["damping"], path + ".damping", "holt has no damping; use method damped");
+
+  const YAML::Node adaptive = n["adaptive"];
+  if (adaptive.IsDefined()) {
+    if (!adaptive.IsMap()) {
+      r.Add(adaptive, path + ".adaptive", "must be a map {floor, cap, lag}");
+    } else {
+      r.CheckKeys(adaptive, path + ".adaptive", {"floor", "cap", "lag"});
+      s.adaptive.enabled = true;
+      s.adaptive.floor = 0.05;
+      s.adaptive.cap = 0.8;
+      r.Range(adaptive, "floor", path + ".adaptive", s.adaptive.floor, 0.0, false, 1.0, false);
+      r.Range(adaptive, "cap", path + ".adaptive", s.adaptive.cap, 0.0, true, 1.0, false);
+      if (s.adaptive.floor > s.adaptive.cap)
+        r.Add(adaptive, path + ".adaptive", "floor must not exceed cap");
+      if (adaptive["lag"].IsDefined()) {
+        try {
+          s.adaptive.lagged = adaptive["lag"].as<bool>();
+        } catch (const YAML::Exception&) {
+          r.Add(adaptive["lag"], path + ".adaptive.lag", "must be true or false");
+        }
+      }
+      if (monitors::IsIntermittent(method))
+        r.Add(adaptive, path + ".adaptive", "croston and sba do not take an adaptive alpha");
+    }
+  }
+
+  if (n["start"].IsDefined()) {
+    ReadStart(r, n["start"], path + ".start", s.start);
+  } else if (monitors::IsSeasonal(method)) {
+    s.start.kind = StartKind::kMeanOfFirst;
+    s.start.count = 2 * s.constants.season_length;
+  }
+  const YAML::Node start_node = n["start"].IsDefined() ? n["start"] : n;
+  const std::string start_path = path + ".start";
+  if (monitors::IsIntermittent(method) && n["start"].IsDefined() &&
+      s.start.kind != StartKind::kFirstActual)
+    r.Add(start_node, start_path,
+          "croston and sba start from the first demand; use first-actual or leave start out");
+  if (monitors::IsSeasonal(method)) {
+    const int season = s.constants.season_length;
+    if (s.start.kind == StartKind::kFirstActual)
+      r.Add(start_node, start_path,
+            "seasonal methods need seasonal start values: use {mean_of_first: k} with k a "
+            "multiple of season_length, {fitted: n} or an explicit season");
+    if (s.start.kind == StartKind::kMeanOfFirst && (s.start.count % season != 0))
+      r.Add(start_node, start_path,
+            "mean_of_first must be a multiple of season_length (" + std::to_string(season) + ")");
+    if (s.start.kind == StartKind::kFitted && s.start.count < 2 * season)
+      r.Add(start_node, start_path,
+            "fitted needs at least two seasons (" + std::to_string(2 * season) + " periods)");
+    if (s.start.kind == StartKind::kExplicit &&
+        s.start.season.size() != static_cast<std::size_t>(season))
+      r.Add(start_node, start_path,
+            "an explicit start needs exactly season_length (" + std::to_string(season) +
+                ") season values, got " + std::to_string(s.start.season.size()));
+  } else if (s.start.kind == StartKind::kExplicit && !s.start.season.empty()) {
+    r.Add(start_node, start_path, "season values need a seasonal method");
+  }
+  if (s.start.kind == StartKind::kFitted && !monitors::IsSeasonal(method)) {
+    const int need = monitors::HasTrend(method) ? 4 : 3;
+    if (s.start.count < need)
+      r.Add(start_node, start_path,
+            "fitted needs at least " + std::to_string(need) + " periods for this method");
+  }
+
+  r.Range(n, "signal_beta", path, s.signal_beta, 0.0, true, 1.0, false);
+  r.Range(n, "initial_mad", path, s.initial_mad, 0.0, false, 1e300, false);
+  long warmup = 0;
+  r.Int(n, "warmup", path, warmup, 0, 100000);
+  s.warmup = static_cast<int>(warmup);
+  r.Int(n, "max_gap", path, s.max_gap, 0, 100000);
+  if (n["gaps"].IsDefined() && r.String(n["gaps"], path + ".gaps", text)) {
+    if (text == "zero")
+      s.gaps = monitors::GapRule::kZero;
+    else if (text == "skip")
+      s.gaps = monitors::GapRule::kSkip;
+    else
+      r.Add(n["gaps"], path + ".gaps", "must be zero or skip, got '" + text + "'");
+  }
+  r.Range(n, "coverage", path, s.coverage, 0.0, true, 1.0, true);
+
+  const YAML::Node rules = n["rules"];
+  if (rules.IsDefined()) {
+    if (!rules.IsSequence()) {
+      r.Add(rules, path + ".rules", "must be a list of rules");
+    } else {
+      std::set<std::string> names;
+      for (std::size_t i = 0; i < rules.size(); ++i) {
+        const std::string rp = path + ".rules[" + std::to_string(i) + "]";
+        monitors::RuleSpec rule;
+        bool ok = false;
+        ReadRule(r, rules[i], rp, rule, ok);
+        if (!ok) continue;
+        if (!names.insert(rule.name).second) {
+          r.Add(rules[i], rp + ".name", "rule name '" + rule.name + "' is used twice");
+          continue;
+        }
+        s.rules.push_back(rule);
+      }
+      if (rules.size() > monitors::kMaxRules)
+        r.Add(rules, path + ".rules",
+              "at most " + std::to_string(monitors::kMaxRules) + " rules per policy");
+    }
+  }
+}
+
+}  // namespace
+
+LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
+  LoadResult result;
+  Reader r(name);
+  YAML::Node root;
+  try {
+    root = YAML::Load(text);
+  } catch (const YAML::Exception& e) {
+    Problem p;
+    p.file = name;
+    p.line = e.mark.line >= 0 ? e.mark.line + 1 : 0;
+    p.column = e.mark.column >= 0 ? e.mark.column + 1 : 0;
+    p.message = "not valid YAML: " + e.msg;
+    result.problems.push_back(std::move(p));
+    return result;
+  }
+  if (!root.IsMap()) {
+    r.Add(root, "", "the settings file must be a map with a 'policies' list");
+    result.problems = std::move(r.problems());
+    return result;
+  }
+  r.CheckKeys(root, "", {"policies"});
+  const YAML::Node policies = root["policies"];
+  if (!policies.IsDefined() || !policies.IsSequence() || policies.size() == 0) {
+    r.Add(policies.IsDefined() ? policies : root, "policies", "must be a non-empty list of policies");
+  } else {
+    std::set<std::string> names;
+    for (std::size_t i = 0; i < policies.size(); ++i) {
+      const std::string path = "policies[" + std::to_string(i) + "]";
+      Policy p;
+      const std::size_t before = r.problems().size();
+      ReadPolicy(r, policies[i], path, p);
+      if (!p.name.empty() && !names.insert(p.name).second)
+        r.Add(policies[i]["name"], path + ".name", "policy name '" + p.name + "' is used twice");
+      if (r.problems().size() == before) result.settings.policies.push_back(std::move(p));
+    }
+  }
+  result.problems = std::move(r.problems());
+  return result;
+}
+
+LoadResult LoadSettingsFile(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) {
+    LoadResult result;
+    Problem p;
+    p.file = path;
+    p.message = "cannot open the settings file";
+    result.problems.push_back(p);
+    return result;
+  }
+  std::ostringstream text;
+  text << in.rdbuf();
+  return LoadSettingsText(text.str(), path);
+}
+
+}  // namespace config

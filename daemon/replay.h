@@ -1,0 +1,34 @@
+// `forewarden replay`: runs an actuals CSV through the monitoring engine and writes one output
+// row per input row (DESIGN.md, "Replay"). Memory grows with the number of series, not rows.
+#pragma once
+
+#include <iosfwd>
+#include <map>
+#include <string>
+
+#include "config/settings.h"
+
+namespace forewarden {
+
+struct ReplayOptions {
+  std::string input;   // "-" = standard input
+  std::string output;  // empty or "-" = standard output; a file is written under a temporary
+                       // name and renamed into place only when the whole replay succeeded
+};
+
+struct ReplaySummary {
+  long series = 0;
+  long actuals = 0;
+  double seconds = 0.0;
+  std::map<std::string, long> alerts_opened;  // "policy/rule" -> episodes opened
+};
+
+// Returns 0 on success, 2 on bad input (the message in `error` names the line and field),
+// 1 on an I/O failure.
+int RunReplay(const config::Settings& settings, const ReplayOptions& options,
+              ReplaySummary& summary, std::string& error);
+
+// The summary lines written to standard error.
+std::string FormatReplaySummary(const ReplaySummary& summary);
+
+}  // namespace forewarden

@@ -1,0 +1,179 @@
+#include "monitors/series.h"
+
+#include <cmath>
+
+#include "monitors/fit.h"
+#include "monitors/interval.h"
+
+namespace monitors {
+
+SeriesState NewSeriesState(const PolicySpec& policy) {
+  SeriesState s;
+  s.constants = policy.constants;
+  s.stats.mad = policy.initial_mad;
+  s.rules.assign(policy.rules.size(), RuleState{});
+  if (IsIntermittent(policy.method)) {
+    s.started = true;
+  } else if (policy.start.kind == StartKind::kExplicit) {
+    s.model = ExplicitStart(policy.method, policy.constants, policy.start);
+    s.started = true;
+  }
+  return s;
+}
+
+namespace {
+
+bool AllowsNegative(Method m) { return !IsIntermittent(m) && m != Method::kSeasonalMul; }
+
+void StartSeries(const PolicySpec& p, SeriesState& s) {
+  if (p.start.kind == StartKind::kFitted) {
+    FitResult fit = FitStart(p.method, p.constants, s.window);
+    s.constants = fit.constants;
+    s.model = fit.start;
+    for (std::size_t t = 0; t < s.window.size(); ++t)
+      UpdateModel(p.method, s.constants, s.model, static_cast<long>(t), s.window[t]);
+  } else {
+    s.model = StartFromWindow(p.method, p.constants, p.start, s.window);
+  }
+  s.started = true;
+  std::vector<double>().swap(s.window);
+}
+
+// One observed period (index s.next_index). Fills `out` for that period.
+void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
+  const long index = s.next_index++;
+  out.has_forecast = false;
+  out.trigg.reset();
+  out.cusum.reset();
+  out.lower.reset();
+  out.upper.reset();
+  out.alpha = s.constants.alpha;
+  if (!s.started) {
+    s.window.push_back(y);
+    if (static_cast<int>(s.window.size()) >= StartWindow(p.method, p.start)) StartSeries(p, s);
+    out.stats = s.stats;
+    out.active = s.active;
+    return;
+  }
+  const std::optional<double> f = ForecastNext(p.method, s.constants, s.model, index);
+  if (!f) {
+    UpdateModel(p.method, s.constants, s.model, index, y);
+    out.stats = s.stats;
+    out.active = s.active;
+    return;
+  }
+  const double e = y - *f;
+  const double mad_before = s.stats.mad;
+  out.has_forecast = true;
+  out.forecast = *f;
+  out.error = e;
+  if (mad_before > 0.0) {
+    const double hw = IntervalHalfWidth(p.coverage, mad_before);
+    out.lower = *f - hw;
+    out.upper = *f + hw;
+  }
+  if (p.adaptive.enabled && p.adaptive.lagged)
+    s.constants.alpha = AdaptiveAlpha(p.adaptive, s.stats, s.constants.alpha);
+  UpdateErrorStats(s.stats, p.signal_beta, e);
+  if (p.adaptive.enabled && !p.adaptive.lagged)
+    s.constants.alpha = AdaptiveAlpha(p.adaptive, s.stats, s.constants.alpha);
+  out.alpha = s.constants.alpha;
+  UpdateModel(p.method, s.constants, s.model, index, y);
+  out.stats = s.stats;
+  s.forecasts += 1;
+  if (s.forecasts > p.warmup) {
+    out.trigg = TriggSignal(s.stats);
+    out.cusum = CusumSignal(s.stats);
+    std::optional<double> spike;
+    if (mad_before > 0.0) spike = e / (kSigmaPerMad * mad_before);
+    for (std::size_t i = 0; i < p.rules.size(); ++i) {
+      const RuleSpec& rule = p.rules[i];
+      const std::optional<double>& v = rule.signal == SignalKind::kTrigg   ? out.trigg
+                                       : rule.signal == SignalKind::kCusum ? out.cusum
+                                                                           : spike;
+      const RuleChange change = EvaluateRule(rule, s.rules[i], v);
+      const std::uint64_t bit = std::uint64_t{1} << i;
+      if (change == RuleChange::kOpened) {
+        s.active |= bit;
+        out.opened |= bit;
+      } else if (change == RuleChange::kCleared) {
+        s.active &= ~bit;
+        out.cleared |= bit;
+      }
+    }
+  }
+  out.active = s.active;
+}
+
+bool Finite(const SeriesState& s) {
+  if (!std::isfinite(s.model.level) || !std::isfinite(s.model.trend)) return false;
+  for (double v : s.model.season)
+    if (!std::isfinite(v)) return false;
+  return std::isfinite(s.stats.mad) && std::isfinite(s.stats.cusum);
+}
+
+}  // namespace
+
+StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, double y,
+                StepResult& out, std::string* problem) {
+  if (!std::isfinite(y)) {
+    if (problem) *problem = "the value is not a finite number";
+    return StepStatus::kBadValue;
+  }
+  if (y < 0 && !AllowsNegative(p.method)) {
+    if (problem)
+      *problem = "negative demand is not allowed for method " + std::string(MethodName(p.method));
+    return StepStatus::kBadValue;
+  }
+  long gap = 0;
+  if (s.seen) {
+    const std::int64_t d = PeriodDistance(s.last_period, period);
+    if (d < 1) {
+      if (problem) *problem = "the period is not after the series' last period";
+      return StepStatus::kNotLater;
+    }
+    gap = static_cast<long>(d - 1);
+    if (gap > p.max_gap) {
+      if (problem)
+        *problem = std::to_string(gap) + " periods are missing before this one; max_gap is " +
+                   std::to_string(p.max_gap);
+      return StepStatus::kGapTooLong;
+    }
+  }
+  SeriesState before;
+  const bool risky = p.method == Method::kSeasonalMul;
+  if (risky) before = s;
+
+  std::uint64_t opened = 0, cleared = 0;
+  for (long g = 0; g < gap; ++g) {
+    if (p.gaps == GapRule::kZero) {
+      Observe(p, s, 0.0, out);
+      opened |= out.opened;
+      cleared |= out.cleared;
+      out.opened = out.cleared = 0;
+    } else {
+      if (s.started) CoastModel(p.method, s.constants, s.model);
+      s.next_index += 1;
+      s.missing += 1;
+    }
+  }
+  if (!s.seen) {
+    s.seen = true;
+    s.first_period = period;
+  }
+  s.last_period = period;
+  out.opened = out.cleared = 0;
+  Observe(p, s, y, out);
+  out.opened |= opened;
+  out.cleared |= cleared;
+  out.filled = gap;
+  if (risky && !Finite(s)) {
+    s = std::move(before);
+    if (problem)
+      *problem = "the multiplicative model became non-finite (level plus trend reached 0)";
+    return StepStatus::kNonFinite;
+  }
+  return StepStatus::kOk;
+}
+
+}  // namespace monitors

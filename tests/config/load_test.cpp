@@ -1,0 +1,125 @@
+#include "config/load.h"
+
+#include <catch2/catch.hpp>
+
+using config::LoadSettingsFile;
+using config::LoadSettingsText;
+
+namespace {
+std::string AllProblems(const config::LoadResult& r) {
+  std::string s;
+  for (const auto& p : r.problems) s += p.ToString() + "\n";
+  return s;
+}
+}  // namespace
+
+TEST_CASE("the commented example config and the demo config load cleanly", "[unit]") {
+  for (const char* name : {"forewarden.example.yaml", "demo.yaml"}) {
+    auto r = LoadSettingsFile(std::string(FOREWARDEN_SOURCE_DIR) + "/config/" + name);
+    INFO(AllProblems(r));
+    REQUIRE(r.ok());
+    CHECK(r.settings.policies.size() >= 3);
+  }
+  auto r = LoadSettingsFile(std::string(FOREWARDEN_SOURCE_DIR) + "/config/forewarden.example.yaml");
+  const config::Policy& p = r.settings.policies[0];
+  CHECK(p.name == "garden-weekly");
+  CHECK(p.match.key == "north/*");
+  REQUIRE(p.match.labels.size() == 1);
+  CHECK(p.spec.adaptive.enabled);
+  CHECK(p.spec.adaptive.cap == 0.8);
+  CHECK(p.spec.rules.size() == 3);
+  CHECK(p.spec.rules[0].persistence == 2);
+  CHECK(p.spec.rules[2].direction == monitors::Direction::kUnder);
+}
+
+TEST_CASE("every problem is reported with file, line, column and key path", "[unit]") {
+  auto r = LoadSettingsText(
+      "policies:\n"
+      "  - name: a\n"
+      "    match: \"*\"\n"
+      "    period: fortnight\n"
+      "    method: arima\n"
+      "    alpha: 1.5\n"
+      "    colour: blue\n"
+      "    rules:\n"
+      "      - {name: x, signal: trigg, limit: 2}\n",
+      "bad.yaml");
+  REQUIRE(r.problems.size() == 5);
+  const std::string all = AllProblems(r);
+  CHECK_THAT(all, Catch::Contains("bad.yaml:4:13: policies[0].period: must be day, week or month, got 'fortnight'"));
+  CHECK_THAT(all, Catch::Contains("bad.yaml:5:13: policies[0].method: must be ses, holt"));
+  CHECK_THAT(all, Catch::Contains("bad.yaml:6:12: policies[0].alpha: must be in [0, 1], got 1.5"));
+  CHECK_THAT(all, Catch::Contains("bad.yaml:7:5: policies[0].colour: unknown key"));
+  CHECK_THAT(all, Catch::Contains("policies[0].rules[0].limit: must be in (0, 1), got 2"));
+}
+
+TEST_CASE("settings that cannot work are refused", "[unit]") {
+  struct Case {
+    const char* yaml;
+    const char* message;
+  };
+  const Case cases[] = {
+      {"policies: []\n", "policies: must be a non-empty list"},
+      {"policies:\n  - {name: a, period: week}\n", "a policy needs 'match'"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: seasonal-add}\n",
+       "needs 'season_length'"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: seasonal-add, season_length: 4, "
+       "start: first-actual}\n",
+       "seasonal methods need seasonal start values"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: seasonal-add, season_length: 4, "
+       "start: {mean_of_first: 6}}\n",
+       "mean_of_first must be a multiple of season_length (4)"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: seasonal-mul, season_length: 4, "
+       "start: {level: 1, season: [1, 1]}}\n",
+       "exactly season_length (4) season values, got 2"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: croston, adaptive: {}}\n",
+       "croston and sba do not take an adaptive alpha"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: ses, trend_beta: 0.1}\n",
+       "method ses has no trend"},
+      {"policies:\n  - {name: a, match: '*', period: week, signal_beta: 0}\n",
+       "signal_beta: must be in (0, 1], got 0"},
+      {"policies:\n  - {name: a, match: '*', period: week, warmup: -1}\n",
+       "warmup: must be in [0, 100000], got -1"},
+      {"policies:\n  - {name: a, match: '*', period: week, alpha: abc}\n",
+       "alpha: must be a number, got 'abc'"},
+      {"policies:\n  - {name: a, match: '*', period: week, alpha: .nan}\n",
+       "alpha: must be a finite number"},
+      {"policies:\n  - {name: a, match: '*', period: week}\n  - {name: a, match: '*', period: day}\n",
+       "policy name 'a' is used twice"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: 4, clear: 5}]}\n",
+       "clear: must not exceed the limit"},
+      {"policies:\n  - {name: a, match: '*', period: week, start: {fitted: 2}}\n",
+       "fitted needs at least 3 periods"},
+      {"policies:\n  - {name: a, match: '*', period: week, gaps: fill}\n",
+       "gaps: must be zero or skip"},
+      {"policies: [\n", "not valid YAML"},
+  };
+  for (const Case& c : cases) {
+    auto r = LoadSettingsText(c.yaml, "t.yaml");
+    INFO(c.yaml);
+    INFO(AllProblems(r));
+    CHECK_FALSE(r.ok());
+    CHECK_THAT(AllProblems(r), Catch::Contains(c.message));
+  }
+}
+
+TEST_CASE("series take the first policy whose key glob and labels match", "[unit]") {
+  auto r = LoadSettingsText(
+      "policies:\n"
+      "  - {name: web, match: {key: 'north/*', labels: {channel: web}}, period: day}\n"
+      "  - {name: north, match: 'north/*', period: week}\n"
+      "  - {name: slow, match: '*/sku-9????" "', period: week}\n",
+      "m.yaml");
+  REQUIRE(r.ok());
+  auto name = [&](const char* key, std::vector<std::pair<std::string, std::string>> labels = {}) {
+    const config::Policy* p = config::FindPolicy(r.settings, key, labels);
+    return p ? p->name : std::string("-");
+  };
+  CHECK(name("north/store-1/sku-1", {{"channel", "web"}}) == "web");
+  CHECK(name("north/store-1/sku-1") == "north");
+  CHECK(name("south/store-1/sku-91234") == "slow");
+  CHECK(name("south/store-1/sku-912345") == "-");
+  CHECK(config::GlobMatch("*", ""));
+  CHECK(config::GlobMatch("a*b*c", "a-x-b-y-c"));
+  CHECK_FALSE(config::GlobMatch("a*b*c", "a-x-c-y-b"));
+}

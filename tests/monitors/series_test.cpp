@@ -1,0 +1,214 @@
+#include "monitors/series.h"
+
+#include <catch2/catch.hpp>
+#include <cmath>
+
+#include "monitors/interval.h"
+#include "tests/monitors/reference_data.h"
+
+using monitors::PolicySpec;
+using monitors::SeriesState;
+using monitors::StepResult;
+using monitors::StepStatus;
+
+namespace {
+
+std::vector<StepResult> Feed(const PolicySpec& p, SeriesState& s, const std::vector<double>& y,
+                             monitors::PeriodOrdinal first = 100) {
+  std::vector<StepResult> out;
+  for (std::size_t t = 0; t < y.size(); ++t) {
+    StepResult r;
+    REQUIRE(monitors::Step(p, s, first + static_cast<long>(t), y[t], r) == StepStatus::kOk);
+    out.push_back(r);
+  }
+  return out;
+}
+
+PolicySpec StepTestPolicy(bool lagged, double floor, double cap) {
+  // REFERENCES.md 9.5: 10 (t = 1..10) then 20 (t = 11..16); F(1) = 10, beta 0.2, E0 = 0, M0 = 1.
+  PolicySpec p;
+  p.start.kind = monitors::StartKind::kExplicit;
+  p.start.level = 10;
+  p.constants.alpha = 0.0;
+  p.signal_beta = 0.2;
+  p.initial_mad = 1.0;
+  p.adaptive = {true, floor, cap, lagged};
+  return p;
+}
+
+const std::vector<double> kStep = {10, 10, 10, 10, 10, 10, 10, 10, 10, 10, 20, 20, 20, 20, 20, 20};
+
+}  // namespace
+
+TEST_CASE("Trigg-Leach immediate adaptive alpha on a step", "[reference]") {
+  // REFERENCES.md 9.5 #38 [derived].
+  PolicySpec p = StepTestPolicy(false, 0.0, 1.0);
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, kStep);
+  const double alpha[] = {0, 0.9588, 0.9608, 0.9608, 0.9609, 0.9609, 0.9609};
+  const double next[] = {10, 19.5882, 19.9838, 19.9994, 20.0000, 20.0000, 20.0000};
+  for (int k = 0; k < 7; ++k) {
+    CHECK(r[9 + k].alpha == Approx(alpha[k]).margin(1e-4));
+    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, s.constants, s.model, 16);
+    CHECK(f_next == Approx(next[k]).margin(1e-4));
+  }
+  CHECK(r[10].alpha == Approx(0.958819).margin(1e-6));
+}
+
+TEST_CASE("Trigg-Leach lagged adaptive alpha on a step", "[reference]") {
+  // REFERENCES.md 9.5 #39 [derived], the one-period lag attributed to Shone (1967).
+  PolicySpec p = StepTestPolicy(true, 0.0, 1.0);
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, kStep);
+  const double alpha[] = {0, 0, 0.9588, 0.9813, 0.9818, 0.9818, 0.9818};
+  const double next[] = {10, 10, 19.5882, 19.9923, 19.9999, 20.0000, 20.0000};
+  for (int k = 0; k < 7; ++k) {
+    CHECK(r[9 + k].alpha == Approx(alpha[k]).margin(1e-4));
+    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, s.constants, s.model, 16);
+    CHECK(f_next == Approx(next[k]).margin(1e-4));
+  }
+}
+
+TEST_CASE("Trigg-Leach alpha clamped to a floor and a cap", "[reference]") {
+  // REFERENCES.md 9.5 #40 [derived]: immediate, alpha within [0.05, 0.5].
+  PolicySpec p = StepTestPolicy(false, 0.05, 0.5);
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, kStep);
+  CHECK(r[9].alpha == 0.05);
+  for (int k = 10; k < 16; ++k) CHECK(r[k].alpha == 0.5);
+  const double next[] = {15, 17.5, 18.75, 19.375, 19.6875};
+  for (int k = 0; k < 5; ++k) CHECK(r[11 + k].forecast == Approx(next[k]).margin(1e-9));
+  CHECK(*monitors::ForecastNext(p.method, s.constants, s.model, 16) == Approx(19.84375).margin(1e-9));
+}
+
+TEST_CASE("first-actual: period 1 has no forecast and period 2's forecast is actual 1", "[unit]") {
+  PolicySpec p;
+  p.constants.alpha = 0.1;
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, testdata::kNist);
+  CHECK_FALSE(r[0].has_forecast);
+  CHECK(r[0].stats.mad == 0.0);
+  CHECK(r[1].has_forecast);
+  CHECK(r[1].forecast == 71.0);
+  CHECK(r[11].forecast == Approx(71.66528274).margin(1e-6));
+  // E, M, C are 0 before the first forecast, then ordinary EWMAs (no bias correction).
+  CHECK(r[1].stats.smoothed_error == Approx(0.1 * -1.0));
+  CHECK(r[1].stats.mad == Approx(0.1));
+  CHECK(r[1].stats.cusum == -1.0);
+  CHECK(r[1].trigg.value() == Approx(-1.0));
+  CHECK_FALSE(r[1].lower);  // no spread estimate before the first error
+  // interval from the MAD before this period's update
+  const double hw = monitors::IntervalHalfWidth(0.95, r[1].stats.mad);
+  CHECK(*r[2].lower == Approx(r[2].forecast - hw));
+  CHECK(*r[2].upper == Approx(r[2].forecast + hw));
+}
+
+TEST_CASE("mean_of_first: the window starts the level and has no forecasts", "[unit]") {
+  PolicySpec p;
+  p.start.kind = monitors::StartKind::kMeanOfFirst;
+  p.start.count = 4;
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, {10, 12, 14, 16, 20});
+  for (int k = 0; k < 4; ++k) CHECK_FALSE(r[k].has_forecast);
+  CHECK(r[4].forecast == 13.0);
+}
+
+TEST_CASE("mean_of_first for holt fits a line through the window", "[unit]") {
+  PolicySpec p;
+  p.method = monitors::Method::kHolt;
+  p.start.kind = monitors::StartKind::kMeanOfFirst;
+  p.start.count = 4;
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, {10, 12, 14, 16, 18});
+  CHECK(r[4].forecast == Approx(18.0));  // level 16 at the window's end + trend 2
+  CHECK(r[4].error == Approx(0.0).margin(1e-12));
+}
+
+TEST_CASE("mean_of_first for seasonal-add recovers an exact seasonal pattern", "[unit]") {
+  PolicySpec p;
+  p.method = monitors::Method::kSeasonalAdd;
+  p.constants.season_length = 4;
+  p.start.kind = monitors::StartKind::kMeanOfFirst;
+  p.start.count = 8;
+  std::vector<double> y;
+  const double season[] = {5, -3, 1, -3};
+  for (int t = 0; t < 12; ++t) y.push_back(100 + 2 * t + season[t % 4]);
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, y);
+  for (int t = 8; t < 12; ++t) CHECK(r[t].forecast == Approx(y[t]).margin(1e-9));
+}
+
+TEST_CASE("warm-up periods have forecasts but no signals and no alerts", "[unit]") {
+  PolicySpec p;
+  p.warmup = 3;
+  monitors::RuleSpec rule;
+  rule.name = "any";
+  rule.signal = monitors::SignalKind::kTrigg;
+  rule.limit = rule.clear = 0.01;
+  p.rules = {rule};
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, {10, 20, 30, 40, 50});
+  for (int k = 1; k <= 3; ++k) {
+    CHECK(r[k].has_forecast);
+    CHECK_FALSE(r[k].trigg);
+    CHECK(r[k].active == 0);
+  }
+  CHECK(r[4].trigg);
+  CHECK(r[4].active == 1);
+  CHECK(r[4].opened == 1);
+}
+
+TEST_CASE("gap rule zero fills missing periods with zero demand", "[unit]") {
+  PolicySpec p;
+  p.constants.alpha = 0.5;
+  SeriesState s = monitors::NewSeriesState(p);
+  StepResult r;
+  REQUIRE(monitors::Step(p, s, 10, 100, r) == StepStatus::kOk);
+  REQUIRE(monitors::Step(p, s, 13, 100, r) == StepStatus::kOk);
+  CHECK(r.filled == 2);
+  CHECK(r.forecast == 25.0);  // 100 -> 50 -> 25 after two zero periods
+  CHECK(s.next_index == 4);
+}
+
+TEST_CASE("gap rule skip carries the forecast over missing periods", "[unit]") {
+  PolicySpec p;
+  p.constants.alpha = 0.5;
+  p.gaps = monitors::GapRule::kSkip;
+  SeriesState s = monitors::NewSeriesState(p);
+  StepResult r;
+  REQUIRE(monitors::Step(p, s, 10, 100, r) == StepStatus::kOk);
+  REQUIRE(monitors::Step(p, s, 13, 60, r) == StepStatus::kOk);
+  CHECK(r.forecast == 100.0);
+  CHECK(s.missing == 2);
+}
+
+TEST_CASE("bad steps are refused and leave the state untouched", "[unit]") {
+  PolicySpec p;
+  p.max_gap = 5;
+  SeriesState s = monitors::NewSeriesState(p);
+  StepResult r;
+  std::string why;
+  REQUIRE(monitors::Step(p, s, 10, 1, r) == StepStatus::kOk);
+  CHECK(monitors::Step(p, s, 10, 2, r, &why) == StepStatus::kNotLater);
+  CHECK(monitors::Step(p, s, 9, 2, r, &why) == StepStatus::kNotLater);
+  CHECK(monitors::Step(p, s, 17, 2, r, &why) == StepStatus::kGapTooLong);
+  CHECK(why == "6 periods are missing before this one; max_gap is 5");
+  CHECK(monitors::Step(p, s, 11, NAN, r, &why) == StepStatus::kBadValue);
+  CHECK(monitors::Step(p, s, 11, INFINITY, r, &why) == StepStatus::kBadValue);
+  CHECK(s.last_period == 10);
+  CHECK(s.next_index == 1);
+  p.method = monitors::Method::kCroston;
+  CHECK(monitors::Step(p, s, 11, -1, r, &why) == StepStatus::kBadValue);
+}
+
+TEST_CASE("croston reports no forecast and no statistics before the first demand", "[unit]") {
+  PolicySpec p;
+  p.method = monitors::Method::kSba;
+  p.constants.alpha = 0.1;
+  SeriesState s = monitors::NewSeriesState(p);
+  auto r = Feed(p, s, {0, 0, 5, 0, 0, 0, 3});
+  CHECK_FALSE(r[2].has_forecast);
+  CHECK(r[2].stats.mad == 0.0);
+  CHECK(r[3].has_forecast);
+  CHECK(r[3].forecast == Approx(0.95 * 5.0 / 3.0));
+}
