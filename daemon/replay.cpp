@@ -1,6 +1,10 @@
 #include "daemon/replay.h"
 
 #include <chrono>
+#include <condition_variable>
+#include <deque>
+#include <mutex>
+#include <thread>
 #include <cmath>
 #include <cstdio>
 #include <cstring>
@@ -33,22 +37,30 @@ struct SeriesSlot {
   monitors::SeriesState state;
 };
 
-// Parses a period string of one kind, remembering recent answers (feeds repeat few periods).
+// A parsed period with its normalised text.
+struct ParsedPeriod {
+  monitors::PeriodParse parse;
+  char text[10];
+};
+
+// Parses a period string of one kind, remembering answers (feeds repeat few periods; the
+// cache stops growing at 100,000 distinct strings).
 class PeriodCache {
  public:
-  const monitors::PeriodParse& Parse(monitors::PeriodKind kind, std::string_view text) {
+  const ParsedPeriod& Parse(monitors::PeriodKind kind, std::string_view text) {
     auto& cache = caches_[static_cast<int>(kind)];
     auto it = cache.find(text);
     if (it != cache.end()) return it->second;
-    scratch_ = monitors::ParsePeriod(kind, text);
-    if (scratch_.ok() && cache.size() < 100000)
+    scratch_.parse = monitors::ParsePeriod(kind, text);
+    if (scratch_.parse.ok()) monitors::FormatPeriodTo(kind, scratch_.parse.ordinal, scratch_.text);
+    if (scratch_.parse.ok() && cache.size() < 100000)
       return cache.emplace(std::string(text), scratch_).first->second;
     return scratch_;
   }
 
  private:
-  std::unordered_map<std::string, monitors::PeriodParse, StringHash, std::equal_to<>> caches_[3];
-  monitors::PeriodParse scratch_;
+  std::unordered_map<std::string, ParsedPeriod, StringHash, std::equal_to<>> caches_[3];
+  ParsedPeriod scratch_;
 };
 
 bool ParseValue(std::string_view text, double& out) {
@@ -73,6 +85,131 @@ struct OutputFile {
       std::remove(temp_path.c_str());
     }
   }
+};
+
+// One output row, computed by the engine thread and formatted by the writer thread.
+struct Row {
+  std::string_view key;  // points into the series map's key (stable: node-based map)
+  const char* period;    // 10 chars, owned by the period cache (stable: node-based map)
+  const config::Policy* policy;
+  double actual;
+  monitors::StepResult result;
+};
+
+// Formats and writes rows on a second thread so that number formatting and the write
+// system calls overlap with parsing and the engine. Rows travel in blocks through a bounded
+// queue (at most kMaxBlocks waiting), so memory stays flat whatever the input size.
+class RowWriter {
+ public:
+  explicit RowWriter(std::FILE* file) : out_(file), thread_([this] { Work(); }) {
+    current_.reserve(kBlockRows);
+  }
+  ~RowWriter() { Finish(); }
+
+  Row& Next() {
+    if (current_.size() == kBlockRows) Hand();
+    current_.emplace_back();
+    return current_.back();
+  }
+
+  // Writes everything queued; false if a write failed.
+  bool Finish() {
+    if (thread_.joinable()) {
+      Hand();
+      {
+        std::lock_guard lock(mu_);
+        done_ = true;
+      }
+      ready_.notify_all();
+      thread_.join();
+    }
+    return out_.Flush() && !out_.failed();
+  }
+
+ private:
+  static constexpr std::size_t kBlockRows = 8192, kMaxBlocks = 4;
+
+  void Hand() {
+    if (current_.empty()) return;
+    std::unique_lock lock(mu_);
+    room_.wait(lock, [this] { return queue_.size() < kMaxBlocks; });
+    queue_.push_back(std::move(current_));
+    lock.unlock();
+    ready_.notify_one();
+    current_ = std::vector<Row>();
+    current_.reserve(kBlockRows);
+  }
+
+  void Work() {
+    out_.Put(
+        "series,period,actual,forecast,error,alpha,smoothed_error,mad,cusum,trigg_signal,"
+        "cusum_signal,lower,upper,alerts\n");
+    for (;;) {
+      std::vector<Row> block;
+      {
+        std::unique_lock lock(mu_);
+        ready_.wait(lock, [this] { return done_ || !queue_.empty(); });
+        if (queue_.empty()) return;
+        block = std::move(queue_.front());
+        queue_.pop_front();
+      }
+      room_.notify_one();
+      for (const Row& row : block) Format(row);
+    }
+  }
+
+  void Format(const Row& row) {
+    const monitors::StepResult& r = row.result;
+    out_.Field(row.key);
+    out_.Put(',');
+    out_.Put(std::string_view(row.period, 10));
+    out_.Put(',');
+    out_.Number(row.actual);
+    out_.Put(',');
+    if (r.has_forecast) {
+      out_.Number(r.forecast);
+      out_.Put(',');
+      out_.Number(r.error);
+    } else {
+      out_.Put(',');
+    }
+    out_.Put(',');
+    out_.Number(r.alpha);
+    out_.Put(',');
+    out_.Number(r.stats.smoothed_error);
+    out_.Put(',');
+    out_.Number(r.stats.mad);
+    out_.Put(',');
+    out_.Number(r.stats.cusum);
+    out_.Put(',');
+    if (r.trigg) out_.Number(*r.trigg);
+    out_.Put(',');
+    if (r.cusum) out_.Number(*r.cusum);
+    out_.Put(',');
+    if (r.lower) out_.Number(*r.lower);
+    out_.Put(',');
+    if (r.upper) out_.Number(*r.upper);
+    out_.Put(',');
+    if (r.active) {
+      bool first = true;
+      const auto& rules = row.policy->spec.rules;
+      for (std::size_t i = 0; i < rules.size(); ++i) {
+        if (!(r.active >> i & 1)) continue;
+        if (!first) out_.Put(';');
+        out_.Put(rules[i].name);
+        first = false;
+      }
+    }
+    out_.EndLine();
+  }
+
+  TextOut out_;
+  std::vector<Row> current_;
+  std::mutex mu_;
+  std::condition_variable ready_, room_;
+  std::deque<std::vector<Row>> queue_;
+  bool done_ = false;
+  std::thread thread_;  // last: starts after the members above exist
 };
 
 }  // namespace
@@ -132,18 +269,14 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   }
   const std::size_t ncols = fields.size();
 
-  TextOut out(out_file.file);
-  out.Put(
-      "series,period,actual,forecast,error,alpha,smoothed_error,mad,cusum,trigg_signal,"
-      "cusum_signal,lower,upper,alerts\n");
+  RowWriter writer(out_file.file);
 
-  std::unordered_map<std::string, std::unique_ptr<SeriesSlot>, StringHash, std::equal_to<>> series;
+  std::unordered_map<std::string, SeriesSlot, StringHash, std::equal_to<>> series;
   PeriodCache periods;
   std::unordered_map<const config::Policy*, std::vector<long>> opened_counts;
-  monitors::StepResult r;
   std::string problem;
+  monitors::StepResult r;
   long rows = 0;
-  char period_text[16];
 
   while (in.Next(fields)) {
     const long line = in.line();
@@ -164,12 +297,13 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
         error = Where(line, "series") + "no policy matches the series '" + std::string(key) + "'";
         return 2;
       }
-      auto slot = std::make_unique<SeriesSlot>(SeriesSlot{policy, monitors::NewSeriesState(policy->spec)});
-      it = series.emplace(std::string(key), std::move(slot)).first;
+      it = series.emplace(std::string(key), SeriesSlot{policy, monitors::NewSeriesState(policy->spec)})
+               .first;
     }
-    SeriesSlot& slot = *it->second;
+    SeriesSlot& slot = it->second;
     const config::Policy& policy = *slot.policy;
-    const monitors::PeriodParse& period = periods.Parse(policy.period, fields[col_period]);
+    const ParsedPeriod& parsed = periods.Parse(policy.period, fields[col_period]);
+    const monitors::PeriodParse& period = parsed.parse;
     if (!period.ok()) {
       error = Where(line, "period") + period.error;
       return 2;
@@ -192,49 +326,12 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
       return 2;
     }
     ++rows;
-
-    out.Field(key);
-    out.Put(',');
-    out.Put(std::string_view(period_text,
-                             static_cast<std::size_t>(monitors::FormatPeriodTo(
-                                 policy.period, period.ordinal, period_text))));
-    out.Put(',');
-    out.Number(value);
-    out.Put(',');
-    if (r.has_forecast) {
-      out.Number(r.forecast);
-      out.Put(',');
-      out.Number(r.error);
-    } else {
-      out.Put(',');
-    }
-    out.Put(',');
-    out.Number(r.alpha);
-    out.Put(',');
-    out.Number(r.stats.smoothed_error);
-    out.Put(',');
-    out.Number(r.stats.mad);
-    out.Put(',');
-    out.Number(r.stats.cusum);
-    out.Put(',');
-    if (r.trigg) out.Number(*r.trigg);
-    out.Put(',');
-    if (r.cusum) out.Number(*r.cusum);
-    out.Put(',');
-    if (r.lower) out.Number(*r.lower);
-    out.Put(',');
-    if (r.upper) out.Number(*r.upper);
-    out.Put(',');
-    if (r.active) {
-      bool first = true;
-      for (std::size_t i = 0; i < policy.spec.rules.size(); ++i) {
-        if (!(r.active >> i & 1)) continue;
-        if (!first) out.Put(';');
-        out.Put(policy.spec.rules[i].name);
-        first = false;
-      }
-    }
-    out.EndLine();
+    Row& row = writer.Next();
+    row.result = r;
+    row.key = it->first;
+    row.period = parsed.text;
+    row.policy = &policy;
+    row.actual = value;
     if (r.opened) {
       auto& counts = opened_counts[&policy];
       counts.resize(policy.spec.rules.size(), 0);
@@ -246,7 +343,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     error = options.input + ": " + in.error();
     return in.error().rfind("read error", 0) == 0 ? 1 : 2;
   }
-  if (!out.Flush() || std::fflush(out_file.file) != 0) {
+  if (!writer.Finish() || std::fflush(out_file.file) != 0) {
     error = "cannot write the output: " + std::string(std::strerror(errno));
     return 1;
   }

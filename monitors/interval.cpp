@@ -40,7 +40,13 @@ double NormalQuantile(double p) {
 }
 
 double IntervalHalfWidth(double coverage, double mad) {
-  return NormalQuantile(0.5 + coverage / 2.0) * kSigmaPerMad * mad;
+  // Policies keep one coverage, so remember the last quantile (per thread: no shared state).
+  thread_local double last_coverage = -1.0, last_z = 0.0;
+  if (coverage != last_coverage) {
+    last_z = NormalQuantile(0.5 + coverage / 2.0);
+    last_coverage = coverage;
+  }
+  return last_z * kSigmaPerMad * mad;
 }
 
 }  // namespace monitors
