@@ -51,17 +51,26 @@ bool CsvReader::NextLine(std::string_view& out) {
 
 bool CsvReader::Split(std::string_view line, std::vector<std::string_view>& fields) {
   fields.clear();
-  if (line.find('"') == std::string_view::npos) {
-    std::size_t pos = 0;
-    for (;;) {
-      const std::size_t comma = line.find(',', pos);
-      if (comma == std::string_view::npos) {
-        fields.push_back(line.substr(pos));
-        return true;
+  // Fast path: no quotes on the line (one pass finds commas and quotes).
+  {
+    const char* p = line.data();
+    const char* end = p + line.size();
+    const char* start = p;
+    bool quoted = false;
+    for (; p != end; ++p) {
+      if (*p == ',') {
+        fields.emplace_back(start, static_cast<std::size_t>(p - start));
+        start = p + 1;
+      } else if (*p == '"') {
+        quoted = true;
+        break;
       }
-      fields.push_back(line.substr(pos, comma - pos));
-      pos = comma + 1;
     }
+    if (!quoted) {
+      fields.emplace_back(start, static_cast<std::size_t>(end - start));
+      return true;
+    }
+    fields.clear();
   }
   unquoted_.clear();
   unquoted_.reserve(line.size());  // keeps the views below stable
