@@ -21,5 +21,6 @@ echo
 echo "demo: $(($(wc -l < "$out/feed.csv") - 1)) actuals in $out/feed.csv, $(($(wc -l < "$out/truth.csv") - 1)) injected changes in $out/truth.csv"
 echo "demo: series with a rule holding in the last week (first 10):"
 last=$(tail -n 1 "$out/feed.csv" | cut -d, -f2)
-awk -F, -v last="$last" 'NR > 1 && $2 == last && $14 != "" {print "  " $1 "  forecast " $4 "  actual " $3 "  trigg " $10 "  rules " $14}' \
+awk -F, -v last="$last" 'NR > 1 && $2 == last && $14 != "" {
+      printf "  %-28s actual %6s  forecast %8.1f  trigg %6.2f  cusum %6.1f  rules %s\n", $1, $3, $4, $10, $11, $14}' \
   "$out/replay.csv" | head -n 10
