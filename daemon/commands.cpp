@@ -24,8 +24,12 @@ commands:
         Validate a settings file: print every problem, or a summary of the policies.
   simulate [--series N] [--periods T] [--seed S] [--period day|week|month]
            [--start DATE] [--intermittent-share X] [--seasonal-share X]
-           [--change-share X] [--output FILE.csv] [--truth FILE.csv]
-        Write an invented demand feed (garden and hardware stores) for demos and tests.
+           [--change-share X] [--level-min U] [--level-max U] [--noise X]
+           [--output FILE.csv] [--truth FILE.csv]
+        Write an invented demand feed (garden and hardware stores) for demos and tests:
+        levels log-uniform in [level-min, level-max] (default 5..400 units), noise s.d. up to
+        noise x level (default 0.3), shares of slow movers (0.1), seasonal lines (0.2) and
+        series with one injected change (0.3).
   version
         Print the version.
 )";
@@ -146,7 +150,8 @@ int Simulate(const std::vector<std::string>& args, std::ostream& err) {
   std::map<std::string, std::string> flags;
   if (!ParseFlags(args, 1,
                   {"series", "periods", "seed", "period", "start", "intermittent-share",
-                   "seasonal-share", "change-share", "output", "truth"},
+                   "seasonal-share", "change-share", "level-min", "level-max", "noise", "output",
+                   "truth"},
                   flags, err))
     return 2;
   SimulateOptions o;
@@ -181,6 +186,12 @@ int Simulate(const std::vector<std::string>& args, std::ostream& err) {
       o.seasonal_share = v;
     } else if (name == "change-share") {
       o.change_share = v;
+    } else if (name == "level-min") {
+      o.level_min = v;
+    } else if (name == "level-max") {
+      o.level_max = v;
+    } else if (name == "noise") {
+      o.noise = v;
     }
   }
   std::string error;

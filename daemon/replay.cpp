@@ -1,5 +1,6 @@
 #include "daemon/replay.h"
 
+#include <atomic>
 #include <chrono>
 #include <condition_variable>
 #include <deque>
@@ -144,6 +145,18 @@ class RowWriter {
   // Forgets the row Next() returned last.
   void DropLast() { current_.pop_back(); }
 
+  // Stops without formatting or writing what is still queued (the input was bad: the
+  // output is thrown away).
+  void Abandon() {
+    abandoned_ = true;
+    {
+      std::lock_guard lock(turn_mu_);  // wakes a formatter waiting for its turn
+    }
+    turn_cv_.notify_all();
+    current_.clear();
+    Finish();
+  }
+
   // Writes everything handed over; false if a write failed.
   bool Finish() {
     if (finished_) return !failed_;
@@ -200,11 +213,13 @@ class RowWriter {
         f.queue.pop_front();
       }
       f.room.notify_one();
+      if (abandoned_) continue;
       for (const Row& row : block.rows) Format(text, row);
       std::unique_lock lock(turn_mu_);
-      turn_cv_.wait(lock, [&] { return turn_ == block.seq; });
+      turn_cv_.wait(lock, [&] { return turn_ == block.seq || abandoned_; });
       const std::string_view bytes = text.View();
-      if (!failed_ && std::fwrite(bytes.data(), 1, bytes.size(), file_) != bytes.size())
+      if (!failed_ && !abandoned_ &&
+          std::fwrite(bytes.data(), 1, bytes.size(), file_) != bytes.size())
         failed_ = true;
       text.Clear();
       ++turn_;
@@ -262,6 +277,7 @@ class RowWriter {
   std::vector<Row> current_;
   long handed_ = 0;
   bool finished_ = false;
+  std::atomic<bool> abandoned_{false};
   std::mutex turn_mu_;
   std::condition_variable turn_cv_;
   long turn_ = 0;        // sequence number of the next block to write (guarded by turn_mu_)
@@ -326,7 +342,6 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   }
   const std::size_t ncols = fields.size();
 
-  RowWriter writer(out_file.file);
 
   // Series state lives in first-seen order; feeds usually repeat the same order every period,
   // so each slot remembers which series came next and the hash lookup is skipped when that
@@ -335,6 +350,16 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   KeyArena keys;
   std::unordered_map<std::string_view, SeriesSlot*, StringHash, std::equal_to<>> series;
   SeriesSlot* previous = nullptr;
+  // Declared after the keys, slots and period cache that queued rows point into, so that it
+  // is destroyed (and its threads joined) first.
+  RowWriter writer(out_file.file);
+  struct AbandonOnError {
+    RowWriter& writer;
+    bool done = false;
+    ~AbandonOnError() {
+      if (!done) writer.Abandon();
+    }
+  } abandon_on_error{writer};
   PeriodCache periods;
   std::unordered_map<const config::Policy*, std::vector<long>> opened_counts;
   std::string problem;
@@ -414,6 +439,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     error = options.input + ": " + in.error();
     return in.error().rfind("read error", 0) == 0 ? 1 : 2;
   }
+  abandon_on_error.done = true;
   if (!writer.Finish() || std::fflush(out_file.file) != 0) {
     error = "cannot write the output: " + std::string(std::strerror(errno));
     return 1;

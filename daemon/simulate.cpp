@@ -72,6 +72,10 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
       error = "shares must be within [0, 1]";
       return 2;
     }
+  if (!(o.level_min > 0.0 && o.level_max >= o.level_min && o.noise >= 0.0 && o.noise <= 2.0)) {
+    error = "--level-min must be > 0 and <= --level-max; --noise within [0, 2]";
+    return 2;
+  }
   if (o.intermittent_share + o.seasonal_share > 1.0) {
     error = "--intermittent-share plus --seasonal-share must not exceed 1";
     return 2;
@@ -101,8 +105,8 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
                   item % 10000);
     s.key = key;
     if (item >= 10000) s.key += "-" + std::to_string(item / 10000);
-    s.level = std::exp(rng.Uniform(std::log(5.0), std::log(400.0)));
-    s.cv = rng.Uniform(0.1, 0.3);
+    s.level = std::exp(rng.Uniform(std::log(o.level_min), std::log(o.level_max)));
+    s.cv = rng.Uniform(o.noise / 3.0, o.noise);
     s.amplitude = s.kind == Kind::kSeasonal ? rng.Uniform(0.2, 0.5) : 0.0;
     s.phase = rng.Uniform(0.0, 2.0 * M_PI);
     s.demand_chance = s.kind == Kind::kSlow ? rng.Uniform(0.1, 0.4) : 1.0;

@@ -2,6 +2,7 @@
 
 #include <catch2/catch.hpp>
 #include <cmath>
+#include <random>
 
 #include "monitors/interval.h"
 #include "tests/monitors/reference_data.h"
@@ -211,4 +212,20 @@ TEST_CASE("croston reports no forecast and no statistics before the first demand
   CHECK(r[2].stats.mad == 0.0);
   CHECK(r[3].has_forecast);
   CHECK(r[3].forecast == Approx(0.95 * 5.0 / 3.0));
+}
+
+TEST_CASE("through Step, the cumulative error of fixed-alpha ses is (F(n+1) - F(2)) / alpha", "[property]") {
+  // REFERENCES.md 2.3 identity [derived]; random data, first-actual start.
+  std::mt19937_64 gen(2024);
+  std::uniform_real_distribution<double> u(0, 500);
+  for (double alpha : {0.05, 0.3, 0.9}) {
+    PolicySpec p;
+    p.constants.alpha = alpha;
+    SeriesState s = monitors::NewSeriesState(p);
+    std::vector<double> y(300);
+    for (double& v : y) v = u(gen);
+    auto r = Feed(p, s, y);
+    const double f_next = *monitors::ForecastNext(p.method, s.constants, s.model, 300);
+    CHECK(r.back().stats.cusum == Approx((f_next - r[1].forecast) / alpha).epsilon(1e-9));
+  }
 }
