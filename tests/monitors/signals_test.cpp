@@ -158,3 +158,23 @@ TEST_CASE("adaptive alpha is |E/M| clamped, and keeps its value while M is zero"
   s.smoothed_error = 0.2;
   CHECK(monitors::AdaptiveAlpha(spec, s, 0.3) == Approx(0.2));
 }
+
+TEST_CASE("in-control run length to a false alarm at the quoted Trigg limit is about 58 periods", "[reference]") {
+  // REFERENCES.md 2.6 "In-control run lengths" / 9.4 #37 [derived, iid errors, E0 = 0,
+  // M0 = E|e|]: beta 0.1 with limit 0.51 gives a mean run length of ~58 periods (+/- 10 %).
+  std::mt19937_64 gen(2024);
+  std::normal_distribution<double> n01;
+  double total = 0;
+  const int paths = 4000;
+  for (int path = 0; path < paths; ++path) {
+    ErrorStats s;
+    s.mad = std::sqrt(2.0 / M_PI);
+    int t = 0;
+    do {
+      ++t;
+      monitors::UpdateErrorStats(s, 0.1, n01(gen));
+    } while (std::fabs(*monitors::TriggSignal(s)) <= 0.51 && t < 100000);
+    total += t;
+  }
+  CHECK(total / paths == Approx(58).epsilon(0.10));
+}
