@@ -342,7 +342,6 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   }
   const std::size_t ncols = fields.size();
 
-
   // Series state lives in first-seen order; feeds usually repeat the same order every period,
   // so each slot remembers which series came next and the hash lookup is skipped when that
   // guess is right (the memory walk is then sequential too).
@@ -350,6 +349,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   KeyArena keys;
   std::unordered_map<std::string_view, SeriesSlot*, StringHash, std::equal_to<>> series;
   SeriesSlot* previous = nullptr;
+  PeriodCache periods;
   // Declared after the keys, slots and period cache that queued rows point into, so that it
   // is destroyed (and its threads joined) first.
   RowWriter writer(out_file.file);
@@ -360,7 +360,6 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
       if (!done) writer.Abandon();
     }
   } abandon_on_error{writer};
-  PeriodCache periods;
   std::unordered_map<const config::Policy*, std::vector<long>> opened_counts;
   std::string problem;
   long rows = 0;
