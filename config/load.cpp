@@ -269,7 +269,8 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
   static const std::set<std::string> kKeys = {
       "name",   "match",      "period",       "method",        "alpha",       "adaptive",
       "trend_beta", "damping", "season_gamma", "season_length", "start",       "signal_beta",
-      "warmup", "gaps",       "coverage",     "initial_mad",   "max_gap",     "rules"};
+      "warmup", "gaps",       "coverage",     "initial_mad",   "max_gap",     "rules",
+      "history", "stale_after"};
   if (!n.IsMap()) {
     r.Add(n, path, "a policy must be a map");
     return;
@@ -418,6 +419,12 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       r.Add(n["gaps"], path + ".gaps", "must be zero or skip, got '" + text + "'");
   }
   r.Range(n, "coverage", path, s.coverage, 0.0, true, 1.0, true);
+  long history = p.history;
+  r.Int(n, "history", path, history, 1, 100000);
+  p.history = static_cast<int>(history);
+  long stale = p.stale_after;
+  r.Int(n, "stale_after", path, stale, 1, 100000);
+  p.stale_after = static_cast<int>(stale);
 
   const YAML::Node rules = n["rules"];
   if (rules.IsDefined()) {
@@ -444,6 +451,46 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
   }
 }
 
+void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
+  const std::string path = "server";
+  if (!n.IsMap()) {
+    r.Add(n, path, "must be a map");
+    return;
+  }
+  r.CheckKeys(n, path,
+              {"listen", "data", "token_file", "token_env", "synchronous", "max_body_bytes",
+               "max_rows_per_batch", "max_connections", "header_timeout_seconds",
+               "idle_timeout_seconds", "queue_depth", "shutdown_grace_seconds", "folder",
+               "folder_poll_ms"});
+  for (auto [key, out] : {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
+                          std::pair{"token_file", &s.token_file}, std::pair{"token_env", &s.token_env},
+                          std::pair{"folder", &s.folder}})
+    if (n[key].IsDefined()) r.String(n[key], Reader::Join(path, key), *out);
+  if (n["listen"].IsDefined() && s.listen.rfind(':') == std::string::npos)
+    r.Add(n["listen"], path + ".listen", "must be HOST:PORT, got '" + s.listen + "'");
+  if (n["synchronous"].IsDefined()) {
+    std::string text;
+    if (r.String(n["synchronous"], path + ".synchronous", text)) {
+      if (text == "full")
+        s.synchronous = Synchronous::kFull;
+      else if (text == "normal")
+        s.synchronous = Synchronous::kNormal;
+      else
+        r.Add(n["synchronous"], path + ".synchronous", "must be full or normal, got '" + text + "'");
+    }
+  }
+  r.Int(n, "max_body_bytes", path, s.max_body_bytes, 1024, 1L << 31);
+  r.Int(n, "max_rows_per_batch", path, s.max_rows_per_batch, 1, 10000000);
+  r.Int(n, "max_connections", path, s.max_connections, 1, 100000);
+  r.Int(n, "header_timeout_seconds", path, s.header_timeout_seconds, 1, 3600);
+  r.Int(n, "idle_timeout_seconds", path, s.idle_timeout_seconds, 1, 86400);
+  r.Int(n, "queue_depth", path, s.queue_depth, 1, 100000);
+  r.Int(n, "shutdown_grace_seconds", path, s.shutdown_grace_seconds, 0, 3600);
+  r.Int(n, "folder_poll_ms", path, s.folder_poll_ms, 10, 3600000);
+  if (!s.token_file.empty() && !s.token_env.empty())
+    r.Add(n, path, "give token_file or token_env, not both");
+}
+
 }  // namespace
 
 LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
@@ -466,7 +513,10 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
     result.problems = std::move(r.problems());
     return result;
   }
-  r.CheckKeys(root, "", {"policies"});
+  r.CheckKeys(root, "", {"policies", "server", "fallback_policy"});
+  if (root["server"].IsDefined()) ReadServer(r, root["server"], result.settings.server);
+  if (root["fallback_policy"].IsDefined())
+    r.String(root["fallback_policy"], "fallback_policy", result.settings.fallback_policy);
   const YAML::Node policies = root["policies"];
   if (!policies.IsDefined() || !policies.IsSequence() || policies.size() == 0) {
     r.Add(policies.IsDefined() ? policies : root, "policies", "must be a non-empty list of policies");
@@ -481,6 +531,13 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
         r.Add(policies[i]["name"], path + ".name", "policy name '" + p.name + "' is used twice");
       if (r.problems().size() == before) result.settings.policies.push_back(std::move(p));
     }
+  }
+  if (!result.settings.fallback_policy.empty()) {
+    bool found = false;
+    for (const Policy& p : result.settings.policies) found |= p.name == result.settings.fallback_policy;
+    if (!found)
+      r.Add(root["fallback_policy"], "fallback_policy",
+            "names no policy: '" + result.settings.fallback_policy + "'");
   }
   result.problems = std::move(r.problems());
   return result;

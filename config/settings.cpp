@@ -35,6 +35,9 @@ const Policy* FindPolicy(const Settings& settings, std::string_view key,
     }
     if (all) return &p;
   }
+  if (!settings.fallback_policy.empty())
+    for (const Policy& p : settings.policies)
+      if (p.name == settings.fallback_policy) return &p;
   return nullptr;
 }
 

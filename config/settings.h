@@ -23,16 +23,41 @@ struct Policy {
   Match match;
   monitors::PeriodKind period = monitors::PeriodKind::kWeek;
   monitors::PolicySpec spec;
+  int history = 104;        // actuals kept per series for restatements and charts
+  int stale_after = 2;      // periods an actual may be overdue before the series is stale
+};
+
+enum class Synchronous { kFull, kNormal };
+
+// The service's settings (`server:`); all optional. Which ones apply on reload is listed in
+// the README ("Settings that apply without a restart").
+struct Server {
+  std::string listen = "127.0.0.1:8700";
+  std::string data = "./forewarden-data";
+  std::string token_file;       // bearer token for write endpoints, read from this file...
+  std::string token_env;        // ...or from this environment variable
+  Synchronous synchronous = Synchronous::kFull;
+  long max_body_bytes = 16 << 20;
+  long max_rows_per_batch = 200000;
+  long max_connections = 256;
+  long header_timeout_seconds = 10;
+  long idle_timeout_seconds = 60;
+  long queue_depth = 64;        // batches waiting for the engine
+  long shutdown_grace_seconds = 10;
+  std::string folder;           // drop folder ("" = none): incoming files, done/, rejected/
+  long folder_poll_ms = 500;
 };
 
 struct Settings {
   std::vector<Policy> policies;  // first match wins
+  std::string fallback_policy;   // taken by series no policy matches ("" = reject them)
+  Server server;
 };
 
 // True when `key` matches the glob `pattern`.
 bool GlobMatch(std::string_view pattern, std::string_view key);
 
-// The first policy whose match fits the key and labels, or nullptr.
+// The first policy whose match fits the key and labels, else the fallback policy, or nullptr.
 const Policy* FindPolicy(const Settings& settings, std::string_view key,
                          const std::vector<std::pair<std::string, std::string>>& labels = {});
 

@@ -123,3 +123,35 @@ TEST_CASE("series take the first policy whose key glob and labels match", "[unit
   CHECK(config::GlobMatch("a*b*c", "a-x-b-y-c"));
   CHECK_FALSE(config::GlobMatch("a*b*c", "a-x-c-y-b"));
 }
+
+TEST_CASE("the server section and the fallback policy load with their defaults and bounds", "[unit]") {
+  auto r = LoadSettingsText(
+      "server:\n"
+      "  listen: 127.0.0.1:9100\n"
+      "  synchronous: normal\n"
+      "  max_rows_per_batch: 5000\n"
+      "fallback_policy: rest\n"
+      "policies:\n"
+      "  - {name: north, match: 'north/*', period: week, history: 52, stale_after: 3}\n"
+      "  - {name: rest, match: 'never/*', period: week}\n",
+      "s.yaml");
+  INFO(AllProblems(r));
+  REQUIRE(r.ok());
+  CHECK(r.settings.server.listen == "127.0.0.1:9100");
+  CHECK(r.settings.server.synchronous == config::Synchronous::kNormal);
+  CHECK(r.settings.server.max_rows_per_batch == 5000);
+  CHECK(r.settings.server.queue_depth == 64);
+  CHECK(r.settings.policies[0].history == 52);
+  CHECK(config::FindPolicy(r.settings, "south/x")->name == "rest");
+  auto bad = LoadSettingsText(
+      "server: {listen: nowhere, synchronous: off, queue_depth: 0, token_file: a, token_env: B}\n"
+      "fallback_policy: missing\n"
+      "policies:\n  - {name: a, match: '*', period: week}\n",
+      "b.yaml");
+  const std::string all = AllProblems(bad);
+  CHECK_THAT(all, Catch::Contains("server.listen: must be HOST:PORT"));
+  CHECK_THAT(all, Catch::Contains("server.synchronous: must be full or normal"));
+  CHECK_THAT(all, Catch::Contains("server.queue_depth: must be in [1, 100000], got 0"));
+  CHECK_THAT(all, Catch::Contains("give token_file or token_env, not both"));
+  CHECK_THAT(all, Catch::Contains("fallback_policy: names no policy: 'missing'"));
+}

@@ -1,0 +1,125 @@
+#include "daemon/state_codec.h"
+
+#include <cstdint>
+#include <cstring>
+
+namespace forewarden {
+namespace {
+
+constexpr std::uint8_t kVersion = 1;
+
+class Writer {
+ public:
+  template <typename T>
+  void Put(T v) {
+    char b[sizeof(T)];
+    std::memcpy(b, &v, sizeof(T));
+    out.append(b, sizeof(T));
+  }
+  void Doubles(const std::vector<double>& v) {
+    Put(static_cast<std::uint32_t>(v.size()));
+    for (double d : v) Put(d);
+  }
+  std::string out;
+};
+
+class Reader {
+ public:
+  explicit Reader(std::string_view in) : in_(in) {}
+  template <typename T>
+  bool Get(T& v) {
+    if (in_.size() < sizeof(T)) return false;
+    std::memcpy(&v, in_.data(), sizeof(T));
+    in_.remove_prefix(sizeof(T));
+    return true;
+  }
+  bool Doubles(std::vector<double>& v) {
+    std::uint32_t n = 0;
+    if (!Get(n) || in_.size() < static_cast<std::size_t>(n) * sizeof(double)) return false;
+    v.resize(n);
+    for (double& d : v) Get(d);
+    return true;
+  }
+  bool done() const { return in_.empty(); }
+
+ private:
+  std::string_view in_;
+};
+
+}  // namespace
+
+std::string EncodeState(const monitors::SeriesState& s) {
+  Writer w;
+  w.Put(kVersion);
+  const std::uint8_t flags = static_cast<std::uint8_t>((s.seen ? 1 : 0) | (s.started ? 2 : 0) |
+                                                       (s.model.has_demand ? 4 : 0));
+  w.Put(flags);
+  w.Put<std::int64_t>(s.first_period);
+  w.Put<std::int64_t>(s.last_period);
+  w.Put<std::int64_t>(s.next_index);
+  w.Doubles(s.window);
+  w.Put(s.constants.alpha);
+  w.Put(s.constants.beta);
+  w.Put(s.constants.phi);
+  w.Put(s.constants.gamma);
+  w.Put<std::int32_t>(s.constants.season_length);
+  w.Put(s.model.level);
+  w.Put(s.model.trend);
+  w.Doubles(s.model.season);
+  w.Put(s.model.size);
+  w.Put(s.model.interval);
+  w.Put<std::int64_t>(s.model.since_demand);
+  w.Put(s.stats.smoothed_error);
+  w.Put(s.stats.mad);
+  w.Put(s.stats.cusum);
+  w.Put<std::int64_t>(s.forecasts);
+  w.Put<std::int64_t>(s.missing);
+  w.Put(static_cast<std::uint32_t>(s.rules.size()));
+  for (const auto& r : s.rules) {
+    w.Put<std::int32_t>(r.run);
+    w.Put<std::uint8_t>(r.active ? 1 : 0);
+  }
+  w.Put<std::uint64_t>(s.active);
+  return std::move(w.out);
+}
+
+bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
+  Reader r(bytes);
+  monitors::SeriesState s;
+  std::uint8_t version = 0, flags = 0;
+  std::int64_t first = 0, last = 0, next = 0, since = 0, forecasts = 0, missing = 0;
+  std::int32_t season_length = 0;
+  std::uint32_t nrules = 0;
+  if (!r.Get(version) || version != kVersion || !r.Get(flags) || !r.Get(first) || !r.Get(last) ||
+      !r.Get(next) || !r.Doubles(s.window) || !r.Get(s.constants.alpha) ||
+      !r.Get(s.constants.beta) || !r.Get(s.constants.phi) || !r.Get(s.constants.gamma) ||
+      !r.Get(season_length) || !r.Get(s.model.level) || !r.Get(s.model.trend) ||
+      !r.Doubles(s.model.season) || !r.Get(s.model.size) || !r.Get(s.model.interval) ||
+      !r.Get(since) || !r.Get(s.stats.smoothed_error) || !r.Get(s.stats.mad) ||
+      !r.Get(s.stats.cusum) || !r.Get(forecasts) || !r.Get(missing) || !r.Get(nrules) ||
+      nrules > monitors::kMaxRules)
+    return false;
+  s.rules.resize(nrules);
+  for (auto& rule : s.rules) {
+    std::int32_t run = 0;
+    std::uint8_t active = 0;
+    if (!r.Get(run) || !r.Get(active)) return false;
+    rule.run = run;
+    rule.active = active != 0;
+  }
+  if (!r.Get(s.active) || !r.done()) return false;
+  s.seen = flags & 1;
+  s.started = flags & 2;
+  s.model.has_demand = flags & 4;
+  s.first_period = first;
+  s.last_period = last;
+  s.next_index = static_cast<long>(next);
+  s.constants.season_length = season_length;
+  s.model.since_demand = static_cast<long>(since);
+  s.forecasts = static_cast<long>(forecasts);
+  s.missing = static_cast<long>(missing);
+  out = std::move(s);
+  return true;
+}
+
+}  // namespace forewarden

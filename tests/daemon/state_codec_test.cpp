@@ -1,0 +1,60 @@
+#include "daemon/state_codec.h"
+
+#include <catch2/catch.hpp>
+#include <random>
+
+using monitors::PolicySpec;
+
+TEST_CASE("a decoded state continues exactly like the original, for every method", "[unit]") {
+  std::mt19937_64 gen(5);
+  std::uniform_real_distribution<double> u(0, 50);
+  for (auto method : {monitors::Method::kSes, monitors::Method::kHolt, monitors::Method::kDamped,
+                      monitors::Method::kSeasonalAdd, monitors::Method::kSeasonalMul,
+                      monitors::Method::kCroston, monitors::Method::kSba}) {
+    PolicySpec p;
+    p.method = method;
+    p.constants.season_length = 4;
+    p.constants.phi = method == monitors::Method::kDamped ? 0.9 : 1.0;
+    if (monitors::IsSeasonal(method)) {
+      p.start.kind = monitors::StartKind::kMeanOfFirst;
+      p.start.count = 8;
+    }
+    if (!monitors::IsIntermittent(method)) p.adaptive = {true, 0.05, 0.7, true};
+    monitors::RuleSpec rule;
+    rule.name = "r";
+    rule.limit = rule.clear = 0.3;
+    p.rules = {rule, rule};
+    monitors::SeriesState a = monitors::NewSeriesState(p);
+    monitors::StepResult r;
+    for (int t = 0; t < 6; ++t) REQUIRE(monitors::Step(p, a, 100 + t, t % 3 ? u(gen) + 1 : 0.5, r) == monitors::StepStatus::kOk);
+    const std::string bytes = forewarden::EncodeState(a);
+    monitors::SeriesState b;
+    REQUIRE(forewarden::DecodeState(bytes, b));
+    CHECK(forewarden::EncodeState(b) == bytes);
+    for (int t = 6; t < 40; ++t) {
+      const double y = t % 5 ? u(gen) + 1 : 0.0;
+      monitors::StepResult ra, rb;
+      REQUIRE(monitors::Step(p, a, 100 + t, y, ra) == monitors::StepStatus::kOk);
+      REQUIRE(monitors::Step(p, b, 100 + t, y, rb) == monitors::StepStatus::kOk);
+      REQUIRE(ra.forecast == rb.forecast);
+      REQUIRE(ra.stats.mad == rb.stats.mad);
+      REQUIRE(ra.active == rb.active);
+    }
+    CHECK(forewarden::EncodeState(a) == forewarden::EncodeState(b));
+  }
+}
+
+TEST_CASE("damaged state bytes are refused, not half-read", "[unit]") {
+  monitors::SeriesState s;
+  s.rules.resize(2);
+  const std::string bytes = forewarden::EncodeState(s);
+  monitors::SeriesState out;
+  out.forecasts = 77;
+  CHECK_FALSE(forewarden::DecodeState(bytes.substr(0, bytes.size() - 1), out));
+  CHECK_FALSE(forewarden::DecodeState(bytes + "x", out));
+  CHECK_FALSE(forewarden::DecodeState("", out));
+  std::string wrong_version = bytes;
+  wrong_version[0] = 9;
+  CHECK_FALSE(forewarden::DecodeState(wrong_version, out));
+  CHECK(out.forecasts == 77);
+}
