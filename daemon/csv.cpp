@@ -13,6 +13,12 @@ CsvReader::CsvReader(const std::string& path) : buf_(1 << 20) {
   }
 }
 
+CsvReader::CsvReader(FromText, std::string_view text) : buf_(text.begin(), text.end()) {
+  end_ = buf_.size();
+  eof_ = true;
+  if (buf_.empty()) buf_.resize(1);  // keeps data() valid
+}
+
 bool CsvReader::NextLine(std::string_view& out) {
   for (;;) {
     const char* start = buf_.data() + begin_;
@@ -37,6 +43,10 @@ bool CsvReader::NextLine(std::string_view& out) {
     begin_ = 0;
     end_ = rest;
     if (end_ == buf_.size()) buf_.resize(buf_.size() * 2);
+    if (!file_) {
+      eof_ = true;
+      continue;
+    }
     const std::size_t got = std::fread(buf_.data() + end_, 1, buf_.size() - end_, file_.get());
     if (got == 0) {
       if (std::ferror(file_.get())) {

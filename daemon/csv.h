@@ -16,6 +16,9 @@ class CsvReader {
  public:
   // path "-" reads standard input. ok() is false (and error() says why) if it cannot open.
   explicit CsvReader(const std::string& path);
+  // Reads from text in memory (copied).
+  struct FromText {};
+  CsvReader(FromText, std::string_view text);
   bool ok() const { return error_.empty(); }
   const std::string& error() const { return error_; }
 

@@ -316,13 +316,18 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     return in.ok() ? 2 : 1;
   }
   int col_series = -1, col_period = -1, col_value = -1;
+  std::vector<std::string> label_names(fields.size());  // other columns are labels
   for (std::size_t i = 0; i < fields.size(); ++i) {
     std::string_view f = fields[i];
     int* slot = f == "series" ? &col_series : f == "period" ? &col_period : f == "value" ? &col_value : nullptr;
     if (!slot) {
-      error = "line " + std::to_string(in.line()) + ": unknown column '" + std::string(f) +
-              "' in the header; expected series,period,value";
-      return 2;
+      if (f.empty()) {
+        error = "line " + std::to_string(in.line()) + ": column " + std::to_string(i + 1) +
+                " of the header has no name";
+        return 2;
+      }
+      label_names[i] = std::string(f);
+      continue;
     }
     if (*slot >= 0) {
       error = "line " + std::to_string(in.line()) + ": column '" + std::string(f) + "' appears twice";
@@ -382,7 +387,11 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
       if (it != series.end()) {
         found = it->second;
       } else {
-        const config::Policy* policy = config::FindPolicy(settings, key);
+        std::vector<std::pair<std::string, std::string>> labels;
+        for (std::size_t i = 0; i < ncols; ++i)
+          if (!label_names[i].empty() && !fields[i].empty())
+            labels.emplace_back(label_names[i], std::string(fields[i]));
+        const config::Policy* policy = config::FindPolicy(settings, key, labels);
         if (!policy) {
           error = Where(line, "series") + "no policy matches the series '" + std::string(key) + "'";
           return 2;

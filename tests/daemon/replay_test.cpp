@@ -101,7 +101,7 @@ TEST_CASE("replay refuses bad input with the line and field, and writes nothing"
   };
   const std::vector<Case> cases = {
       {"series,value\na,1\n", "line 1: the header has no 'period' column"},
-      {"series,period,value,extra\n", "unknown column 'extra'"},
+      {"series,period,value,\n", "column 4 of the header has no name"},
       {"", "empty input"},
       {"series,period,value\na,2026-01-05,abc\n", "line 2, field value: 'abc' is not a number"},
       {"series,period,value\na,2026-01-05,\n", "line 2, field value: '' is not a number"},
@@ -137,6 +137,20 @@ TEST_CASE("replay rejects series no policy takes and settings that do not load",
   CHECK(r.rc == 2);
   CHECK_THAT(r.err, Catch::Contains("s.yaml:2:35: policies[0].period: must be day, week or month"));
   CHECK_THAT(r.err, Catch::Contains("1 problem in"));
+}
+
+TEST_CASE("extra columns are labels that policies can match on", "[integration]") {
+  TempDir dir;
+  Run r = Replay(dir, "series,channel,period,value\na,web,2026-01-05,1\nb,store,2026-01-05,2\n",
+                 "policies:\n"
+                 "  - {name: web, match: {key: '*', labels: {channel: web}}, period: day}\n"
+                 "  - {name: rest, match: '*', period: week}\n");
+  INFO(r.err);
+  REQUIRE(r.rc == 0);
+  auto lines = Lines(r.output);
+  CHECK(lines[1].rfind("a,2026-01-07,1,", 0) == 0);  // a day: stays the 7th
+  CHECK(lines[2].rfind("b,2026-01-05,2,", 0) == 0);  // a week: Monday the 5th
+  CHECK_THAT(r.err, Catch::Contains("replay: 2 series"));
 }
 
 TEST_CASE("check-config lists every problem or summarises the policies", "[integration]") {

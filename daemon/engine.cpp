@@ -1,0 +1,569 @@
+#include "daemon/engine.h"
+
+#include <algorithm>
+#include <cmath>
+
+namespace forewarden {
+namespace {
+
+constexpr std::size_t kMaxProblems = 100;
+constexpr std::size_t kMaxGroup = 64;  // batches committed together at most
+
+std::string LabelsJson(const Labels& labels) {
+  std::string out = "{";
+  for (std::size_t i = 0; i < labels.size(); ++i) {
+    if (i) out += ',';
+    for (const std::string* s : {&labels[i].first, &labels[i].second}) {
+      out += '"';
+      for (char c : *s) {
+        if (c == '"' || c == '\\') {
+          out += '\\';
+          out += c;
+        } else if (static_cast<unsigned char>(c) < 0x20) {
+          char buf[8];
+          std::snprintf(buf, sizeof buf, "\\u%04x", c);
+          out += buf;
+        } else {
+          out += c;
+        }
+      }
+      out += '"';
+      if (s == &labels[i].first) out += ':';
+    }
+  }
+  return out + "}";
+}
+
+// Whether a stored state can run under a policy (reloads and restarts must not change a
+// series' method or season length under it).
+bool Compatible(const monitors::SeriesState& s, const config::Policy& p) {
+  if (!s.started) return true;
+  if (monitors::IsSeasonal(p.spec.method))
+    return s.model.season.size() == static_cast<std::size_t>(p.spec.constants.season_length);
+  return s.model.season.empty();
+}
+
+void FitRules(monitors::SeriesState& s, const config::Policy& p) {
+  if (s.rules.size() != p.spec.rules.size()) {
+    s.rules.resize(p.spec.rules.size());
+    s.active &= p.spec.rules.size() >= 64 ? ~0ULL : ((1ULL << p.spec.rules.size()) - 1);
+  }
+}
+
+}  // namespace
+
+Engine::Engine(std::shared_ptr<const config::Settings> settings, Clock clock)
+    : settings_(std::move(settings)), clock_(std::move(clock)) {}
+
+Engine::~Engine() { Stop(); }
+
+bool Engine::Start(std::string& error) {
+  const config::Server& srv = settings_->server;
+  if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull)) {
+    error = "store: " + store_.error();
+    return false;
+  }
+  std::string problem;
+  const bool loaded = store_.LoadSeries([&](StoredSeries&& row) {
+    const config::Policy* policy = nullptr;
+    for (const auto& p : settings_->policies)
+      if (p.name == row.policy) policy = &p;
+    if (!policy) {
+      if (problem.empty())
+        problem = "series '" + row.key + "' belongs to policy '" + row.policy +
+                  "', which the settings no longer have";
+      return;
+    }
+    if (!Compatible(row.state, *policy)) {
+      if (problem.empty())
+        problem = "series '" + row.key + "': policy '" + row.policy +
+                  "' changed its method or season length; the stored state does not fit it";
+      return;
+    }
+    Series s;
+    s.id = row.id;
+    s.key = std::move(row.key);
+    s.labels = std::move(row.labels);
+    s.policy = policy;
+    s.state = std::move(row.state);
+    FitRules(s.state, *policy);
+    s.retained = row.retained;
+    s.oldest = row.oldest_period;
+    index_.emplace(s.key, series_.size());
+    series_.push_back(std::move(s));
+  });
+  if (!loaded) {
+    error = "store: " + store_.error();
+    return false;
+  }
+  if (!problem.empty()) {
+    error = problem;
+    return false;
+  }
+  thread_ = std::thread([this] { Run(); });
+  return true;
+}
+
+void Engine::Stop() {
+  {
+    std::lock_guard lock(mu_);
+    stopping_ = true;
+  }
+  wake_.notify_all();
+  if (thread_.joinable()) thread_.join();
+}
+
+bool Engine::Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)> done) {
+  {
+    std::lock_guard lock(mu_);
+    if (stopping_ || queue_.size() >= static_cast<std::size_t>(settings_->server.queue_depth))
+      return false;
+    Job job;
+    job.rows = std::move(rows);
+    job.done = std::move(done);
+    queue_.push_back(std::move(job));
+  }
+  wake_.notify_one();
+  return true;
+}
+
+bool Engine::Post(std::function<void()> read) {
+  {
+    std::lock_guard lock(mu_);
+    if (stopping_ || queue_.size() >= static_cast<std::size_t>(settings_->server.queue_depth))
+      return false;
+    Job job;
+    job.read = std::move(read);
+    queue_.push_back(std::move(job));
+  }
+  wake_.notify_one();
+  return true;
+}
+
+bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
+  return Post([this, settings] {
+    // Series move to the policy of the same name; the checks in serve's reload path make sure
+    // that such a policy exists and keeps its method and season length.
+    for (Series& s : series_) {
+      for (const auto& p : settings->policies)
+        if (p.name == s.policy->name) {
+          s.policy = &p;
+          FitRules(s.state, p);
+        }
+    }
+    settings_ = settings;
+  });
+}
+
+std::string Engine::failure() const {
+  std::lock_guard lock(mu_);
+  return failure_;
+}
+
+std::size_t Engine::queue_depth() const {
+  std::lock_guard lock(mu_);
+  return queue_.size();
+}
+
+void Engine::Fail(const std::string& why) {
+  std::lock_guard lock(mu_);
+  if (failure_.empty()) failure_ = why;
+}
+
+void Engine::Run() {
+  for (;;) {
+    std::vector<Job> group;
+    {
+      std::unique_lock lock(mu_);
+      wake_.wait(lock, [this] { return stopping_ || !queue_.empty(); });
+      if (queue_.empty()) return;  // stopping and drained
+      // A run of batches commits together; a read job or a reload ends the run.
+      while (!queue_.empty() && group.size() < kMaxGroup) {
+        const bool is_batch = static_cast<bool>(queue_.front().done);
+        if (!is_batch && !group.empty()) break;
+        group.push_back(std::move(queue_.front()));
+        queue_.pop_front();
+        if (!is_batch) break;
+      }
+    }
+    if (!group.front().done) {
+      if (group.front().read) group.front().read();
+      continue;
+    }
+    std::vector<Pending> pending(group.size());
+    for (std::size_t i = 0; i < group.size(); ++i) pending[i].job = std::move(group[i]);
+    const std::string sticky = failure();
+    if (!sticky.empty()) {
+      for (Pending& p : pending) {
+        p.reply.status = IngestReply::Status::kUnavailable;
+        p.reply.error = sticky;
+        p.job.done(std::move(p.reply));
+      }
+      continue;
+    }
+    if (!store_.Begin()) {
+      Fail("store: begin: " + store_.error());
+    } else {
+      for (Pending& p : pending) ApplyBatch(p);
+      if (failure().empty() && !store_.Commit()) Fail("store: commit: " + store_.error());
+    }
+    const std::string failed = failure();
+    if (!failed.empty()) {
+      store_.Rollback();
+      // Undo in reverse order: later batches saw the earlier ones' states.
+      for (auto it = pending.rbegin(); it != pending.rend(); ++it) {
+        if (it->reply.status == IngestReply::Status::kOk) Rewind(*it);
+        it->reply.status = IngestReply::Status::kUnavailable;
+        it->reply.error = failed;
+      }
+    } else {
+      const std::int64_t now = clock_();
+      for (const Pending& p : pending)
+        if (p.reply.status == IngestReply::Status::kOk)
+          for (const IngestRow& row : p.job.rows) {
+            auto it = index_.find(row.series);
+            if (it != index_.end()) last_arrival_[series_[it->second].policy->name] = now;
+          }
+    }
+    for (Pending& p : pending) p.job.done(std::move(p.reply));
+  }
+}
+
+void Engine::Rewind(Pending& p) {
+  for (auto it = p.undo.rbegin(); it != p.undo.rend(); ++it) {
+    if (it->index >= p.series_before) continue;
+    Series& s = series_[it->index];
+    s.state = std::move(it->state);
+    s.retained = it->retained;
+    s.oldest = it->oldest;
+  }
+  while (series_.size() > p.series_before) {
+    index_.erase(series_.back().key);
+    series_.pop_back();
+  }
+  p.undo.clear();
+}
+
+void Engine::ApplyBatch(Pending& p) {
+  p.series_before = series_.size();
+  p.reply.counts.rows = static_cast<long>(p.job.rows.size());
+  if (!store_.Savepoint()) {
+    Fail("store: savepoint: " + store_.error());
+    return;
+  }
+  std::vector<char> touched(series_.size(), 0);
+  std::vector<char> series_failed;
+  std::unordered_map<std::string, bool> bad_series;
+  bool store_failed = false;
+  for (const IngestRow& row : p.job.rows) {
+    if (bad_series.count(row.series)) continue;  // one problem per series is enough
+    if (!ApplyRow(row, p, touched, store_failed)) bad_series[row.series] = true;
+    if (store_failed) break;
+  }
+  if (store_failed) return;  // Run() rolls everything back
+  if (p.reply.problem_count == 0) {
+    for (std::size_t i = 0; i < series_.size(); ++i) {
+      if (i < touched.size() && !touched[i]) continue;
+      Series& s = series_[i];
+      if (!Trim(s) || !store_.UpdateState(s.id, s.state)) {
+        Fail("store: " + store_.error());
+        return;
+      }
+    }
+    if (!store_.ReleaseSavepoint()) Fail("store: release: " + store_.error());
+    return;
+  }
+  p.reply.status = IngestReply::Status::kRejected;
+  p.reply.counts = IngestCounts{};
+  p.reply.counts.rows = static_cast<long>(p.job.rows.size());
+  if (!store_.RollbackToSavepoint()) Fail("store: rollback: " + store_.error());
+  Rewind(p);
+}
+
+bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched,
+                      bool& store_failed) {
+  auto problem = [&](const char* field, std::string message) {
+    ++p.reply.problem_count;
+    if (p.reply.problems.size() < kMaxProblems)
+      p.reply.problems.push_back({row.line, field, std::move(message)});
+    return false;
+  };
+  auto store_error = [&]() {
+    Fail("store: " + store_.error());
+    store_failed = true;
+    return false;
+  };
+  if (row.series.empty()) return problem("series", "the series key is empty");
+  std::size_t index;
+  auto it = index_.find(row.series);
+  if (it == index_.end()) {
+    const config::Policy* policy = config::FindPolicy(*settings_, row.series, row.labels);
+    if (!policy) return problem("series", "no policy matches the series '" + row.series + "'");
+    Series s;
+    s.key = row.series;
+    s.labels = LabelsJson(row.labels);
+    s.policy = policy;
+    s.state = monitors::NewSeriesState(policy->spec);
+    if (!store_.InsertSeries(s.key, policy->name, s.labels, s.state, s.id)) return store_error();
+    index = series_.size();
+    index_.emplace(s.key, index);
+    series_.push_back(std::move(s));
+    touched.push_back(1);
+    ++p.reply.counts.new_series;
+  } else {
+    index = it->second;
+    if (index < touched.size() && !touched[index]) {
+      const Series& s = series_[index];
+      p.undo.push_back({index, s.state, s.retained, s.oldest});
+      touched[index] = 1;
+    }
+  }
+  Series& s = series_[index];
+  const config::Policy& policy = *s.policy;
+  const monitors::PeriodParse period = monitors::ParsePeriod(policy.period, row.period);
+  if (!period.ok()) return problem("period", period.error);
+  if (!std::isfinite(row.value)) return problem("value", "the value is not a finite number");
+
+  if (!s.state.seen || period.ordinal > s.state.last_period) {
+    monitors::StepResult r;
+    std::string why;
+    const monitors::StepStatus st =
+        monitors::Step(policy.spec, s.state, period.ordinal, row.value, r, &why);
+    if (st != monitors::StepStatus::kOk)
+      return problem(st == monitors::StepStatus::kBadValue ? "value" : "period", why);
+    if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
+    if (s.retained == 0) s.oldest = period.ordinal;
+    ++s.retained;
+    ++p.reply.counts.applied;
+    p.reply.counts.filled += r.filled;
+    p.reply.counts.alerts_opened += __builtin_popcountll(r.opened);
+    p.reply.counts.alerts_cleared += __builtin_popcountll(r.cleared);
+    return true;
+  }
+  bool found = false;
+  double stored = 0.0;
+  if (!store_.GetActual(s.id, period.ordinal, found, stored)) return store_error();
+  if (found && stored == row.value) {
+    ++p.reply.counts.unchanged;
+    return true;
+  }
+  if (s.retained == 0 || period.ordinal < s.oldest)
+    return problem("period", "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
+                                 " is older than the retained history of '" + s.key +
+                                 "' (oldest kept: " +
+                                 (s.retained ? monitors::FormatPeriod(policy.period, s.oldest)
+                                             : std::string("none")) +
+                                 "); raise the policy's history to restate it");
+  if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
+  if (!found) ++s.retained;
+  monitors::SeriesState recomputed;
+  if (!Recompute(s, nullptr, recomputed)) {
+    if (!failure().empty()) {
+      store_failed = true;
+      return false;
+    }
+    return problem("value", "the restated history cannot be recomputed");
+  }
+  const std::uint64_t before = s.state.active;
+  s.state = std::move(recomputed);
+  p.reply.counts.alerts_opened += __builtin_popcountll(s.state.active & ~before);
+  p.reply.counts.alerts_cleared += __builtin_popcountll(before & ~s.state.active);
+  ++p.reply.counts.restated;
+  return true;
+}
+
+bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out) {
+  monitors::SeriesState state;
+  std::vector<StoredActual> actuals;
+  std::vector<Adjustment> adjustments;
+  if (!store_.LoadCheckpoint(s.id, state) ||
+      !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) ||
+      !store_.Adjustments(s.id, adjustments)) {
+    Fail("store: " + store_.error());
+    return false;
+  }
+  FitRules(state, *s.policy);
+  const monitors::PolicySpec& spec = s.policy->spec;
+  std::size_t next_adj = 0;
+  for (const StoredActual& a : actuals) {
+    monitors::StepResult r;
+    if (rows && state.seen) {
+      // report the gap periods this step will fill, as the chart shows them
+      for (std::int64_t g = state.last_period + 1; g < a.period; ++g)
+        rows->push_back({g, 0.0, false, {}});
+    }
+    if (monitors::Step(spec, state, a.period, a.value, r) != monitors::StepStatus::kOk)
+      return false;
+    if (rows) rows->push_back({a.period, a.value, true, r});
+    while (next_adj < adjustments.size() && adjustments[next_adj].period <= a.period) {
+      if (adjustments[next_adj].period == a.period) {
+        state.model.level = adjustments[next_adj].level;
+        state.stats.smoothed_error = 0.0;
+        state.stats.cusum = 0.0;
+      }
+      ++next_adj;
+    }
+  }
+  out = std::move(state);
+  return true;
+}
+
+bool Engine::Trim(Series& s) {
+  const std::int64_t keep = s.policy->history;
+  const std::int64_t slack = std::max<std::int64_t>(8, keep / 4);
+  if (s.retained <= keep + slack) return true;
+  monitors::SeriesState checkpoint;
+  std::vector<StoredActual> actuals;
+  std::vector<Adjustment> adjustments;
+  if (!store_.LoadCheckpoint(s.id, checkpoint) ||
+      !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) || !store_.Adjustments(s.id, adjustments))
+    return false;
+  FitRules(checkpoint, *s.policy);
+  const std::size_t drop = actuals.size() - static_cast<std::size_t>(keep);
+  std::size_t next_adj = 0;
+  monitors::StepResult r;
+  for (std::size_t i = 0; i < drop; ++i) {
+    if (monitors::Step(s.policy->spec, checkpoint, actuals[i].period, actuals[i].value, r) !=
+        monitors::StepStatus::kOk) {
+      Fail("series '" + s.key + "': its retained actuals cannot be replayed into the checkpoint");
+      return false;
+    }
+    while (next_adj < adjustments.size() && adjustments[next_adj].period <= actuals[i].period) {
+      if (adjustments[next_adj].period == actuals[i].period) {
+        checkpoint.model.level = adjustments[next_adj].level;
+        checkpoint.stats.smoothed_error = 0.0;
+        checkpoint.stats.cusum = 0.0;
+      }
+      ++next_adj;
+    }
+  }
+  if (!store_.UpdateCheckpoint(s.id, checkpoint) || !store_.DropBefore(s.id, actuals[drop].period))
+    return false;
+  s.retained = keep;
+  s.oldest = actuals[drop].period;
+  return true;
+}
+
+bool Engine::IsStale(const Series& s) const {
+  if (!s.state.seen) return false;
+  std::int64_t days = clock_() / 86400000;
+  if (clock_() < 0) days -= 1;
+  int y, m, d;
+  monitors::CivilFromDays(days, y, m, d);
+  char today[16];
+  std::snprintf(today, sizeof today, "%04d-%02d-%02d", y, m, d);
+  const monitors::PeriodParse now = monitors::ParsePeriod(s.policy->period, today);
+  if (!now.ok()) return false;
+  // Periods that have ended since the last actual without one of their own.
+  return now.ordinal - s.state.last_period - 1 >= s.policy->stale_after;
+}
+
+SeriesView Engine::View(const Series& s) const {
+  return SeriesView{s.key, s.policy->name, s.labels, &s.state, s.policy, IsStale(s)};
+}
+
+void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {
+  for (const Series& s : series_) each(View(s));
+}
+
+std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {
+  auto it = index_.find(key);
+  if (it == index_.end()) return std::nullopt;
+  return View(series_[it->second]);
+}
+
+bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,
+                     std::vector<HistoryRow>& rows, std::string& error) {
+  auto it = index_.find(key);
+  if (it == index_.end()) {
+    error = "no series '" + key + "'";
+    return false;
+  }
+  std::vector<HistoryRow> all;
+  monitors::SeriesState ignored;
+  if (!Recompute(series_[it->second], &all, ignored)) {
+    error = failure().empty() ? "the history cannot be recomputed" : failure();
+    return false;
+  }
+  rows.clear();
+  for (HistoryRow& r : all)
+    if (r.period >= from && r.period <= to) rows.push_back(std::move(r));
+  return true;
+}
+
+bool Engine::Reset(const std::string& key, const std::string& how, double value, int k,
+                   const std::string& who, const std::string& note, double& new_level,
+                   bool& not_found, std::string& error) {
+  not_found = false;
+  auto it = index_.find(key);
+  if (it == index_.end()) {
+    not_found = true;
+    error = "no series '" + key + "'";
+    return false;
+  }
+  Series& s = series_[it->second];
+  if (!s.state.started || !s.state.seen) {
+    error = "the series has no forecast yet; nothing to re-level";
+    return false;
+  }
+  if (monitors::IsIntermittent(s.policy->spec.method)) {
+    error = "croston and sba series cannot be re-leveled";
+    return false;
+  }
+  if (!failure().empty()) {
+    error = failure();
+    return false;
+  }
+  if (how == "value") {
+    new_level = value;
+  } else {
+    std::vector<StoredActual> actuals;
+    if (!store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals)) {
+      Fail("store: " + store_.error());
+      error = failure();
+      return false;
+    }
+    const std::size_t n = how == "last" ? 1 : static_cast<std::size_t>(k);
+    if (actuals.size() < n) {
+      error = "only " + std::to_string(actuals.size()) + " retained actuals, " + std::to_string(n) +
+              " needed";
+      return false;
+    }
+    double sum = 0;
+    for (std::size_t i = actuals.size() - n; i < actuals.size(); ++i) sum += actuals[i].value;
+    new_level = sum / static_cast<double>(n);
+  }
+  if (!std::isfinite(new_level)) {
+    error = "the new level is not a finite number";
+    return false;
+  }
+  const Adjustment adj{s.state.last_period, new_level};
+  const std::string detail = "level " + std::to_string(new_level) + " (" + how + ")" +
+                             (note.empty() ? "" : ": " + note);
+  if (!store_.Begin() || !store_.PutAdjustment(s.id, adj) ||
+      !store_.Audit(clock_(), who, "reset", s.key, detail)) {
+    Fail("store: " + store_.error());
+    store_.Rollback();
+    error = failure();
+    return false;
+  }
+  monitors::SeriesState next = s.state;
+  next.model.level = new_level;
+  next.stats.smoothed_error = 0.0;
+  next.stats.cusum = 0.0;
+  if (!store_.UpdateState(s.id, next) || !store_.Commit()) {
+    Fail("store: " + store_.error());
+    store_.Rollback();
+    error = failure();
+    return false;
+  }
+  s.state = std::move(next);
+  return true;
+}
+
+std::int64_t Engine::LastArrival(const std::string& policy) const {
+  auto it = last_arrival_.find(policy);
+  return it == last_arrival_.end() ? 0 : it->second;
+}
+
+}  // namespace forewarden

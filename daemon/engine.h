@@ -1,0 +1,186 @@
+// The engine: one thread owns every series' state and the store. Other threads hand it
+// batches of actuals (Submit) and read jobs (Post); it applies each batch all or nothing
+// inside one SQLite transaction shared by the batches waiting together (group commit), and
+// only after the commit does it call the batch's reply. A failure of the store is sticky:
+// the reason is kept, every later batch is refused with it, and readiness reports it.
+//
+// Per-series semantics of an actual (README, "How actuals are applied"):
+//   * a period after the series' last: a normal update (gap periods follow the policy's rule);
+//   * the same period with the same value: unchanged;
+//   * the same or an earlier period with another value, or a period that was filled or skipped:
+//     a restatement; the series is recomputed from its checkpoint over the retained actuals;
+//   * a period older than the retained history: a problem, nothing applied.
+#pragma once
+
+#include <atomic>
+#include <condition_variable>
+#include <cstdint>
+#include <deque>
+#include <functional>
+#include <memory>
+#include <mutex>
+#include <optional>
+#include <string>
+#include <thread>
+#include <unordered_map>
+#include <utility>
+#include <vector>
+
+#include "config/settings.h"
+#include "daemon/store.h"
+
+namespace forewarden {
+
+using Labels = std::vector<std::pair<std::string, std::string>>;
+
+// One actual as received, before it is matched to a policy.
+struct IngestRow {
+  long line = 0;  // line in the request body or file (1 = header for CSV)
+  std::string series;
+  std::string period;
+  double value = 0.0;
+  Labels labels;
+};
+
+// A problem with one row: the line, the field and what is wrong.
+struct RowProblem {
+  long line = 0;
+  std::string field;
+  std::string message;
+};
+
+struct IngestCounts {
+  long rows = 0;
+  long applied = 0;
+  long unchanged = 0;
+  long restated = 0;
+  long filled = 0;           // gap periods filled with zero or skipped
+  long new_series = 0;
+  long alerts_opened = 0;    // rules that started holding
+  long alerts_cleared = 0;   // rules that stopped holding
+};
+
+struct IngestReply {
+  enum class Status { kOk, kRejected, kUnavailable };
+  Status status = Status::kOk;
+  IngestCounts counts;
+  std::vector<RowProblem> problems;  // kRejected: the first 100
+  long problem_count = 0;
+  std::string error;                 // kUnavailable: why
+};
+
+// One series as the read API sees it.
+struct SeriesView {
+  std::string key;
+  std::string policy;
+  std::string labels;  // JSON object text
+  const monitors::SeriesState* state = nullptr;
+  const config::Policy* spec = nullptr;
+  bool stale = false;
+};
+
+// One retained period of a series, recomputed with the engine's own step.
+struct HistoryRow {
+  std::int64_t period = 0;
+  double actual = 0.0;
+  bool observed = true;  // false: filled by the gap rule
+  monitors::StepResult result;
+};
+
+class Engine {
+ public:
+  using Clock = std::function<std::int64_t()>;  // milliseconds since the Unix epoch
+
+  Engine(std::shared_ptr<const config::Settings> settings, Clock clock);
+  ~Engine();
+
+  // Opens the store under the data folder, loads every series, starts the thread.
+  bool Start(std::string& error);
+  // Finishes every queued job, then stops the thread. Idempotent.
+  void Stop();
+
+  // Thread-safe. Queues a batch; false (and no call of `done`) when the queue is full.
+  // `done` runs on the engine thread after the commit (or the rejection).
+  bool Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)> done);
+  // Thread-safe. Runs `job` on the engine thread, between batches; false when the queue is full.
+  bool Post(std::function<void()> job);
+  // Thread-safe. Replaces the settings (already validated) between batches.
+  bool Reload(std::shared_ptr<const config::Settings> settings);
+
+  // Thread-safe: the sticky failure ("" when healthy), queue depth.
+  std::string failure() const;
+  std::size_t queue_depth() const;
+
+  // ---- Engine thread only (inside Post jobs) ----
+  const config::Settings& settings() const { return *settings_; }
+  std::size_t series_count() const { return series_.size(); }
+  // Every series, in creation order.
+  void ForEachSeries(const std::function<void(const SeriesView&)>& each) const;
+  std::optional<SeriesView> FindSeries(const std::string& key) const;
+  // Recomputed retained history of a series within [from, to].
+  bool History(const std::string& key, std::int64_t from, std::int64_t to,
+               std::vector<HistoryRow>& rows, std::string& error);
+  // Re-levels a series; `how` is "value", "last" or "mean"; `k` periods for "mean".
+  // On success the audit log records who and the note; returns false with `error` otherwise
+  // (`not_found` set when there is no such series).
+  bool Reset(const std::string& key, const std::string& how, double value, int k,
+             const std::string& who, const std::string& note, double& new_level,
+             bool& not_found, std::string& error);
+  // Milliseconds since the epoch of the last committed actual per policy (0 = none yet).
+  std::int64_t LastArrival(const std::string& policy) const;
+  std::int64_t now_ms() const { return clock_(); }
+
+ private:
+  struct Series {
+    std::int64_t id = 0;
+    std::string key;
+    std::string labels;
+    const config::Policy* policy = nullptr;
+    monitors::SeriesState state;
+    std::int64_t retained = 0;
+    std::int64_t oldest = 0;
+  };
+  struct Undo {
+    std::size_t index;
+    monitors::SeriesState state;
+    std::int64_t retained, oldest;
+  };
+  struct Job {
+    std::vector<IngestRow> rows;
+    std::function<void(IngestReply)> done;
+    std::function<void()> read;
+    std::shared_ptr<const config::Settings> reload;
+  };
+  struct Pending {
+    Job job;
+    IngestReply reply;
+    std::vector<Undo> undo;
+    std::size_t series_before = 0;
+  };
+
+  void Run();
+  void ApplyBatch(Pending& p);
+  bool ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched, bool& store_failed);
+  bool Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out);
+  bool Trim(Series& s);
+  void Rewind(Pending& p);
+  void Fail(const std::string& why);
+  bool IsStale(const Series& s) const;
+  SeriesView View(const Series& s) const;
+
+  std::shared_ptr<const config::Settings> settings_;
+  Clock clock_;
+  Store store_;
+  std::vector<Series> series_;
+  std::unordered_map<std::string, std::size_t> index_;
+  std::unordered_map<std::string, std::int64_t> last_arrival_;
+
+  mutable std::mutex mu_;
+  std::condition_variable wake_;
+  std::deque<Job> queue_;
+  bool stopping_ = false;
+  std::string failure_;
+  std::thread thread_;
+};
+
+}  // namespace forewarden

@@ -1,0 +1,30 @@
+// Parsing a batch of actuals from a request body or a dropped file, before the engine sees it.
+//   CSV (text/csv): header with series, period and value (any order); every other column is
+//     a label of the series (e.g. `channel`). RFC 4180 quoting.
+//   NDJSON (application/x-ndjson): one object a line,
+//     {"series": "...", "period": "2026-03-02", "value": 12, "labels": {"channel": "store"}}
+// Problems name the line (1-based, as in the body) and the field; parsing goes on past a bad
+// row so one reply lists up to 100 of them. Pure functions.
+#pragma once
+
+#include <string_view>
+#include <vector>
+
+#include "daemon/engine.h"
+
+namespace forewarden {
+
+struct ParsedBatch {
+  std::vector<IngestRow> rows;
+  std::vector<RowProblem> problems;  // the first 100
+  long problem_count = 0;
+  bool too_many_rows = false;        // more than max_rows: parsing stopped
+};
+
+ParsedBatch ParseCsvBatch(std::string_view body, long max_rows);
+ParsedBatch ParseNdjsonBatch(std::string_view body, long max_rows);
+
+// Shared value check: a finite number in plain decimal or exponent notation.
+bool ParseNumber(std::string_view text, double& out);
+
+}  // namespace forewarden
