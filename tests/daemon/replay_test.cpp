@@ -141,7 +141,7 @@ TEST_CASE("replay rejects series no policy takes and settings that do not load",
 
 TEST_CASE("extra columns are labels that policies can match on", "[integration]") {
   TempDir dir;
-  Run r = Replay(dir, "series,channel,period,value\na,web,2026-01-05,1\nb,store,2026-01-05,2\n",
+  Run r = Replay(dir, "series,channel,period,value\na,web,2026-01-07,1\nb,store,2026-01-07,2\n",
                  "policies:\n"
                  "  - {name: web, match: {key: '*', labels: {channel: web}}, period: day}\n"
                  "  - {name: rest, match: '*', period: week}\n");
