@@ -7,6 +7,7 @@
 
 #include "config/load.h"
 #include "daemon/replay.h"
+#include "daemon/serve.h"
 #include "daemon/simulate.h"
 #include "daemon/text_out.h"
 
@@ -20,6 +21,9 @@ commands:
         Run an actuals CSV (header series,period,value) through the monitoring engine and
         write one row per actual with forecast, error, signals, interval and alerts.
         "-" reads standard input / writes standard output (the default output).
+  serve --config FILE [--listen HOST:PORT] [--data DIR]
+        Run the service: HTTP API (default 127.0.0.1:8700), durable store in the data
+        folder, optional drop folder. SIGHUP reloads the settings; SIGTERM stops gracefully.
   check-config FILE
         Validate a settings file: print every problem, or a summary of the policies.
   simulate [--series N] [--periods T] [--seed S] [--period day|week|month]
@@ -210,6 +214,15 @@ int RunCommand(const std::vector<std::string>& args, std::ostream& out, std::ost
   const std::string& cmd = args[0];
   if (cmd == "replay") return Replay(args, err);
   if (cmd == "check-config") return CheckConfig(args, out, err);
+  if (cmd == "serve") {
+    std::map<std::string, std::string> flags;
+    if (!ParseFlags(args, 1, {"config", "listen", "data"}, flags, err)) return 2;
+    if (!flags.count("config")) {
+      err << "usage: forewarden serve --config FILE [--listen HOST:PORT] [--data DIR]\n";
+      return 2;
+    }
+    return RunServe({flags["config"], flags["listen"], flags["data"]}, out, err);
+  }
   if (cmd == "simulate") return Simulate(args, err);
   if (cmd == "version" || cmd == "--version") {
     out << "forewarden " << FOREWARDEN_VERSION << '\n';

@@ -5,6 +5,7 @@
 #include <nlohmann/json.hpp>
 
 #include "daemon/csv.h"
+#include "monitors/period.h"
 
 namespace forewarden {
 namespace {
@@ -14,6 +15,19 @@ constexpr std::size_t kMaxProblems = 100;
 void Add(ParsedBatch& b, long line, const char* field, std::string message) {
   ++b.problem_count;
   if (b.problems.size() < kMaxProblems) b.problems.push_back({line, field, std::move(message)});
+}
+
+// A period must read as a date, an ISO week or a month whatever the policy (which is only
+// known to the engine): catches impossible dates early, so one reply lists every problem.
+bool CheckPeriod(ParsedBatch& b, long line, const std::string& text) {
+  using monitors::PeriodKind;
+  const PeriodKind kind = text.size() == 8 && (text[5] == 'W' || text[5] == 'w') ? PeriodKind::kWeek
+                          : text.size() == 7                                     ? PeriodKind::kMonth
+                                                                                 : PeriodKind::kDay;
+  const monitors::PeriodParse p = monitors::ParsePeriod(kind, text);
+  if (p.ok()) return true;
+  Add(b, line, "period", p.error);
+  return false;
 }
 
 }  // namespace
@@ -77,6 +91,8 @@ ParsedBatch ParseCsvBatch(std::string_view body, long max_rows) {
     if (row.period.empty()) {
       Add(b, line, "period", "the period is empty");
       ok = false;
+    } else if (!CheckPeriod(b, line, row.period)) {
+      ok = false;
     }
     if (!ParseNumber(fields[c_value], row.value)) {
       Add(b, line, "value", "'" + std::string(fields[c_value]) + "' is not a finite number");
@@ -135,7 +151,11 @@ ParsedBatch ParseNdjsonBatch(std::string_view body, long max_rows) {
       return true;
     };
     ok &= text_field("series", row.series);
-    ok &= text_field("period", row.period);
+    if (text_field("period", row.period)) {
+      ok &= CheckPeriod(b, line, row.period);
+    } else {
+      ok = false;
+    }
     auto v = j.find("value");
     if (v == j.end()) {
       Add(b, line, "value", "missing");

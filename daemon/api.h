@@ -1,0 +1,56 @@
+// The HTTP API of `forewarden serve` (shapes documented in the README, "HTTP API"):
+//   POST /v1/actuals                      CSV or NDJSON batch, all or nothing
+//   GET  /v1/series                       list: ?policy= &label=name:value &status= &sort= &limit= &offset=
+//   GET  /v1/series/{key}                 next forecast, interval, statistics, signals, alerts
+//   GET  /v1/series/{key}/history         ?from=&to= (ISO dates): what a chart needs
+//   POST /v1/series/{key}/reset           {"to": "value"|"last"|"mean", "value", "k", "who", "note"}
+//   GET  /v1/policies
+//   GET  /healthz, /readyz
+// Write endpoints need "Authorization: Bearer TOKEN" when a token is configured (compared in
+// constant time, never logged). Reads run as jobs on the engine thread.
+#pragma once
+
+#include <memory>
+#include <mutex>
+#include <string>
+
+#include "config/settings.h"
+#include "daemon/engine.h"
+#include "daemon/http_server.h"
+
+namespace forewarden {
+
+struct ApiCounters {
+  std::atomic<long> rejected_unauthorized{0};
+  std::atomic<long> rejected_media_type{0};
+  std::atomic<long> rejected_bad_input{0};
+  std::atomic<long> rejected_too_many_rows{0};
+  std::atomic<long> rejected_queue_full{0};
+  std::atomic<long> rejected_unavailable{0};
+};
+
+class Api {
+ public:
+  Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token);
+  void Handle(HttpRequest&& request, Respond respond);
+  // Thread-safe: settings and token after a reload.
+  void Update(std::shared_ptr<const config::Settings> settings, std::string token);
+  const ApiCounters& counters() const { return counters_; }
+
+ private:
+  void Ingest(HttpRequest&& request, Respond respond);
+  void Reset(const std::string& key, HttpRequest&& request, Respond respond);
+  bool Authorized(const HttpRequest& request);
+  std::shared_ptr<const config::Settings> settings() const;
+
+  Engine& engine_;
+  mutable std::mutex mu_;
+  std::shared_ptr<const config::Settings> settings_;
+  std::string token_;
+  ApiCounters counters_;
+};
+
+// Percent-decoding of a URL path or query component ('+' is a space in queries only).
+std::string UrlDecode(std::string_view text, bool query);
+
+}  // namespace forewarden

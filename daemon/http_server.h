@@ -1,0 +1,78 @@
+// The HTTP/1.1 server (Boost.Beast lives only in http_server.cpp and http_client.cpp; this
+// header includes no Boost). One session per connection, a fresh parser per request with an
+// explicit body limit, a deadline on every read and write, keep-alive. The handler may answer
+// from any thread, exactly once. Graceful shutdown: stop accepting, close idle connections,
+// let requests in flight get their answers, then stop after at most the grace period.
+#pragma once
+
+#include <atomic>
+#include <chrono>
+#include <cstdint>
+#include <functional>
+#include <memory>
+#include <string>
+#include <utility>
+#include <vector>
+
+namespace forewarden {
+
+struct HttpRequest {
+  std::string method;
+  std::string target;  // path and query, as sent
+  std::string content_type;
+  std::string authorization;
+  std::string body;
+};
+
+struct HttpResponse {
+  int status = 200;
+  std::string content_type = "application/json";
+  std::string body;
+  std::vector<std::pair<std::string, std::string>> headers;
+};
+
+using Respond = std::function<void(HttpResponse)>;
+using Handler = std::function<void(HttpRequest&&, Respond)>;
+
+struct HttpOptions {
+  std::string host = "127.0.0.1";
+  std::uint16_t port = 0;  // 0: any free port (see HttpServer::port())
+  std::size_t max_body_bytes = 16 << 20;
+  std::size_t max_connections = 256;
+  std::chrono::seconds header_timeout{10};  // a new connection must deliver its request within
+  std::chrono::seconds idle_timeout{60};    // a kept-alive connection may wait this long
+};
+
+// Counted rejections (read by /metrics later; all monotonic).
+struct HttpCounters {
+  std::atomic<long> requests{0};
+  std::atomic<long> body_too_large{0};
+  std::atomic<long> too_many_connections{0};
+  std::atomic<long> timeouts{0};
+  std::atomic<long> malformed{0};
+  std::atomic<long> connections{0};  // open now
+};
+
+class HttpServer {
+ public:
+  HttpServer(HttpOptions options, Handler handler);
+  ~HttpServer();
+
+  // Binds and listens; false with a reason (address in use, bad address).
+  bool Start(std::string& error);
+  std::uint16_t port() const;
+  // Calls `on_signal(signo)` on the server thread for SIGINT, SIGTERM and SIGHUP.
+  void OnSignals(std::function<void(int)> on_signal);
+  // Runs the server on the calling thread until Shutdown has completed.
+  void Run();
+  // Thread-safe. Begins a graceful shutdown bounded by `grace`.
+  void Shutdown(std::chrono::seconds grace);
+
+  const HttpCounters& counters() const;
+
+ private:
+  struct Impl;
+  std::shared_ptr<Impl> impl_;
+};
+
+}  // namespace forewarden
