@@ -69,11 +69,34 @@ struct HttpServer::Impl::Session : std::enable_shared_from_this<Session> {
     parser->header_limit(64 * 1024);
     stream.expires_after(first ? server->options.header_timeout : server->options.idle_timeout);
     first = false;
+    http::async_read_header(stream, buffer, *parser,
+                            beast::bind_front_handler(&Session::OnHeader, shared_from_this()));
+  }
+
+  // Once a request's header is in, the request is in flight: a shutdown lets it finish.
+  // "Expect: 100-continue" is answered before the body is read.
+  void OnHeader(beast::error_code ec, std::size_t n) {
+    if (ec) return OnRead(ec, n);
+    busy = true;
+    if (beast::iequals(parser->get()[http::field::expect], "100-continue")) {
+      static const std::string kContinue = "HTTP/1.1 100 Continue\r\n\r\n";
+      net::async_write(stream, net::buffer(kContinue),
+                       [self = shared_from_this()](beast::error_code wec, std::size_t) {
+                         if (wec) return self->Close();
+                         self->ReadBody();
+                       });
+      return;
+    }
+    ReadBody();
+  }
+
+  void ReadBody() {
     http::async_read(stream, buffer, *parser,
                      beast::bind_front_handler(&Session::OnRead, shared_from_this()));
   }
 
   void OnRead(beast::error_code ec, std::size_t) {
+    if (ec) busy = false;
     if (ec == http::error::end_of_stream || ec == net::error::operation_aborted) return Close();
     if (ec == beast::error::timeout) {
       server->counters.timeouts.fetch_add(1);

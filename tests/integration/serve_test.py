@@ -1,0 +1,393 @@
+#!/usr/bin/python3
+"""Integration tests of `forewarden serve`: the real binary on a loopback port, a real HTTP
+client, real SQLite files. Compares what the service holds with `forewarden replay` of the
+same (acknowledged) input.
+
+usage: FOREWARDEN_BINARY=path serve_test.py [TEST_NAME ...]"""
+import datetime
+import os
+import signal
+import socket
+import subprocess
+import sys
+import threading
+import time
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import harness  # noqa: E402
+from harness import Server, close, replay  # noqa: E402
+
+SETTINGS = """
+server: {queue_depth: 64, max_rows_per_batch: 50000, max_body_bytes: 2000000}
+policies:
+  - name: weekly
+    match: "w/*"
+    period: week
+    alpha: 0.3
+    signal_beta: 0.2
+    history: 8
+    rules: [{name: drift, signal: trigg, limit: 0.8}]
+  - name: skipping
+    match: "s/*"
+    period: week
+    method: holt
+    gaps: skip
+    history: 8
+"""
+
+MONDAY = datetime.date(2026, 1, 5)
+
+
+def week(i):
+    return (MONDAY + datetime.timedelta(weeks=i)).isoformat()
+
+
+def feed(keys, weeks, start=0, value=lambda k, t: 10 + (k * 7 + t * 3) % 11):
+    lines = ["series,period,value"]
+    for t in range(start, start + weeks):
+        for k, key in enumerate(keys):
+            lines.append("%s,%s,%s" % (key, week(t), value(k, t)))
+    return "\n".join(lines) + "\n"
+
+
+def history(server, key):
+    status, body, _ = server.request("GET", "/v1/series/" + key + "/history")
+    assert status == 200, (status, body)
+    return body["rows"]
+
+
+def assert_matches_replay(server, key, csv_text):
+    """The retained history the service recomputes equals replay's rows for the same periods."""
+    rows = [r for r in replay(server.config, csv_text, server.dir) if r["series"] == key]
+    by_period = {r["period"]: r for r in rows}
+    got = [h for h in history(server, key) if not h["filled"]]
+    assert got, "no history for " + key
+    for h in got:
+        r = by_period[h["period"]]
+        for field, ours in (("forecast", h["forecast"]), ("error", h["error"]), ("mad", h["mad"]),
+                            ("cusum", h["cusum"]), ("smoothed_error", h["smoothed_error"]),
+                            ("trigg_signal", h["trigg_signal"]), ("alpha", h["alpha"])):
+            assert close(ours, r[field]), (key, h["period"], field, ours, r[field])
+        assert ";".join(h["alerts"]) == r["alerts"], (h, r)
+    return got
+
+
+def test_ingest_then_query():
+    s = Server(SETTINGS)
+    try:
+        text = feed(["w/a", "w/b", "s/c"], 12)
+        status, body, _ = s.post_csv(text)
+        assert status == 200, body
+        assert body["applied"] == 36 and body["new_series"] == 3, body
+        status, body, _ = s.request("GET", "/v1/series?sort=trigg&limit=2")
+        assert status == 200 and body["total"] == 3 and len(body["series"]) == 2, body
+        status, body, _ = s.request("GET", "/v1/series?policy=skipping")
+        assert [x["key"] for x in body["series"]] == ["s/c"], body
+        status, detail, _ = s.request("GET", "/v1/series/w/a")
+        assert status == 200 and detail["last_period"] == week(11) and detail["next_period"] == week(12)
+        assert detail["lower"] < detail["forecast"] < detail["upper"], detail
+        status, body, _ = s.request("GET", "/v1/policies")
+        assert [p["series"] for p in body["policies"]] == [2, 1], body
+        for key in ("w/a", "w/b", "s/c"):
+            got = assert_matches_replay(s, key, text)
+            assert len(got) == 12  # history 8 + lazy trimming slack
+        status, body, _ = s.request("GET", "/v1/series/w/a/history?from=%s&to=%s" % (week(10), week(11)))
+        assert [r["period"] for r in body["rows"]] == [week(10), week(11)], body
+    finally:
+        s.stop()
+
+
+def test_duplicates_are_unchanged():
+    s = Server(SETTINGS)
+    try:
+        text = feed(["w/a"], 5)
+        assert s.post_csv(text)[1]["applied"] == 5
+        status, body, _ = s.post_csv(text)
+        assert status == 200 and body["unchanged"] == 5 and body["applied"] == 0, body
+        ndjson = '{"series":"w/a","period":"%s","value":%s}\n' % (week(4), 10 + (0 + 4 * 3) % 11)
+        status, body, _ = s.request("POST", "/v1/actuals", ndjson, "application/x-ndjson")
+        assert status == 200 and body["unchanged"] == 1, body
+    finally:
+        s.stop()
+
+
+def test_restatement_equals_replay_of_corrected_history():
+    s = Server(SETTINGS)
+    try:
+        text = feed(["w/a", "w/b"], 10)
+        assert s.post_csv(text)[0] == 200
+        fix = "series,period,value\nw/a,%s,55\n" % week(7)
+        status, body, _ = s.post_csv(fix)
+        assert status == 200 and body["restated"] == 1, body
+        corrected = text.replace("w/a,%s," % week(7), "w/a,%s,55#" % week(7))
+        corrected = "\n".join(l.split("#")[0] if "#" not in l else "w/a,%s,55" % week(7)
+                              for l in corrected.splitlines()) + "\n"
+        assert_matches_replay(s, "w/a", corrected)
+        # older than the retained history (8 + slack): a clear problem, nothing applied
+        s.post_csv(feed(["w/a"], 20, start=10))
+        status, body, _ = s.post_csv("series,period,value\nw/a,%s,1\n" % week(0))
+        assert status == 400 and body["problems"][0]["field"] == "period", body
+        assert "older than the retained history" in body["problems"][0]["message"]
+    finally:
+        s.stop()
+
+
+def test_gap_rules_match_replay():
+    s = Server(SETTINGS)
+    try:
+        text = "series,period,value\n" + "".join(
+            "%s,%s,%d\n" % (k, week(t), 10 + t) for t in (0, 1, 4, 5, 9) for k in ("w/z", "s/k"))
+        status, body, _ = s.post_csv(text)
+        assert status == 200 and body["gap_periods_filled"] == 10, body
+        assert_matches_replay(s, "w/z", text)
+        assert_matches_replay(s, "s/k", text)
+        filled = [h["period"] for h in history(s, "w/z") if h["filled"]]
+        assert filled == [week(2), week(3), week(6), week(7), week(8)], filled
+        late = "series,period,value\nw/z,%s,7\ns/k,%s,7\n" % (week(2), week(2))
+        status, body, _ = s.post_csv(late)
+        assert body["restated"] == 2, body
+        full = text + late.split("\n", 1)[1]
+        lines = full.splitlines()
+        ordered = [lines[0]] + sorted(lines[1:], key=lambda l: (l.split(",")[0], l.split(",")[1]))
+        assert_matches_replay(s, "w/z", "\n".join(ordered) + "\n")
+        assert_matches_replay(s, "s/k", "\n".join(ordered) + "\n")
+    finally:
+        s.stop()
+
+
+def wait_for(path):
+    end = time.monotonic() + harness.DEADLINE
+    while time.monotonic() < end:
+        if os.path.exists(path):
+            return
+        time.sleep(0.02)  # polling for a file, not synchronising on time
+    raise AssertionError("never appeared: " + path)
+
+
+def test_drop_folder():
+    import tempfile
+    work = tempfile.mkdtemp(prefix="forewarden-it-")
+    incoming = os.path.join(work, "incoming")
+    os.makedirs(incoming)
+    settings = SETTINGS.replace("server: {", "server: {folder: '%s', folder_poll_ms: 20, " % incoming)
+    good = feed(["w/a"], 6)
+    # a file left behind by a crash after its commit is processed again safely
+    with open(os.path.join(incoming, "0-left-over.csv"), "w") as f:
+        f.write(good)
+    s = Server(settings, workdir=work)
+    try:
+        wait_for(os.path.join(incoming, "done", "0-left-over.csv"))
+        with open(os.path.join(incoming, ".1-good.csv.tmp"), "w") as f:
+            f.write(good)
+        os.rename(os.path.join(incoming, ".1-good.csv.tmp"), os.path.join(incoming, "1-good.csv"))
+        wait_for(os.path.join(incoming, "done", "1-good.csv"))
+        with open(os.path.join(incoming, "2-bad.csv"), "w") as f:
+            f.write("series,period,value\nw/b,2026-02-30,1\nw/b,2026-03-02,x\n")
+        wait_for(os.path.join(incoming, "rejected", "2-bad.csv"))
+        with open(os.path.join(incoming, "rejected", "2-bad.csv.problems")) as f:
+            report = f.read()
+        assert "line 2, field period: '2026-02-30' is not a date" in report, report
+        assert "line 3, field value" in report, report
+        status, body, _ = s.request("GET", "/v1/series/w/b")
+        assert status == 404
+        assert_matches_replay(s, "w/a", good)
+    finally:
+        s.stop()
+
+
+def test_kill9_during_ingest_loses_nothing_acknowledged():
+    s = Server(SETTINGS)
+    keys = ["w/k%d" % i for i in range(40)]
+    acked, in_flight = [], []
+    stop = threading.Event()
+
+    def pusher():
+        t = 0
+        while not stop.is_set() and t < 400:
+            text = feed(keys, 1, start=t)
+            in_flight[:] = [text]
+            try:
+                status, body, _ = s.request("POST", "/v1/actuals", text, "text/csv")
+            except Exception:
+                return
+            if status == 200:
+                acked.append(text)
+                in_flight[:] = []
+            t += 1
+
+    th = threading.Thread(target=pusher)
+    th.start()
+    end = time.monotonic() + harness.DEADLINE
+    while len(acked) < 25 and time.monotonic() < end:
+        time.sleep(0.005)  # waiting for progress, not for a state to settle
+    s.kill9()
+    stop.set()
+    th.join()
+    assert len(acked) >= 25, len(acked)
+    s.start()
+    try:
+        ack_text = "series,period,value\n" + "".join(a.split("\n", 1)[1] for a in acked)
+        both = ack_text + "".join(a.split("\n", 1)[1] for a in in_flight)
+        for key in keys[:5]:
+            hist = history(s, key)
+            last = hist[-1]["period"]
+            expect = both if last == week(len(acked)) and in_flight else ack_text
+            assert last == week(len(acked) - 1) or (in_flight and last == week(len(acked))), last
+            assert_matches_replay(s, key, expect)
+    finally:
+        s.stop()
+
+
+def test_sigterm_finishes_a_request_in_flight():
+    s = Server(SETTINGS)
+    body = feed(["w/t"], 4).encode()
+    sock = socket.create_connection(("127.0.0.1", s.port), timeout=harness.DEADLINE)
+    sock.sendall(b"POST /v1/actuals HTTP/1.1\r\nHost: x\r\nContent-Type: text/csv\r\n"
+                 b"Expect: 100-continue\r\nContent-Length: %d\r\n\r\n" % len(body))
+    first = sock.recv(4096)
+    assert first.startswith(b"HTTP/1.1 100"), first  # the server holds the request now
+    s.signal(signal.SIGTERM)
+    s.wait_stderr("stopping")
+    sock.sendall(body)
+    reply = b""
+    while b"\r\n\r\n" not in reply or not reply.rstrip().endswith(b"}"):
+        chunk = sock.recv(4096)
+        if not chunk:
+            break
+        reply += chunk
+    assert reply.startswith(b"HTTP/1.1 200"), reply
+    assert s.proc.wait(timeout=harness.DEADLINE) == 0
+    s.proc = None
+    s.start()
+    try:
+        assert_matches_replay(s, "w/t", feed(["w/t"], 4))
+    finally:
+        s.stop()
+
+
+def test_sighup_bad_config_keeps_old_then_good_applies():
+    s = Server(SETTINGS)
+    try:
+        assert s.post_csv(feed(["w/a"], 3))[0] == 200
+        with open(s.config, "w") as f:
+            f.write("policies:\n  - {name: weekly, match: '*', period: fortnight}\n")
+        s.signal(signal.SIGHUP)
+        s.wait_stderr("reload refused")
+        status, body, _ = s.request("GET", "/v1/policies")
+        assert [p["name"] for p in body["policies"]] == ["weekly", "skipping"], body
+        with open(s.config, "w") as f:
+            f.write(SETTINGS.replace("history: 8\n    rules", "history: 8\n    warmup: 1\n    rules")
+                    + "  - {name: extra, match: 'x/*', period: day}\n")
+        s.signal(signal.SIGHUP)
+        s.wait_stderr("reloaded")
+        status, body, _ = s.request("GET", "/v1/policies")
+        assert [p["name"] for p in body["policies"]] == ["weekly", "skipping", "extra"], body
+        assert s.post_csv("series,period,value\nx/1,2026-01-07,3\n")[0] == 200
+    finally:
+        s.stop()
+
+
+def test_auth_and_listen_safety():
+    token = "s3cret-token-for-tests-0123"
+    s = Server(SETTINGS.replace("server: {", "server: {token_env: FW_TEST_TOKEN, "),
+               env={"FW_TEST_TOKEN": token})
+    try:
+        text = feed(["w/a"], 2)
+        assert s.post_csv(text)[0] == 401
+        assert s.post_csv(text, token="wrong-token-wrong-token")[0] == 401
+        assert s.post_csv(text, token=token)[0] == 200
+        assert s.request("GET", "/v1/series/w/a")[0] == 200  # reads need no token
+        status, _, _ = s.request("POST", "/v1/series/w/a/reset", '{"to":"last","who":"x"}', "application/json")
+        assert status == 401
+    finally:
+        s.stop()
+    import tempfile
+    cfg = os.path.join(tempfile.mkdtemp(prefix="forewarden-it-"), "s.yaml")
+    with open(cfg, "w") as f:
+        f.write(SETTINGS)
+    r = subprocess.run([harness.BINARY, "serve", "--config", cfg, "--listen", "0.0.0.0:0",
+                        "--data", os.path.dirname(cfg) + "/d"], capture_output=True, text=True,
+                       timeout=harness.DEADLINE)
+    assert r.returncode == 2 and "refusing to listen on 0.0.0.0 without a bearer token" in r.stderr, r
+
+
+BAD_REQUESTS = [
+    # (method, path, content type, body, status, text that must appear)
+    ("POST", "/v1/actuals", "text/csv", "", 400, '"field": "header"'),
+    ("POST", "/v1/actuals", "text/csv", "series,value\nw/a,1\n", 400, "no 'period' column"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value,series\n", 400, "appears twice"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-01-05\n", 400, '"field": "row", "line": 2'),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-01-05,abc\n", 400, "'abc' is not a finite number"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-01-05,nan\n", 400, '"field": "value"'),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-01-05,inf\n", 400, '"field": "value"'),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-01-05,1e999\n", 400, '"field": "value"'),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-02-30,1\n", 400, "February 2026 has 28 days"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-13-01,1\n", 400, "the month must be 01-12"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,05/01/2026,1\n", 400, '"field": "period"'),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,,1\n", 400, "the period is empty"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\n,2026-01-05,1\n", 400, "the series key is empty"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nq/nomatch,2026-01-05,1\n", 400, "no policy matches the series 'q/nomatch'"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2025-W53,1\n", 400, "has 52 ISO weeks"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\n\"w/a,2026-01-05,1\n", 400, "quoted field is not closed"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/ok,2026-01-05,1\nw/a,2026-01-05,x\n", 400, '"line": 3'),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/new,2026-01-05,1\nw/new,2025-01-05,2\n", 400, "older than the retained history"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-01-05,1\nw/a,2036-01-07,1\n", 400, "max_gap is 366"),
+    ("POST", "/v1/actuals", "application/x-ndjson", "{not json}\n", 400, '"field": "json"'),
+    ("POST", "/v1/actuals", "application/x-ndjson", '{"series":"w/a","period":"2026-01-05"}\n', 400, '"field": "value", "line": 1, "message": "missing"'),
+    ("POST", "/v1/actuals", "application/x-ndjson", '{"series":"w/a","period":"2026-01-05","value":"7"}\n', 400, "must be a number"),
+    ("POST", "/v1/actuals", "application/x-ndjson", '{"series":7,"period":"2026-01-05","value":7}\n', 400, '"field": "series"'),
+    ("POST", "/v1/actuals", "application/x-ndjson", '{"series":"w/a","period":"2026-01-05","value":1,"colour":"red"}\n', 400, "unknown field 'colour'"),
+    ("POST", "/v1/actuals", "application/x-ndjson", '\n{"series":"w/a","period":"2026-01-05","value":1,"labels":{"a":1}}\n', 400, '"line": 2'),
+    ("POST", "/v1/actuals", "application/json", "[]", 415, "text/csv"),
+    ("POST", "/v1/actuals", None, "series,period,value\n", 415, "text/csv"),
+    ("GET", "/v1/actuals", None, None, 405, "use POST"),
+    ("POST", "/v1/nothing", "text/csv", "x", 404, "no such endpoint"),
+    ("GET", "/v1/series/w/none", None, None, 404, "no series 'w/none'"),
+    ("GET", "/v1/series?limit=0", None, None, 400, "limit must be"),
+    ("GET", "/v1/series?status=broken", None, None, 400, "status must be"),
+    ("GET", "/v1/series?sort=colour", None, None, 400, "sort must be"),
+    ("POST", "/v1/series/w/a/reset", "application/json", "{}", 400, "field to"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to":"value","who":"x"}', 400, "field value"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to":"mean","k":0,"who":"x"}', 400, "field k"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to":"last"}', 400, "field who"),
+    ("POST", "/v1/series/w/none/reset", "application/json", '{"to":"last","who":"x"}', 404, "no series"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\n" + "w/a,2026-01-05,1\n" * 60000, 413, "max_rows_per_batch"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\n" + "w/a,2026-01-05,1" + "0" * 2100000 + "\n", 413, "max_body_bytes"),
+]
+
+
+def test_bad_requests_are_refused_with_line_and_field_and_change_nothing():
+    s = Server(SETTINGS)
+    try:
+        assert s.post_csv(feed(["w/a"], 3))[0] == 200
+        before = s.request("GET", "/v1/series?limit=10000")[1], history(s, "w/a")
+        assert len(BAD_REQUESTS) >= 25
+        import json as _json
+        for method, path, ctype, body, status, text in BAD_REQUESTS:
+            if body and len(body) > 1500000:
+                got, reply = s.raw_request(method, path, body, ctype)
+            else:
+                got, reply, _ = s.request(method, path, body, ctype)
+            shown = _json.dumps(reply, sort_keys=True) if not isinstance(reply, str) else reply
+            assert got == status, (method, path, (body or "")[:80], got, shown[:300])
+            assert text in shown, (path, (body or "")[:80], text, shown[:300])
+        after = s.request("GET", "/v1/series?limit=10000")[1], history(s, "w/a")
+        assert before == after
+    finally:
+        s.stop()
+
+
+if __name__ == "__main__":
+    harness.BINARY = os.environ["FOREWARDEN_BINARY"]
+    sys.exit(harness.run([
+        test_ingest_then_query,
+        test_duplicates_are_unchanged,
+        test_restatement_equals_replay_of_corrected_history,
+        test_gap_rules_match_replay,
+        test_drop_folder,
+        test_kill9_during_ingest_loses_nothing_acknowledged,
+        test_sigterm_finishes_a_request_in_flight,
+        test_sighup_bad_config_keeps_old_then_good_applies,
+        test_auth_and_listen_safety,
+        test_bad_requests_are_refused_with_line_and_field_and_change_nothing,
+    ]))
