@@ -6,6 +6,7 @@
 #include <sstream>
 
 #include "config/load.h"
+#include "daemon/push.h"
 #include "daemon/replay.h"
 #include "daemon/serve.h"
 #include "daemon/simulate.h"
@@ -24,6 +25,8 @@ commands:
   serve --config FILE [--listen HOST:PORT] [--data DIR]
         Run the service: HTTP API (default 127.0.0.1:8700), durable store in the data
         folder, optional drop folder. SIGHUP reloads the settings; SIGTERM stops gracefully.
+  push FILE --url URL [--batch N] [--token-file F]
+        Send an actuals CSV to a running service in batches of N rows (default 5000).
   check-config FILE
         Validate a settings file: print every problem, or a summary of the policies.
   simulate [--series N] [--periods T] [--seed S] [--period day|week|month]
@@ -224,6 +227,27 @@ int RunCommand(const std::vector<std::string>& args, std::ostream& out, std::ost
     return RunServe({flags["config"], flags["listen"], flags["data"]}, out, err);
   }
   if (cmd == "simulate") return Simulate(args, err);
+  if (cmd == "push") {
+    if (args.size() < 2 || args[1].rfind("--", 0) == 0) {
+      err << "usage: forewarden push FILE --url URL [--batch N] [--token-file F]\n";
+      return 2;
+    }
+    std::map<std::string, std::string> flags;
+    if (!ParseFlags(args, 2, {"url", "batch", "token-file"}, flags, err)) return 2;
+    PushOptions o;
+    o.file = args[1];
+    o.url = flags.count("url") ? flags["url"] : "http://127.0.0.1:8700";
+    o.token_file = flags["token-file"];
+    if (flags.count("batch")) {
+      double v = 0;
+      if (!ToNumber(flags["batch"], v) || v < 1 || v > 10000000) {
+        err << "forewarden push: --batch must be a whole number of rows, 1..10000000\n";
+        return 2;
+      }
+      o.batch = static_cast<long>(v);
+    }
+    return RunPush(o, out, err);
+  }
   if (cmd == "version" || cmd == "--version") {
     out << "forewarden " << FOREWARDEN_VERSION << '\n';
     return 0;

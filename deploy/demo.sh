@@ -1,7 +1,9 @@
 #!/usr/bin/env bash
-# Quick start, part 1: install what is missing, build (Release), invent a demo feed for a chain
-# of garden and hardware stores, and run it through the engine with config/demo.yaml.
-# Output lands in build/demo/: feed.csv, truth.csv (injected changes), replay.csv.
+# Quick start, part 1: install what is missing, build (Release), start the service on
+# config/demo.yaml with an empty data folder, invent three years of weekly sales for 2,000
+# series of a chain of garden and hardware stores, push them week by week, show what the
+# service raised, and keep it running until Ctrl-C.
+# Everything stays under build/demo/ (feed.csv, truth.csv with the injected changes, data/).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -11,16 +13,43 @@ cmake --build build/release --target forewarden
 
 bin=build/release/daemon/forewarden
 out=build/demo
+port=${FOREWARDEN_DEMO_PORT:-8700}
+rm -rf "$out/data"
 mkdir -p "$out"
 "$bin" check-config config/demo.yaml
 "$bin" simulate --series 2000 --periods 156 --seed 20261201 \
   --output "$out/feed.csv" --truth "$out/truth.csv"
-"$bin" replay --config config/demo.yaml --input "$out/feed.csv" --output "$out/replay.csv"
+
+"$bin" serve --config config/demo.yaml --listen "127.0.0.1:$port" --data "$out/data" \
+  > "$out/serve.out" 2> "$out/serve.log" &
+pid=$!
+trap 'kill -TERM $pid 2>/dev/null; wait $pid 2>/dev/null || true' EXIT
+for _ in $(seq 1 100); do
+  grep -q "listening on" "$out/serve.out" 2>/dev/null && break
+  kill -0 $pid 2>/dev/null || { cat "$out/serve.log"; exit 1; }
+  sleep 0.1
+done
+url="http://127.0.0.1:$port"
+echo "demo: service up at $url (log: $out/serve.log)"
+"$bin" push "$out/feed.csv" --url "$url" --batch 2000
 
 echo
-echo "demo: $(($(wc -l < "$out/feed.csv") - 1)) actuals in $out/feed.csv, $(($(wc -l < "$out/truth.csv") - 1)) injected changes in $out/truth.csv"
-echo "demo: series with a rule holding in the last week (first 10):"
-last=$(tail -n 1 "$out/feed.csv" | cut -d, -f2)
-awk -F, -v last="$last" 'NR > 1 && $2 == last && $14 != "" {
-      printf "  %-28s actual %6s  forecast %8.1f  trigg %6.2f  cusum %6.1f  rules %s\n", $1, $3, $4, $10, $11, $14}' \
-  "$out/replay.csv" | head -n 10
+echo "demo: series raising alerts, largest Trigg's signal first (first 10):"
+curl -s "$url/v1/series?status=alerting&sort=trigg&limit=10" | python3 -c '
+import json, sys
+for s in json.load(sys.stdin)["series"]:
+    print("  %-28s %-15s forecast %8.1f  trigg %6.2f  cusum %7.1f  rules %s" % (
+        s["key"], s["policy"], s["forecast"] or 0, s["trigg_signal"] or 0, s["cusum_signal"] or 0,
+        ",".join(a["rule"] for a in s["alerts"])))'
+first=$(curl -s "$url/v1/series?status=alerting&sort=trigg&limit=1" | python3 -c 'import json,sys; print(json.load(sys.stdin)["series"][0]["key"])')
+cat <<EOT
+
+Where to look (the service keeps running; Ctrl-C stops it):
+  curl -s '$url/v1/policies'
+  curl -s '$url/v1/series?status=alerting&sort=cusum&limit=20'
+  curl -s '$url/v1/series/$first'
+  curl -s '$url/v1/series/$first/history'
+  curl -s -X POST '$url/v1/series/$first/reset' -d '{"to": "last", "who": "you", "note": "checked"}'
+  injected changes to compare with: $out/truth.csv
+EOT
+wait $pid

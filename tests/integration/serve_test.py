@@ -377,6 +377,26 @@ def test_bad_requests_are_refused_with_line_and_field_and_change_nothing():
         s.stop()
 
 
+def test_push_sends_batches_and_names_file_lines():
+    s = Server(SETTINGS)
+    try:
+        path = os.path.join(s.dir, "feed.csv")
+        with open(path, "w") as f:
+            f.write(feed(["w/a", "w/b"], 5))
+        r = subprocess.run([harness.BINARY, "push", path, "--url", s.url, "--batch", "3"],
+                           capture_output=True, text=True, timeout=harness.DEADLINE)
+        assert r.returncode == 0, r.stderr
+        assert "pushed 10 rows in 4 batches" in r.stdout and "applied: 10" in r.stdout, r.stdout
+        with open(path, "a") as f:
+            f.write("w/a,%s,1\nw/a,%s,oops\n" % (week(5), week(6)))
+        r = subprocess.run([harness.BINARY, "push", path, "--url", s.url, "--batch", "4"],
+                           capture_output=True, text=True, timeout=harness.DEADLINE)
+        assert r.returncode == 2, (r.stdout, r.stderr)
+        assert "lines 10-13 of" in r.stderr and "line 13, field value: 'oops'" in r.stderr, r.stderr
+    finally:
+        s.stop()
+
+
 if __name__ == "__main__":
     harness.BINARY = os.environ["FOREWARDEN_BINARY"]
     sys.exit(harness.run([
@@ -390,4 +410,5 @@ if __name__ == "__main__":
         test_sighup_bad_config_keeps_old_then_good_applies,
         test_auth_and_listen_safety,
         test_bad_requests_are_refused_with_line_and_field_and_change_nothing,
+        test_push_sends_batches_and_names_file_lines,
     ]))
