@@ -43,6 +43,17 @@ bool Compatible(const monitors::SeriesState& s, const config::Policy& p) {
   return s.model.season.empty();
 }
 
+// After a reload the policy's constants apply to its series, except where a series owns them:
+// fitted constants (start rule "fitted") and an adaptive alpha (it moves by itself).
+void FitConstants(monitors::SeriesState& s, const config::Policy& p) {
+  const monitors::PolicySpec& spec = p.spec;
+  if (spec.start.kind == monitors::StartKind::kFitted && !monitors::IsIntermittent(spec.method)) return;
+  if (!spec.adaptive.enabled) s.constants.alpha = spec.constants.alpha;
+  s.constants.beta = spec.constants.beta;
+  s.constants.phi = spec.constants.phi;
+  s.constants.gamma = spec.constants.gamma;
+}
+
 void FitRules(monitors::SeriesState& s, const config::Policy& p) {
   if (s.rules.size() != p.spec.rules.size()) {
     s.rules.resize(p.spec.rules.size());
@@ -89,8 +100,8 @@ bool Engine::Start(std::string& error) {
     FitRules(s.state, *policy);
     s.retained = row.retained;
     s.oldest = row.oldest_period;
-    index_.emplace(s.key, series_.size());
     series_.push_back(std::move(s));
+    index_.emplace(series_.back().key, series_.size() - 1);
   });
   if (!loaded) {
     error = "store: " + store_.error();
@@ -149,6 +160,7 @@ bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
         if (p.name == s.policy->name) {
           s.policy = &p;
           FitRules(s.state, p);
+          FitConstants(s.state, p);
         }
     }
     settings_ = settings;
@@ -252,18 +264,18 @@ void Engine::ApplyBatch(Pending& p) {
     return;
   }
   std::vector<char> touched(series_.size(), 0);
+  std::vector<std::size_t> touched_list;
   std::vector<char> series_failed;
   std::unordered_map<std::string, bool> bad_series;
   bool store_failed = false;
   for (const IngestRow& row : p.job.rows) {
     if (bad_series.count(row.series)) continue;  // one problem per series is enough
-    if (!ApplyRow(row, p, touched, store_failed)) bad_series[row.series] = true;
+    if (!ApplyRow(row, p, touched, touched_list, store_failed)) bad_series[row.series] = true;
     if (store_failed) break;
   }
   if (store_failed) return;  // Run() rolls everything back
   if (p.reply.problem_count == 0) {
-    for (std::size_t i = 0; i < series_.size(); ++i) {
-      if (i < touched.size() && !touched[i]) continue;
+    for (std::size_t i : touched_list) {
       Series& s = series_[i];
       if (!Trim(s) || !store_.UpdateState(s.id, s.state)) {
         Fail("store: " + store_.error());
@@ -281,7 +293,7 @@ void Engine::ApplyBatch(Pending& p) {
 }
 
 bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched,
-                      bool& store_failed) {
+                      std::vector<std::size_t>& touched_list, bool& store_failed) {
   auto problem = [&](const char* field, std::string message) {
     ++p.reply.problem_count;
     if (p.reply.problems.size() < kMaxProblems)
@@ -306,9 +318,10 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     s.state = monitors::NewSeriesState(policy->spec);
     if (!store_.InsertSeries(s.key, policy->name, s.labels, s.state, s.id)) return store_error();
     index = series_.size();
-    index_.emplace(s.key, index);
     series_.push_back(std::move(s));
+    index_.emplace(series_.back().key, index);
     touched.push_back(1);
+    touched_list.push_back(index);
     ++p.reply.counts.new_series;
   } else {
     index = it->second;
@@ -316,6 +329,7 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
       const Series& s = series_[index];
       p.undo.push_back({index, s.state, s.retained, s.oldest});
       touched[index] = 1;
+      touched_list.push_back(index);
     }
   }
   Series& s = series_[index];
@@ -383,6 +397,7 @@ bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::Serie
     return false;
   }
   FitRules(state, *s.policy);
+  FitConstants(state, *s.policy);
   const monitors::PolicySpec& spec = s.policy->spec;
   std::size_t next_adj = 0;
   for (const StoredActual& a : actuals) {
@@ -419,6 +434,7 @@ bool Engine::Trim(Series& s) {
       !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) || !store_.Adjustments(s.id, adjustments))
     return false;
   FitRules(checkpoint, *s.policy);
+  FitConstants(checkpoint, *s.policy);
   const std::size_t drop = actuals.size() - static_cast<std::size_t>(keep);
   std::size_t next_adj = 0;
   monitors::StepResult r;

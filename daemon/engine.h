@@ -21,6 +21,7 @@
 #include <mutex>
 #include <optional>
 #include <string>
+#include <string_view>
 #include <thread>
 #include <unordered_map>
 #include <utility>
@@ -160,7 +161,8 @@ class Engine {
 
   void Run();
   void ApplyBatch(Pending& p);
-  bool ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched, bool& store_failed);
+  bool ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched,
+                std::vector<std::size_t>& touched_list, bool& store_failed);
   bool Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out);
   bool Trim(Series& s);
   void Rewind(Pending& p);
@@ -171,8 +173,8 @@ class Engine {
   std::shared_ptr<const config::Settings> settings_;
   Clock clock_;
   Store store_;
-  std::vector<Series> series_;
-  std::unordered_map<std::string, std::size_t> index_;
+  std::deque<Series> series_;  // stable addresses: index_ keys point into Series::key
+  std::unordered_map<std::string_view, std::size_t> index_;
   std::unordered_map<std::string, std::int64_t> last_arrival_;
 
   mutable std::mutex mu_;
