@@ -44,6 +44,12 @@ HttpResponse Error(int status, const std::string& message) {
   return Json(status, json{{"error", message}});
 }
 
+HttpResponse Unauthorized() {
+  HttpResponse r = Error(401, "a bearer token is required for this endpoint");
+  r.headers.emplace_back("WWW-Authenticate", "Bearer");
+  return r;
+}
+
 json Number(std::optional<double> v) {
   if (!v || !std::isfinite(*v)) return nullptr;
   return *v;
@@ -218,11 +224,7 @@ void Api::Handle(HttpRequest&& request, Respond respond) {
   }
   if (path == "/v1/actuals") {
     if (!post) return respond(Error(405, "use POST"));
-    if (!Authorized(request)) {
-      HttpResponse r = Error(401, "a bearer token is required for this endpoint");
-      r.headers.emplace_back("WWW-Authenticate", "Bearer");
-      return respond(std::move(r));
-    }
+    if (!Authorized(request)) return respond(Unauthorized());
     return Ingest(std::move(request), std::move(respond));
   }
   if (path == "/v1/policies") {
@@ -331,11 +333,7 @@ void Api::Handle(HttpRequest&& request, Respond respond) {
     const std::string key = UrlDecode(rest, false);
     if (action == "reset") {
       if (!post) return respond(Error(405, "use POST"));
-      if (!Authorized(request)) {
-        HttpResponse r = Error(401, "a bearer token is required for this endpoint");
-        r.headers.emplace_back("WWW-Authenticate", "Bearer");
-        return respond(std::move(r));
-      }
+      if (!Authorized(request)) return respond(Unauthorized());
       return Reset(key, std::move(request), std::move(respond));
     }
     if (!get) return respond(Error(405, "use GET"));
