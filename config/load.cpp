@@ -461,7 +461,7 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
               {"listen", "data", "token_file", "token_env", "synchronous", "max_body_bytes",
                "max_rows_per_batch", "max_connections", "header_timeout_seconds",
                "idle_timeout_seconds", "queue_depth", "shutdown_grace_seconds", "folder",
-               "folder_poll_ms"});
+               "folder_poll_ms", "max_database_bytes"});
   for (auto [key, out] : {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
                           std::pair{"token_file", &s.token_file}, std::pair{"token_env", &s.token_env},
                           std::pair{"folder", &s.folder}})
@@ -487,6 +487,9 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   r.Int(n, "queue_depth", path, s.queue_depth, 1, 100000);
   r.Int(n, "shutdown_grace_seconds", path, s.shutdown_grace_seconds, 0, 3600);
   r.Int(n, "folder_poll_ms", path, s.folder_poll_ms, 10, 3600000);
+  long max_db = static_cast<long>(s.max_database_bytes);
+  r.Int(n, "max_database_bytes", path, max_db, 0, 1L << 50);
+  s.max_database_bytes = max_db;
   if (!s.token_file.empty() && !s.token_env.empty())
     r.Add(n, path, "give token_file or token_env, not both");
 }

@@ -44,6 +44,7 @@ struct Server {
   long idle_timeout_seconds = 60;
   long queue_depth = 64;        // batches waiting for the engine
   long shutdown_grace_seconds = 10;
+  long long max_database_bytes = 0;  // cap on the database file (0 = none); over it writes fail
   std::string folder;           // drop folder ("" = none): incoming files, done/, rejected/
   long folder_poll_ms = 500;
 };

@@ -70,7 +70,7 @@ Engine::~Engine() { Stop(); }
 
 bool Engine::Start(std::string& error) {
   const config::Server& srv = settings_->server;
-  if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull)) {
+  if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull, srv.max_database_bytes)) {
     error = "store: " + store_.error();
     return false;
   }

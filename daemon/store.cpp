@@ -1,5 +1,6 @@
 #include "daemon/store.h"
 
+#include <algorithm>
 #include <filesystem>
 
 #include "daemon/state_codec.h"
@@ -40,7 +41,7 @@ constexpr int kSchemaVersion = static_cast<int>(sizeof kMigrations / sizeof kMig
 
 }  // namespace
 
-bool Store::Open(const std::string& dir, bool synchronous_full) {
+bool Store::Open(const std::string& dir, bool synchronous_full, long long max_bytes) {
   std::error_code ec;
   std::filesystem::create_directories(dir, ec);
   if (ec) return db_.Fail("create data folder " + dir + ": " + ec.message());
@@ -50,6 +51,14 @@ bool Store::Open(const std::string& dir, bool synchronous_full) {
       !db_.Exec("PRAGMA foreign_keys=ON; PRAGMA busy_timeout=5000;"))
     return false;
   if (!Migrate()) return false;
+  if (max_bytes > 0) {
+    Stmt size = db_.Prepare("PRAGMA page_size");
+    if (!size.valid() || !size.Step() || !size.Row()) return false;
+    const long long page = size.Int(0);
+    size.Reset();
+    if (!db_.Exec("PRAGMA max_page_count=" + std::to_string(std::max(1LL, max_bytes / page)) + ";"))
+      return false;
+  }
   begin_ = db_.Prepare("BEGIN IMMEDIATE");
   commit_ = db_.Prepare("COMMIT");
   rollback_ = db_.Prepare("ROLLBACK");

@@ -40,8 +40,9 @@ struct Adjustment {
 class Store {
  public:
   // Opens or creates `dir`/forewarden.db, applies migrations, sets WAL and `synchronous`
-  // (true = FULL, false = NORMAL).
-  bool Open(const std::string& dir, bool synchronous_full);
+  // (true = FULL, false = NORMAL) and, when max_bytes > 0, caps the database file (writes
+  // beyond it fail with "database or disk is full", as on a full disk).
+  bool Open(const std::string& dir, bool synchronous_full, long long max_bytes = 0);
   const std::string& error() const { return db_.error(); }
 
   bool Begin();

@@ -377,6 +377,47 @@ def test_bad_requests_are_refused_with_line_and_field_and_change_nothing():
         s.stop()
 
 
+def test_full_store_is_sticky_and_loses_nothing_acknowledged():
+    """A database that cannot grow (server.max_database_bytes, SQLite's max_page_count: the
+    same error as a full disk) makes the service refuse writes with the reason, report not
+    ready, keep serving reads, and lose nothing it acknowledged."""
+    capped = SETTINGS.replace("server: {", "server: {max_database_bytes: 1000000, ")
+    s = Server(capped)
+    acked = []
+    try:
+        # each batch brings 200 new series (the database keeps growing) and a new week for
+        # the series of the first batch
+        for t in range(60):
+            text = feed(["w/b%d-%d" % (t, i) for i in range(200)], 1, start=t)
+            if t:
+                text += feed(["w/b0-%d" % i for i in range(200)], 1, start=t).split("\n", 1)[1]
+            status, body, _ = s.post_csv(text)
+            if status != 200:
+                assert status == 503 and "full" in body["error"], (status, body)
+                break
+            acked.append(text)
+        assert 0 < len(acked) < 60, len(acked)
+        status, body, _ = s.request("GET", "/readyz")
+        assert status == 503 and "full" in body["reason"], body
+        status, body, _ = s.post_csv(feed(["w/other"], 1))
+        assert status == 503 and "full" in body["error"], body
+        assert s.request("GET", "/v1/series/w/b0-0")[0] == 200  # reads still work
+    finally:
+        s.stop()
+    with open(s.config, "w") as f:
+        f.write(SETTINGS)
+    s.start()
+    try:
+        assert s.request("GET", "/readyz")[0] == 200
+        assert s.request("GET", "/v1/series?limit=1")[1]["total"] == 200 * len(acked)
+        ack_text = "series,period,value\n" + "".join(a.split("\n", 1)[1] for a in acked)
+        for key in ("w/b0-0", "w/b0-199", "w/b%d-7" % (len(acked) - 1)):
+            assert_matches_replay(s, key, ack_text)
+        assert history(s, "w/b0-0")[-1]["period"] == week(len(acked) - 1)
+    finally:
+        s.stop()
+
+
 def test_push_sends_batches_and_names_file_lines():
     s = Server(SETTINGS)
     try:
@@ -411,4 +452,5 @@ if __name__ == "__main__":
         test_auth_and_listen_safety,
         test_bad_requests_are_refused_with_line_and_field_and_change_nothing,
         test_push_sends_batches_and_names_file_lines,
+        test_full_store_is_sticky_and_loses_nothing_acknowledged,
     ]))
