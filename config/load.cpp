@@ -461,7 +461,8 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
               {"listen", "data", "token_file", "token_env", "synchronous", "max_body_bytes",
                "max_rows_per_batch", "max_connections", "header_timeout_seconds",
                "idle_timeout_seconds", "queue_depth", "shutdown_grace_seconds", "folder",
-               "folder_poll_ms", "max_database_bytes"});
+               "folder_poll_ms", "max_database_bytes", "cache_bytes", "state_flush_seconds",
+               "state_flush_series"});
   for (auto [key, out] : {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
                           std::pair{"token_file", &s.token_file}, std::pair{"token_env", &s.token_env},
                           std::pair{"folder", &s.folder}})
@@ -490,6 +491,11 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   long max_db = static_cast<long>(s.max_database_bytes);
   r.Int(n, "max_database_bytes", path, max_db, 0, 1L << 50);
   s.max_database_bytes = max_db;
+  long cache = static_cast<long>(s.cache_bytes);
+  r.Int(n, "cache_bytes", path, cache, 1L << 20, 1L << 40);
+  s.cache_bytes = cache;
+  r.Int(n, "state_flush_seconds", path, s.state_flush_seconds, 0, 3600);
+  r.Int(n, "state_flush_series", path, s.state_flush_series, 1, 100000000);
   if (!s.token_file.empty() && !s.token_env.empty())
     r.Add(n, path, "give token_file or token_env, not both");
 }

@@ -45,6 +45,12 @@ struct Server {
   long queue_depth = 64;        // batches waiting for the engine
   long shutdown_grace_seconds = 10;
   long long max_database_bytes = 0;  // cap on the database file (0 = none); over it writes fail
+  long long cache_bytes = 64LL << 20;  // SQLite page cache
+  // Series states are written with the batch that changes them only when needed (new series,
+  // restatements, trimming); otherwise at most this many seconds or dirty series later (the
+  // actuals themselves are always committed with their batch; a restart replays the rest).
+  long state_flush_seconds = 5;
+  long state_flush_series = 100000;
   std::string folder;           // drop folder ("" = none): incoming files, done/, rejected/
   long folder_poll_ms = 500;
 };

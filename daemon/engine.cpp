@@ -1,6 +1,7 @@
 #include "daemon/engine.h"
 
 #include <algorithm>
+#include <chrono>
 #include <cmath>
 
 namespace forewarden {
@@ -70,11 +71,13 @@ Engine::~Engine() { Stop(); }
 
 bool Engine::Start(std::string& error) {
   const config::Server& srv = settings_->server;
-  if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull, srv.max_database_bytes)) {
+  if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull, srv.max_database_bytes,
+                   srv.cache_bytes)) {
     error = "store: " + store_.error();
     return false;
   }
   std::string problem;
+  std::vector<std::size_t> stale_states;
   const bool loaded = store_.LoadSeries([&](StoredSeries&& row) {
     const config::Policy* policy = nullptr;
     for (const auto& p : settings_->policies)
@@ -100,7 +103,9 @@ bool Engine::Start(std::string& error) {
     FitRules(s.state, *policy);
     s.retained = row.retained;
     s.oldest = row.oldest_period;
+    const bool behind = row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
     series_.push_back(std::move(s));
+    if (behind) stale_states.push_back(series_.size() - 1);
     index_.emplace(series_.back().key, series_.size() - 1);
   });
   if (!loaded) {
@@ -111,6 +116,40 @@ bool Engine::Start(std::string& error) {
     error = problem;
     return false;
   }
+  // States are written lazily (README, "Durability"): after a crash some lag their actuals.
+  // Replaying the newer actuals with the same step brings them to where they were.
+  if (!stale_states.empty()) {
+    if (!store_.Begin()) {
+      error = "store: " + store_.error();
+      return false;
+    }
+    for (std::size_t i : stale_states) {
+      Series& s = series_[i];
+      std::vector<StoredActual> newer;
+      const std::int64_t from = s.state.seen ? s.state.last_period + 1 : INT64_MIN;
+      if (!store_.Actuals(s.id, from, INT64_MAX, newer)) {
+        error = "store: " + store_.error();
+        return false;
+      }
+      monitors::StepResult r;
+      for (const StoredActual& a : newer)
+        if (monitors::Step(s.policy->spec, s.state, a.period, a.value, r) != monitors::StepStatus::kOk) {
+          error = "series '" + s.key + "': its stored actuals cannot be replayed";
+          return false;
+        }
+      if (!store_.UpdateState(s.id, s.state)) {
+        error = "store: " + store_.error();
+        return false;
+      }
+    }
+    if (!store_.Commit()) {
+      error = "store: " + store_.error();
+      return false;
+    }
+    recovered_ = static_cast<long>(stale_states.size());
+  }
+  dirty_.assign(series_.size(), 0);
+  last_flush_ms_ = clock_();
   thread_ = std::thread([this] { Run(); });
   return true;
 }
@@ -121,7 +160,41 @@ void Engine::Stop() {
     stopping_ = true;
   }
   wake_.notify_all();
-  if (thread_.joinable()) thread_.join();
+  if (thread_.joinable()) {
+    thread_.join();
+    if (!dirty_list_.empty() && failure().empty()) {
+      if (store_.Begin() && FlushDirty() && store_.Commit())
+        ClearDirty();
+      else
+        store_.Rollback();  // the actuals are committed: the next start replays them
+    }
+  }
+}
+
+void Engine::MarkDirty(std::size_t index) {
+  if (dirty_.size() < series_.size()) dirty_.resize(series_.size(), 0);
+  if (!dirty_[index]) {
+    dirty_[index] = 1;
+    dirty_list_.push_back(index);
+  }
+}
+
+bool Engine::FlushDirty() {
+  for (std::size_t i : dirty_list_) {
+    if (i >= series_.size()) continue;  // a series created by a batch that was rolled back
+    if (!store_.UpdateState(series_[i].id, series_[i].state)) {
+      Fail("store: " + store_.error());
+      return false;
+    }
+  }
+  return true;
+}
+
+void Engine::ClearDirty() {
+  for (std::size_t i : dirty_list_)
+    if (i < dirty_.size()) dirty_[i] = 0;
+  dirty_list_.clear();
+  last_flush_ms_ = clock_();
 }
 
 bool Engine::Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)> done) {
@@ -187,7 +260,20 @@ void Engine::Run() {
     std::vector<Job> group;
     {
       std::unique_lock lock(mu_);
-      wake_.wait(lock, [this] { return stopping_ || !queue_.empty(); });
+      const auto flush_every = std::chrono::seconds(std::max<long>(1, settings_->server.state_flush_seconds));
+      if (!wake_.wait_for(lock, flush_every, [this] { return stopping_ || !queue_.empty(); })) {
+        lock.unlock();
+        // idle: write the states that are waiting
+        if (!dirty_list_.empty() && failure().empty()) {
+          if (store_.Begin() && FlushDirty() && store_.Commit()) {
+            ClearDirty();
+          } else {
+            Fail("store: " + store_.error());
+            store_.Rollback();
+          }
+        }
+        continue;
+      }
       if (queue_.empty()) return;  // stopping and drained
       // A run of batches commits together; a read job or a reload ends the run.
       while (!queue_.empty() && group.size() < kMaxGroup) {
@@ -217,7 +303,13 @@ void Engine::Run() {
       Fail("store: begin: " + store_.error());
     } else {
       for (Pending& p : pending) ApplyBatch(p);
+      const config::Server& srv = settings_->server;
+      const bool flush = failure().empty() &&
+                         (static_cast<long>(dirty_list_.size()) >= srv.state_flush_series ||
+                          clock_() - last_flush_ms_ >= srv.state_flush_seconds * 1000);
+      if (flush) FlushDirty();
       if (failure().empty() && !store_.Commit()) Fail("store: commit: " + store_.error());
+      if (flush && failure().empty()) ClearDirty();
     }
     const std::string failed = failure();
     if (!failed.empty()) {
@@ -277,9 +369,20 @@ void Engine::ApplyBatch(Pending& p) {
   if (p.reply.problem_count == 0) {
     for (std::size_t i : touched_list) {
       Series& s = series_[i];
-      if (!Trim(s) || !store_.UpdateState(s.id, s.state)) {
+      bool trimmed = false;
+      if (!Trim(s, trimmed)) {
         Fail("store: " + store_.error());
         return;
+      }
+      // A restated or trimmed series is written now: replaying newer actuals at start could
+      // not reproduce it. Others wait for the next flush.
+      if (trimmed || p.must_write.count(i)) {
+        if (!store_.UpdateState(s.id, s.state)) {
+          Fail("store: " + store_.error());
+          return;
+        }
+      } else {
+        MarkDirty(i);
       }
     }
     if (!store_.ReleaseSavepoint()) Fail("store: release: " + store_.error());
@@ -380,6 +483,7 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   }
   const std::uint64_t before = s.state.active;
   s.state = std::move(recomputed);
+  p.must_write.insert(index);
   p.reply.counts.alerts_opened += __builtin_popcountll(s.state.active & ~before);
   p.reply.counts.alerts_cleared += __builtin_popcountll(before & ~s.state.active);
   ++p.reply.counts.restated;
@@ -423,10 +527,12 @@ bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::Serie
   return true;
 }
 
-bool Engine::Trim(Series& s) {
+bool Engine::Trim(Series& s, bool& trimmed) {
+  trimmed = false;
   const std::int64_t keep = s.policy->history;
   const std::int64_t slack = std::max<std::int64_t>(8, keep / 4);
   if (s.retained <= keep + slack) return true;
+  trimmed = true;
   monitors::SeriesState checkpoint;
   std::vector<StoredActual> actuals;
   std::vector<Adjustment> adjustments;

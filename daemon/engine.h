@@ -24,6 +24,7 @@
 #include <string_view>
 #include <thread>
 #include <unordered_map>
+#include <unordered_set>
 #include <utility>
 #include <vector>
 
@@ -130,6 +131,9 @@ class Engine {
   // Milliseconds since the epoch of the last committed actual per policy (0 = none yet).
   std::int64_t LastArrival(const std::string& policy) const;
   std::int64_t now_ms() const { return clock_(); }
+  // Series whose stored state was behind their actuals at start (after a crash) and were
+  // brought up to date by replaying them.
+  long recovered_series() const { return recovered_; }
 
  private:
   struct Series {
@@ -157,6 +161,7 @@ class Engine {
     IngestReply reply;
     std::vector<Undo> undo;
     std::size_t series_before = 0;
+    std::unordered_set<std::size_t> must_write;  // restated series: state written with the batch
   };
 
   void Run();
@@ -164,7 +169,10 @@ class Engine {
   bool ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched,
                 std::vector<std::size_t>& touched_list, bool& store_failed);
   bool Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out);
-  bool Trim(Series& s);
+  bool Trim(Series& s, bool& trimmed);
+  void MarkDirty(std::size_t index);
+  bool FlushDirty();  // inside an open transaction; the caller commits
+  void ClearDirty();
   void Rewind(Pending& p);
   void Fail(const std::string& why);
   bool IsStale(const Series& s) const;
@@ -176,6 +184,10 @@ class Engine {
   std::deque<Series> series_;  // stable addresses: index_ keys point into Series::key
   std::unordered_map<std::string_view, std::size_t> index_;
   std::unordered_map<std::string, std::int64_t> last_arrival_;
+  std::vector<char> dirty_;               // per series: state not yet written
+  std::vector<std::size_t> dirty_list_;
+  std::int64_t last_flush_ms_ = 0;
+  long recovered_ = 0;
 
   mutable std::mutex mu_;
   std::condition_variable wake_;

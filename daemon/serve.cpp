@@ -216,6 +216,9 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   });
   out << "forewarden: listening on " << (host.find(':') != std::string::npos ? "[" + host + "]" : host)
       << ":" << server.port() << std::endl;
+  if (engine.recovered_series())
+    Log(err, "recovered " + std::to_string(engine.recovered_series()) +
+                 " series by replaying actuals committed after their last saved state");
   Log(err, "serving " + std::to_string(settings->policies.size()) + " policies from " + o.config +
                ", data in " + srv.data);
   server.Run();

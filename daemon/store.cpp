@@ -41,7 +41,8 @@ constexpr int kSchemaVersion = static_cast<int>(sizeof kMigrations / sizeof kMig
 
 }  // namespace
 
-bool Store::Open(const std::string& dir, bool synchronous_full, long long max_bytes) {
+bool Store::Open(const std::string& dir, bool synchronous_full, long long max_bytes,
+                 long long cache_bytes) {
   std::error_code ec;
   std::filesystem::create_directories(dir, ec);
   if (ec) return db_.Fail("create data folder " + dir + ": " + ec.message());
@@ -51,6 +52,8 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
       !db_.Exec("PRAGMA foreign_keys=ON; PRAGMA busy_timeout=5000;"))
     return false;
   if (!Migrate()) return false;
+  if (!db_.Exec("PRAGMA cache_size=-" + std::to_string(std::max(1LL, cache_bytes / 1024)) + ";"))
+    return false;
   if (max_bytes > 0) {
     Stmt size = db_.Prepare("PRAGMA page_size");
     if (!size.valid() || !size.Step() || !size.Row()) return false;
@@ -122,15 +125,18 @@ bool Store::ReleaseSavepoint() { return release_.Run(); }
 bool Store::RollbackToSavepoint() { return rollback_to_.Run() && release_.Run(); }
 
 bool Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
-  Stmt q = db_.Prepare(
-      "SELECT s.id, s.key, s.policy, s.labels, s.state,"
-      "  (SELECT count(*) FROM actuals a WHERE a.series_id = s.id),"
-      "  (SELECT min(period) FROM actuals a WHERE a.series_id = s.id)"
-      " FROM series s ORDER BY s.id");
-  if (!q.valid()) return false;
+  // Two ordered scans merged by id: much faster than per-series subqueries for millions.
+  Stmt q = db_.Prepare("SELECT id, key, policy, labels, state FROM series ORDER BY id");
+  Stmt a = db_.Prepare(
+      "SELECT series_id, count(*), min(period), max(period) FROM actuals GROUP BY series_id "
+      "ORDER BY series_id");
+  if (!q.valid() || !a.valid() || !a.Step()) return false;
   for (;;) {
     if (!q.Step()) return false;
-    if (!q.Row()) return true;
+    if (!q.Row()) {
+      a.Reset();
+      return true;
+    }
     StoredSeries s;
     s.id = q.Int(0);
     s.key = std::string(q.Text(1));
@@ -138,10 +144,16 @@ bool Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
     s.labels = std::string(q.Text(3));
     if (!DecodeState(q.Blob(4), s.state)) {
       q.Reset();
+      a.Reset();
       return db_.Fail("series '" + s.key + "': the stored state cannot be read");
     }
-    s.retained = q.Int(5);
-    s.oldest_period = q.IsNull(6) ? 0 : q.Int(6);
+    while (a.Row() && a.Int(0) < s.id)
+      if (!a.Step()) return false;
+    if (a.Row() && a.Int(0) == s.id) {
+      s.retained = a.Int(1);
+      s.oldest_period = a.Int(2);
+      s.newest_period = a.Int(3);
+    }
     each(std::move(s));
   }
 }

@@ -24,6 +24,7 @@ struct StoredSeries {
   monitors::SeriesState state;
   std::int64_t retained = 0;          // actuals kept
   std::int64_t oldest_period = 0;     // oldest retained actual's period (when retained > 0)
+  std::int64_t newest_period = 0;     // newest retained actual's period (when retained > 0)
 };
 
 struct StoredActual {
@@ -42,7 +43,8 @@ class Store {
   // Opens or creates `dir`/forewarden.db, applies migrations, sets WAL and `synchronous`
   // (true = FULL, false = NORMAL) and, when max_bytes > 0, caps the database file (writes
   // beyond it fail with "database or disk is full", as on a full disk).
-  bool Open(const std::string& dir, bool synchronous_full, long long max_bytes = 0);
+  bool Open(const std::string& dir, bool synchronous_full, long long max_bytes = 0,
+            long long cache_bytes = 64LL << 20);
   const std::string& error() const { return db_.error(); }
 
   bool Begin();
@@ -52,7 +54,7 @@ class Store {
   bool ReleaseSavepoint();
   bool RollbackToSavepoint();
 
-  // Calls `each` for every series (in id order).
+  // Calls `each` for every series (in id order), with its retained-actual statistics.
   bool LoadSeries(const std::function<void(StoredSeries&&)>& each);
 
   // Creates a series; its id goes to `id`.

@@ -196,7 +196,9 @@ def test_drop_folder():
 
 
 def test_kill9_during_ingest_loses_nothing_acknowledged():
-    s = Server(SETTINGS)
+    # a long history: no trimming, so no state is written before the kill (they are saved
+    # every state_flush_seconds) and the restart must replay every actual
+    s = Server(SETTINGS.replace("history: 8\n    rules", "history: 500\n    rules"))
     keys = ["w/k%d" % i for i in range(40)]
     acked, in_flight = [], []
     stop = threading.Event()
@@ -226,6 +228,8 @@ def test_kill9_during_ingest_loses_nothing_acknowledged():
     assert len(acked) >= 25, len(acked)
     s.start()
     try:
+        # states are saved lazily (every state_flush_seconds): the restart replays actuals
+        s.wait_stderr("recovered 40 series")
         ack_text = "series,period,value\n" + "".join(a.split("\n", 1)[1] for a in acked)
         both = ack_text + "".join(a.split("\n", 1)[1] for a in in_flight)
         for key in keys[:5]:
