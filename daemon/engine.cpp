@@ -78,6 +78,12 @@ bool Engine::Start(std::string& error) {
   }
   std::string problem;
   std::vector<std::size_t> stale_states;
+  std::int64_t count = 0;
+  if (!store_.CountSeries(count)) {
+    error = "store: " + store_.error();
+    return false;
+  }
+  index_.Reserve(static_cast<std::size_t>(count) + 1024);
   const bool loaded = store_.LoadSeries([&](StoredSeries&& row) {
     const config::Policy* policy = nullptr;
     for (const auto& p : settings_->policies)
@@ -96,7 +102,7 @@ bool Engine::Start(std::string& error) {
     }
     Series s;
     s.id = row.id;
-    s.key = std::move(row.key);
+    s.key = keys_.Add(row.key);
     s.labels = std::move(row.labels);
     s.policy = policy;
     s.state = std::move(row.state);
@@ -106,7 +112,7 @@ bool Engine::Start(std::string& error) {
     const bool behind = row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
     series_.push_back(std::move(s));
     if (behind) stale_states.push_back(series_.size() - 1);
-    index_.emplace(series_.back().key, series_.size() - 1);
+    index_.Insert(series_.back().key, series_.size() - 1);
   });
   if (!loaded) {
     error = "store: " + store_.error();
@@ -134,7 +140,7 @@ bool Engine::Start(std::string& error) {
       monitors::StepResult r;
       for (const StoredActual& a : newer)
         if (monitors::Step(s.policy->spec, s.state, a.period, a.value, r) != monitors::StepStatus::kOk) {
-          error = "series '" + s.key + "': its stored actuals cannot be replayed";
+          error = "series '" + std::string(s.key) + "': its stored actuals cannot be replayed";
           return false;
         }
       if (!store_.UpdateState(s.id, s.state)) {
@@ -325,8 +331,8 @@ void Engine::Run() {
       for (const Pending& p : pending)
         if (p.reply.status == IngestReply::Status::kOk)
           for (const IngestRow& row : p.job.rows) {
-            auto it = index_.find(row.series);
-            if (it != index_.end()) last_arrival_[series_[it->second].policy->name] = now;
+            const long pos = index_.Find(row.series);
+            if (pos >= 0) last_arrival_[series_[static_cast<std::size_t>(pos)].policy->name] = now;
           }
     }
     for (Pending& p : pending) p.job.done(std::move(p.reply));
@@ -342,7 +348,7 @@ void Engine::Rewind(Pending& p) {
     s.oldest = it->oldest;
   }
   while (series_.size() > p.series_before) {
-    index_.erase(series_.back().key);
+    index_.Erase(series_.back().key);
     series_.pop_back();
   }
   p.undo.clear();
@@ -410,24 +416,25 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   };
   if (row.series.empty()) return problem("series", "the series key is empty");
   std::size_t index;
-  auto it = index_.find(row.series);
-  if (it == index_.end()) {
+  const long found_at = index_.Find(row.series);
+  if (found_at < 0) {
     const config::Policy* policy = config::FindPolicy(*settings_, row.series, row.labels);
     if (!policy) return problem("series", "no policy matches the series '" + row.series + "'");
     Series s;
-    s.key = row.series;
+    s.key = keys_.Add(row.series);
     s.labels = LabelsJson(row.labels);
     s.policy = policy;
     s.state = monitors::NewSeriesState(policy->spec);
-    if (!store_.InsertSeries(s.key, policy->name, s.labels, s.state, s.id)) return store_error();
+    if (!store_.InsertSeries(std::string(s.key), policy->name, s.labels, s.state, s.id))
+      return store_error();
     index = series_.size();
     series_.push_back(std::move(s));
-    index_.emplace(series_.back().key, index);
+    index_.Insert(series_.back().key, index);
     touched.push_back(1);
     touched_list.push_back(index);
     ++p.reply.counts.new_series;
   } else {
-    index = it->second;
+    index = static_cast<std::size_t>(found_at);
     if (index < touched.size() && !touched[index]) {
       const Series& s = series_[index];
       p.undo.push_back({index, s.state, s.retained, s.oldest});
@@ -466,7 +473,7 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   }
   if (s.retained == 0 || period.ordinal < s.oldest)
     return problem("period", "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
-                                 " is older than the retained history of '" + s.key +
+                                 " is older than the retained history of '" + std::string(s.key) +
                                  "' (oldest kept: " +
                                  (s.retained ? monitors::FormatPeriod(policy.period, s.oldest)
                                              : std::string("none")) +
@@ -547,7 +554,7 @@ bool Engine::Trim(Series& s, bool& trimmed) {
   for (std::size_t i = 0; i < drop; ++i) {
     if (monitors::Step(s.policy->spec, checkpoint, actuals[i].period, actuals[i].value, r) !=
         monitors::StepStatus::kOk) {
-      Fail("series '" + s.key + "': its retained actuals cannot be replayed into the checkpoint");
+      Fail("series '" + std::string(s.key) + "': its retained actuals cannot be replayed into the checkpoint");
       return false;
     }
     while (next_adj < adjustments.size() && adjustments[next_adj].period <= actuals[i].period) {
@@ -589,21 +596,21 @@ void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) c
 }
 
 std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {
-  auto it = index_.find(key);
-  if (it == index_.end()) return std::nullopt;
-  return View(series_[it->second]);
+  const long pos = index_.Find(key);
+  if (pos < 0) return std::nullopt;
+  return View(series_[static_cast<std::size_t>(pos)]);
 }
 
 bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,
                      std::vector<HistoryRow>& rows, std::string& error) {
-  auto it = index_.find(key);
-  if (it == index_.end()) {
+  const long pos = index_.Find(key);
+  if (pos < 0) {
     error = "no series '" + key + "'";
     return false;
   }
   std::vector<HistoryRow> all;
   monitors::SeriesState ignored;
-  if (!Recompute(series_[it->second], &all, ignored)) {
+  if (!Recompute(series_[static_cast<std::size_t>(pos)], &all, ignored)) {
     error = failure().empty() ? "the history cannot be recomputed" : failure();
     return false;
   }
@@ -617,13 +624,13 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
                    const std::string& who, const std::string& note, double& new_level,
                    bool& not_found, std::string& error) {
   not_found = false;
-  auto it = index_.find(key);
-  if (it == index_.end()) {
+  const long pos = index_.Find(key);
+  if (pos < 0) {
     not_found = true;
     error = "no series '" + key + "'";
     return false;
   }
-  Series& s = series_[it->second];
+  Series& s = series_[static_cast<std::size_t>(pos)];
   if (!s.state.started || !s.state.seen) {
     error = "the series has no forecast yet; nothing to re-level";
     return false;
@@ -663,7 +670,7 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
   const std::string detail = "level " + std::to_string(new_level) + " (" + how + ")" +
                              (note.empty() ? "" : ": " + note);
   if (!store_.Begin() || !store_.PutAdjustment(s.id, adj) ||
-      !store_.Audit(clock_(), who, "reset", s.key, detail)) {
+      !store_.Audit(clock_(), who, "reset", std::string(s.key), detail)) {
     Fail("store: " + store_.error());
     store_.Rollback();
     error = failure();

@@ -29,6 +29,8 @@
 #include <vector>
 
 #include "config/settings.h"
+#include "daemon/key_arena.h"
+#include "daemon/series_index.h"
 #include "daemon/store.h"
 
 namespace forewarden {
@@ -73,7 +75,7 @@ struct IngestReply {
 
 // One series as the read API sees it.
 struct SeriesView {
-  std::string key;
+  std::string_view key;
   std::string policy;
   std::string labels;  // JSON object text
   const monitors::SeriesState* state = nullptr;
@@ -138,7 +140,7 @@ class Engine {
  private:
   struct Series {
     std::int64_t id = 0;
-    std::string key;
+    std::string_view key;  // in keys_
     std::string labels;
     const config::Policy* policy = nullptr;
     monitors::SeriesState state;
@@ -181,8 +183,13 @@ class Engine {
   std::shared_ptr<const config::Settings> settings_;
   Clock clock_;
   Store store_;
-  std::deque<Series> series_;  // stable addresses: index_ keys point into Series::key
-  std::unordered_map<std::string_view, std::size_t> index_;
+  struct KeyOf {
+    const std::deque<Series>* series;
+    std::string_view operator()(std::size_t i) const { return (*series)[i].key; }
+  };
+  KeyArena keys_;
+  std::deque<Series> series_;
+  SeriesIndex<KeyOf> index_{KeyOf{&series_}};
   std::unordered_map<std::string, std::int64_t> last_arrival_;
   std::vector<char> dirty_;               // per series: state not yet written
   std::vector<std::size_t> dirty_list_;

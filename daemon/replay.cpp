@@ -15,6 +15,7 @@
 #include <unordered_map>
 
 #include "daemon/csv.h"
+#include "daemon/key_arena.h"
 #include "daemon/text_out.h"
 #include "monitors/series.h"
 
@@ -39,26 +40,6 @@ struct SeriesSlot {
   const config::Policy* policy;
   SeriesSlot* next_seen = nullptr;  // the series whose row followed this one's last time
   monitors::SeriesState state;
-};
-
-// Series keys, stored back to back in first-seen order (stable addresses).
-class KeyArena {
- public:
-  std::string_view Add(std::string_view key) {
-    if (blocks_.empty() || used_ + key.size() > kBlock) {
-      blocks_.push_back(std::make_unique<char[]>(std::max(kBlock, key.size())));
-      used_ = 0;
-    }
-    char* at = blocks_.back().get() + used_;
-    std::memcpy(at, key.data(), key.size());
-    used_ += key.size();
-    return {at, key.size()};
-  }
-
- private:
-  static constexpr std::size_t kBlock = 1 << 20;
-  std::vector<std::unique_ptr<char[]>> blocks_;
-  std::size_t used_ = 0;
 };
 
 // A parsed period with its normalised text.

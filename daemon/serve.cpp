@@ -183,7 +183,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
           for (const auto& p : next->policies)
             if (p.name == v.policy) np = &p;
           if (!np)
-            problem = "policy '" + v.policy + "' holds series (e.g. '" + v.key + "') but is gone";
+            problem = "policy '" + v.policy + "' holds series (e.g. '" + std::string(v.key) + "') but is gone";
           else if (np->period != v.spec->period || np->spec.method != v.spec->spec.method ||
                    np->spec.constants.season_length != v.spec->spec.constants.season_length)
             problem = "policy '" + v.policy + "' changed its period, method or season length; "

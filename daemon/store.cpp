@@ -124,6 +124,14 @@ bool Store::Savepoint() { return savepoint_.Run(); }
 bool Store::ReleaseSavepoint() { return release_.Run(); }
 bool Store::RollbackToSavepoint() { return rollback_to_.Run() && release_.Run(); }
 
+bool Store::CountSeries(std::int64_t& count) {
+  Stmt q = db_.Prepare("SELECT count(*) FROM series");
+  if (!q.valid() || !q.Step() || !q.Row()) return false;
+  count = q.Int(0);
+  q.Reset();
+  return true;
+}
+
 bool Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
   // Two ordered scans merged by id: much faster than per-series subqueries for millions.
   Stmt q = db_.Prepare("SELECT id, key, policy, labels, state FROM series ORDER BY id");

@@ -54,6 +54,7 @@ class Store {
   bool ReleaseSavepoint();
   bool RollbackToSavepoint();
 
+  bool CountSeries(std::int64_t& count);
   // Calls `each` for every series (in id order), with its retained-actual statistics.
   bool LoadSeries(const std::function<void(StoredSeries&&)>& each);
 
