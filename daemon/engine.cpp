@@ -103,7 +103,7 @@ bool Engine::Start(std::string& error) {
     Series s;
     s.id = row.id;
     s.key = keys_.Add(row.key);
-    s.labels = std::move(row.labels);
+    s.labels = InternLabels(row.labels);
     s.policy = policy;
     s.state = std::move(row.state);
     FitRules(s.state, *policy);
@@ -175,6 +175,15 @@ void Engine::Stop() {
         store_.Rollback();  // the actuals are committed: the next start replays them
     }
   }
+}
+
+std::uint32_t Engine::InternLabels(const std::string& json) {
+  auto it = label_ids_.find(json);
+  if (it != label_ids_.end()) return it->second;
+  label_sets_.push_back(json);
+  const auto id = static_cast<std::uint32_t>(label_sets_.size() - 1);
+  label_ids_.emplace(json, id);
+  return id;
 }
 
 void Engine::MarkDirty(std::size_t index) {
@@ -422,10 +431,11 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     if (!policy) return problem("series", "no policy matches the series '" + row.series + "'");
     Series s;
     s.key = keys_.Add(row.series);
-    s.labels = LabelsJson(row.labels);
+    const std::string labels = LabelsJson(row.labels);
+    s.labels = InternLabels(labels);
     s.policy = policy;
     s.state = monitors::NewSeriesState(policy->spec);
-    if (!store_.InsertSeries(std::string(s.key), policy->name, s.labels, s.state, s.id))
+    if (!store_.InsertSeries(std::string(s.key), policy->name, labels, s.state, s.id))
       return store_error();
     index = series_.size();
     series_.push_back(std::move(s));
@@ -588,7 +598,7 @@ bool Engine::IsStale(const Series& s) const {
 }
 
 SeriesView Engine::View(const Series& s) const {
-  return SeriesView{s.key, s.policy->name, s.labels, &s.state, s.policy, IsStale(s)};
+  return SeriesView{s.key, s.policy->name, label_sets_[s.labels], &s.state, s.policy, IsStale(s)};
 }
 
 void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {

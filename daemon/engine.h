@@ -77,7 +77,7 @@ struct IngestReply {
 struct SeriesView {
   std::string_view key;
   std::string policy;
-  std::string labels;  // JSON object text
+  std::string_view labels;  // JSON object text
   const monitors::SeriesState* state = nullptr;
   const config::Policy* spec = nullptr;
   bool stale = false;
@@ -141,7 +141,7 @@ class Engine {
   struct Series {
     std::int64_t id = 0;
     std::string_view key;  // in keys_
-    std::string labels;
+    std::uint32_t labels = 0;  // index into label_sets_ (series share identical label sets)
     const config::Policy* policy = nullptr;
     monitors::SeriesState state;
     std::int64_t retained = 0;
@@ -187,7 +187,10 @@ class Engine {
     const std::deque<Series>* series;
     std::string_view operator()(std::size_t i) const { return (*series)[i].key; }
   };
+  std::uint32_t InternLabels(const std::string& json);
   KeyArena keys_;
+  std::vector<std::string> label_sets_;
+  std::unordered_map<std::string, std::uint32_t> label_ids_;
   std::deque<Series> series_;
   SeriesIndex<KeyOf> index_{KeyOf{&series_}};
   std::unordered_map<std::string, std::int64_t> last_arrival_;

@@ -87,7 +87,7 @@ class Store {
   Db db_;
   int schema_version_ = 0;
   Stmt begin_, commit_, rollback_, savepoint_, release_, rollback_to_;
-  Stmt insert_series_, update_state_, update_checkpoint_, load_checkpoint_;
+  Stmt insert_series_, insert_checkpoint_, update_state_, update_checkpoint_, load_checkpoint_;
   Stmt put_actual_, get_actual_, actuals_, drop_actuals_, drop_adjustments_;
   Stmt put_adjustment_, adjustments_, audit_;
 };

@@ -2,6 +2,8 @@
 
 #include <catch2/catch.hpp>
 
+#include <filesystem>
+
 #include "daemon/state_codec.h"
 #include "tests/temp_dir.h"
 
@@ -17,7 +19,7 @@ TEST_CASE("the store keeps series, actuals and adjustments across a reopen", "[i
   {
     Store store;
     REQUIRE(store.Open(dir.File("data"), true));
-    CHECK(store.schema_version() == 1);
+    CHECK(store.schema_version() == 2);
     REQUIRE(store.Begin());
     REQUIRE(store.InsertSeries("north/store-1/sku-1", "weekly", "{\"channel\":\"store\"}", state, id));
     for (int p = 10; p < 15; ++p) REQUIRE(store.PutActual(id, p, p * 1.5));
@@ -84,4 +86,42 @@ TEST_CASE("a rolled-back savepoint leaves nothing behind", "[integration]") {
   CHECK_FALSE(store.InsertSeries("a", "p", "{}", monitors::SeriesState{}, c));
   CHECK_THAT(store.error(), Catch::Contains("UNIQUE"));
   REQUIRE(store.Rollback());
+}
+
+TEST_CASE("a version 1 database is migrated and keeps its series and checkpoints", "[integration]") {
+  TempDir dir;
+  std::filesystem::create_directories(dir.File("old"));
+  forewarden::Db db;
+  REQUIRE(db.Open(dir.File("old") + "/forewarden.db"));
+  monitors::SeriesState checkpoint;
+  checkpoint.stats.cusum = 3.25;
+  const std::string blob = forewarden::EncodeState(checkpoint);
+  // the schema exactly as migration 1 created it
+  REQUIRE(db.Exec(
+      "CREATE TABLE meta(key TEXT PRIMARY KEY, value TEXT NOT NULL);"
+      "INSERT INTO meta VALUES('schema_version', '1');"
+      "CREATE TABLE series(id INTEGER PRIMARY KEY, key TEXT NOT NULL UNIQUE, policy TEXT NOT NULL,"
+      " labels TEXT NOT NULL DEFAULT '{}', state BLOB NOT NULL, checkpoint BLOB NOT NULL);"
+      "CREATE TABLE actuals(series_id INTEGER NOT NULL, period INTEGER NOT NULL, value REAL NOT NULL,"
+      " PRIMARY KEY(series_id, period)) WITHOUT ROWID;"
+      "CREATE TABLE adjustments(series_id INTEGER NOT NULL, period INTEGER NOT NULL, level REAL NOT NULL,"
+      " seq INTEGER PRIMARY KEY AUTOINCREMENT);"
+      "CREATE TABLE audit(id INTEGER PRIMARY KEY, at_ms INTEGER NOT NULL, who TEXT NOT NULL,"
+      " action TEXT NOT NULL, series_key TEXT NOT NULL, detail TEXT NOT NULL);"));
+  forewarden::Stmt insert = db.Prepare("INSERT INTO series VALUES(7, 'w/a', 'weekly', '{}', ?1, ?1)");
+  REQUIRE(insert.BindBlob(1, blob).Run());
+  insert = forewarden::Stmt();
+  db = forewarden::Db();
+  Store store;
+  REQUIRE(store.Open(dir.File("old"), true));
+  CHECK(store.schema_version() == 2);
+  monitors::SeriesState loaded;
+  REQUIRE(store.LoadCheckpoint(7, loaded));
+  CHECK(loaded.stats.cusum == 3.25);
+  int n = 0;
+  REQUIRE(store.LoadSeries([&](forewarden::StoredSeries&& s) {
+    ++n;
+    CHECK(s.key == "w/a");
+  }));
+  CHECK(n == 1);
 }
