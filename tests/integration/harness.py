@@ -2,8 +2,10 @@
 with its own temporary data folder, a real HTTP client (urllib / raw sockets), processes
 stopped by PID. No sleeps for synchronisation: tests wait for events (a line on stderr, a
 file appearing, a process exiting) with a deadline."""
+import atexit
 import json
 import os
+import shutil
 import select
 import signal
 import socket
@@ -17,13 +19,27 @@ import urllib.request
 
 BINARY = os.environ.get("FOREWARDEN_BINARY", "")
 DEADLINE = 60.0  # seconds any awaited event may take before the test fails
+_TEMP_DIRS = []
+
+
+def temp_dir():
+    """A temporary folder removed when the test process exits."""
+    path = tempfile.mkdtemp(prefix="forewarden-it-")
+    _TEMP_DIRS.append(path)
+    return path
+
+
+@atexit.register
+def _remove_temp_dirs():
+    for path in _TEMP_DIRS:
+        shutil.rmtree(path, ignore_errors=True)
 
 
 class Server:
     """forewarden serve on 127.0.0.1:<free port> with settings text `yaml`."""
 
     def __init__(self, yaml, workdir=None, env=None, extra_args=()):
-        self.dir = workdir or tempfile.mkdtemp(prefix="forewarden-it-")
+        self.dir = workdir or temp_dir()
         self.config = os.path.join(self.dir, "settings.yaml")
         with open(self.config, "w") as f:
             f.write(yaml)

@@ -166,7 +166,7 @@ def wait_for(path):
 
 def test_drop_folder():
     import tempfile
-    work = tempfile.mkdtemp(prefix="forewarden-it-")
+    work = harness.temp_dir()
     incoming = os.path.join(work, "incoming")
     os.makedirs(incoming)
     settings = SETTINGS.replace("server: {", "server: {folder: '%s', folder_poll_ms: 20, " % incoming)
@@ -306,7 +306,7 @@ def test_auth_and_listen_safety():
     finally:
         s.stop()
     import tempfile
-    cfg = os.path.join(tempfile.mkdtemp(prefix="forewarden-it-"), "s.yaml")
+    cfg = os.path.join(harness.temp_dir(), "s.yaml")
     with open(cfg, "w") as f:
         f.write(SETTINGS)
     r = subprocess.run([harness.BINARY, "serve", "--config", cfg, "--listen", "0.0.0.0:0",
