@@ -107,7 +107,7 @@ bool Engine::Start(std::string& error) {
     s.policy = policy;
     s.state = std::move(row.state);
     FitRules(s.state, *policy);
-    s.retained = row.retained;
+    s.retained = static_cast<std::int32_t>(row.retained);
     s.oldest = row.oldest_period;
     const bool behind = row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
     series_.push_back(std::move(s));
@@ -578,7 +578,7 @@ bool Engine::Trim(Series& s, bool& trimmed) {
   }
   if (!store_.UpdateCheckpoint(s.id, checkpoint) || !store_.DropBefore(s.id, actuals[drop].period))
     return false;
-  s.retained = keep;
+  s.retained = static_cast<std::int32_t>(keep);
   s.oldest = actuals[drop].period;
   return true;
 }

@@ -142,15 +142,16 @@ class Engine {
     std::int64_t id = 0;
     std::string_view key;  // in keys_
     std::uint32_t labels = 0;  // index into label_sets_ (series share identical label sets)
+    std::int32_t retained = 0;
     const config::Policy* policy = nullptr;
     monitors::SeriesState state;
-    std::int64_t retained = 0;
     std::int64_t oldest = 0;
   };
   struct Undo {
     std::size_t index;
     monitors::SeriesState state;
-    std::int64_t retained, oldest;
+    std::int32_t retained;
+    std::int64_t oldest;
   };
   struct Job {
     std::vector<IngestRow> rows;

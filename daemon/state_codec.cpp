@@ -103,11 +103,13 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   for (auto& rule : s.rules) {
     std::int32_t run = 0;
     std::uint8_t active = 0;
-    if (!r.Get(run) || !r.Get(active)) return false;
-    rule.run = run;
+    if (!r.Get(run) || !r.Get(active) || run < 0 || run > UINT16_MAX) return false;
+    rule.run = static_cast<std::uint16_t>(run);
     rule.active = active != 0;
   }
   if (!r.Get(s.active) || !r.done()) return false;
+  for (std::int64_t v : {since, forecasts, missing})
+    if (v < 0 || v > INT32_MAX) return false;
   s.seen = flags & 1;
   s.started = flags & 2;
   s.model.has_demand = flags & 4;
@@ -115,9 +117,9 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   s.last_period = last;
   s.next_index = static_cast<long>(next);
   s.constants.season_length = season_length;
-  s.model.since_demand = static_cast<long>(since);
-  s.forecasts = static_cast<long>(forecasts);
-  s.missing = static_cast<long>(missing);
+  s.model.since_demand = static_cast<std::int32_t>(since);
+  s.forecasts = static_cast<std::int32_t>(forecasts);
+  s.missing = static_cast<std::int32_t>(missing);
   out = std::move(s);
   return true;
 }

@@ -20,6 +20,7 @@
 // Pure functions on caller-owned values; no shared state.
 #pragma once
 
+#include <cstdint>
 #include <optional>
 #include <string_view>
 #include <vector>
@@ -57,8 +58,8 @@ struct ModelState {
   // croston / sba
   double size = 0.0;       // smoothed demand size z
   double interval = 0.0;   // smoothed inter-demand interval p
-  long since_demand = 0;   // periods since the previous demand (or since before the first period)
-  bool has_demand = false; // a demand has been seen: forecasts exist
+  std::int32_t since_demand = 0;  // periods since the previous demand (or before the first period)
+  bool has_demand = false;        // a demand has been seen: forecasts exist
 };
 
 // The one-step forecast for the period with index `next_index`; nullopt when none exists yet

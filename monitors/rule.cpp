@@ -19,7 +19,7 @@ RuleChange EvaluateRule(const RuleSpec& rule, RuleState& st, std::optional<doubl
   if (!value) return RuleChange::kNone;
   const double x = Excursion(rule.direction, *value);
   if (x > rule.limit) {
-    st.run += 1;
+    if (st.run < UINT16_MAX) st.run += 1;
   } else {
     st.run = 0;
   }

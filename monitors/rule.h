@@ -11,6 +11,9 @@
 // (clear <= limit gives hysteresis). A period where the signal is undefined changes nothing.
 #pragma once
 
+#include <algorithm>
+#include <cstdint>
+#include <memory>
 #include <optional>
 #include <string>
 #include <vector>
@@ -32,8 +35,60 @@ struct RuleSpec {
 };
 
 struct RuleState {
-  int run = 0;          // consecutive periods beyond the limit
-  bool active = false;  // the rule holds
+  std::uint16_t run = 0;  // consecutive periods beyond the limit (saturates at 65535)
+  bool active = false;    // the rule holds
+};
+
+// The rule states of one series: up to four inline (most policies have a few rules), more on
+// the heap. Four bytes a rule, so a series with few rules costs no allocation.
+class RuleStates {
+ public:
+  RuleStates() = default;
+  RuleStates(const RuleStates& o) { *this = o; }
+  RuleStates& operator=(const RuleStates& o) {
+    if (this != &o) {
+      resize(o.size_);
+      std::copy(o.begin(), o.end(), begin());
+    }
+    return *this;
+  }
+  RuleStates(RuleStates&&) noexcept = default;
+  RuleStates& operator=(RuleStates&&) noexcept = default;
+
+  std::size_t size() const { return size_; }
+  bool empty() const { return size_ == 0; }
+  RuleState* begin() { return heap_ ? heap_.get() : inline_; }
+  RuleState* end() { return begin() + size_; }
+  const RuleState* begin() const { return heap_ ? heap_.get() : inline_; }
+  const RuleState* end() const { return begin() + size_; }
+  RuleState& operator[](std::size_t i) { return begin()[i]; }
+  const RuleState& operator[](std::size_t i) const { return begin()[i]; }
+
+  // Keeps the first min(n, size()) states; new ones start clear.
+  void resize(std::size_t n) {
+    if (n == size_) return;
+    RuleState* old = begin();
+    if (n > kInline) {
+      std::unique_ptr<RuleState[]> bigger(new RuleState[n]);
+      std::copy(old, old + std::min<std::size_t>(n, size_), bigger.get());
+      heap_ = std::move(bigger);
+    } else {
+      if (heap_) std::copy(old, old + std::min<std::size_t>(n, size_), inline_);
+      heap_.reset();
+      for (std::size_t i = size_; i < n; ++i) inline_[i] = RuleState{};
+    }
+    size_ = static_cast<std::uint8_t>(n);
+  }
+  void assign(std::size_t n, RuleState value) {
+    resize(n);
+    std::fill(begin(), end(), value);
+  }
+
+ private:
+  static constexpr std::size_t kInline = 4;
+  std::unique_ptr<RuleState[]> heap_;
+  RuleState inline_[kInline];
+  std::uint8_t size_ = 0;
 };
 
 enum class RuleChange { kNone, kOpened, kCleared };

@@ -47,17 +47,17 @@ inline constexpr std::size_t kMaxRules = 64;
 
 struct SeriesState {
   bool seen = false;
+  bool started = false;         // past the start window
+  std::int32_t forecasts = 0;   // periods that had a forecast
   PeriodOrdinal first_period = 0;
   PeriodOrdinal last_period = 0;
   long next_index = 0;          // index of the next period (0 = the first period)
-  bool started = false;         // past the start window
   std::vector<double> window;   // start-window actuals (empty once started)
   Constants constants;          // in force; alpha changes under adaptive policies
   ModelState model;
   ErrorStats stats;
-  long forecasts = 0;           // periods that had a forecast
-  long missing = 0;             // periods skipped under gap rule "skip"
-  std::vector<RuleState> rules;
+  std::int32_t missing = 0;     // periods skipped under gap rule "skip"
+  RuleStates rules;
   std::uint64_t active = 0;     // bit i: rule i holds
 };
 

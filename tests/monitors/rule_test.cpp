@@ -57,3 +57,30 @@ TEST_CASE("an undefined signal leaves a rule as it was", "[unit]") {
   CHECK(st.run == 1);
   CHECK(EvaluateRule(r, st, 2.0) == RuleChange::kOpened);
 }
+
+TEST_CASE("rule states keep their values across growing past the inline capacity, shrinking and copying", "[unit]") {
+  monitors::RuleStates s;
+  s.assign(3, RuleState{});
+  s[2].run = 7;
+  s[2].active = true;
+  s.resize(10);  // to the heap
+  CHECK(s.size() == 10);
+  CHECK(s[2].run == 7);
+  CHECK(s[9].run == 0);
+  s[9].run = 65535;
+  monitors::RuleStates copy = s;
+  CHECK(copy[9].run == 65535);
+  CHECK(copy[2].active);
+  s.resize(2);  // back inline
+  CHECK(s.size() == 2);
+  s.resize(4);
+  CHECK(s[2].run == 0);  // states past the old size start clear
+  copy = s;
+  CHECK(copy.size() == 4);
+  monitors::RuleSpec r;
+  r.limit = r.clear = 1;
+  RuleState st;
+  st.run = 65535;
+  EvaluateRule(r, st, 5.0);
+  CHECK(st.run == 65535);  // saturates
+}
