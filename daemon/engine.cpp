@@ -168,7 +168,7 @@ void Engine::Stop() {
   wake_.notify_all();
   if (thread_.joinable()) {
     thread_.join();
-    if (!dirty_list_.empty() && failure().empty()) {
+    if (dirty_count_ && failure().empty()) {
       if (store_.Begin() && FlushDirty() && store_.Commit())
         ClearDirty();
       else
@@ -190,13 +190,15 @@ void Engine::MarkDirty(std::size_t index) {
   if (dirty_.size() < series_.size()) dirty_.resize(series_.size(), 0);
   if (!dirty_[index]) {
     dirty_[index] = 1;
-    dirty_list_.push_back(index);
+    ++dirty_count_;
   }
 }
 
 bool Engine::FlushDirty() {
-  for (std::size_t i : dirty_list_) {
-    if (i >= series_.size()) continue;  // a series created by a batch that was rolled back
+  // A flag scan (a byte a series) rather than a list: no memory per dirty series.
+  const std::size_t n = std::min(dirty_.size(), series_.size());  // rolled-back series are gone
+  for (std::size_t i = 0; i < n; ++i) {
+    if (!dirty_[i]) continue;
     if (!store_.UpdateState(series_[i].id, series_[i].state)) {
       Fail("store: " + store_.error());
       return false;
@@ -206,9 +208,8 @@ bool Engine::FlushDirty() {
 }
 
 void Engine::ClearDirty() {
-  for (std::size_t i : dirty_list_)
-    if (i < dirty_.size()) dirty_[i] = 0;
-  dirty_list_.clear();
+  std::fill(dirty_.begin(), dirty_.end(), 0);
+  dirty_count_ = 0;
   last_flush_ms_ = clock_();
 }
 
@@ -279,7 +280,7 @@ void Engine::Run() {
       if (!wake_.wait_for(lock, flush_every, [this] { return stopping_ || !queue_.empty(); })) {
         lock.unlock();
         // idle: write the states that are waiting
-        if (!dirty_list_.empty() && failure().empty()) {
+        if (dirty_count_ && failure().empty()) {
           if (store_.Begin() && FlushDirty() && store_.Commit()) {
             ClearDirty();
           } else {
@@ -320,7 +321,7 @@ void Engine::Run() {
       for (Pending& p : pending) ApplyBatch(p);
       const config::Server& srv = settings_->server;
       const bool flush = failure().empty() &&
-                         (static_cast<long>(dirty_list_.size()) >= srv.state_flush_series ||
+                         (static_cast<long>(dirty_count_) >= srv.state_flush_series ||
                           clock_() - last_flush_ms_ >= srv.state_flush_seconds * 1000);
       if (flush) FlushDirty();
       if (failure().empty() && !store_.Commit()) Fail("store: commit: " + store_.error());

@@ -6,7 +6,8 @@
 namespace forewarden {
 namespace {
 
-constexpr std::uint8_t kVersion = 1;
+// 1: the first version (with the series' first period); 2: without it.
+constexpr std::uint8_t kVersion = 2;
 
 class Writer {
  public:
@@ -54,10 +55,9 @@ std::string EncodeState(const monitors::SeriesState& s) {
   const std::uint8_t flags = static_cast<std::uint8_t>((s.seen ? 1 : 0) | (s.started ? 2 : 0) |
                                                        (s.model.has_demand ? 4 : 0));
   w.Put(flags);
-  w.Put<std::int64_t>(s.first_period);
   w.Put<std::int64_t>(s.last_period);
   w.Put<std::int64_t>(s.next_index);
-  w.Doubles(s.window);
+  w.Doubles(s.window.values());
   w.Put(s.constants.alpha);
   w.Put(s.constants.beta);
   w.Put(s.constants.phi);
@@ -90,8 +90,10 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   std::int64_t first = 0, last = 0, next = 0, since = 0, forecasts = 0, missing = 0;
   std::int32_t season_length = 0;
   std::uint32_t nrules = 0;
-  if (!r.Get(version) || version != kVersion || !r.Get(flags) || !r.Get(first) || !r.Get(last) ||
-      !r.Get(next) || !r.Doubles(s.window) || !r.Get(s.constants.alpha) ||
+  std::vector<double> window;
+  if (!r.Get(version) || (version != 1 && version != kVersion) || !r.Get(flags) ||
+      (version == 1 && !r.Get(first)) || !r.Get(last) || !r.Get(next) || !r.Doubles(window) ||
+      !r.Get(s.constants.alpha) ||
       !r.Get(s.constants.beta) || !r.Get(s.constants.phi) || !r.Get(s.constants.gamma) ||
       !r.Get(season_length) || !r.Get(s.model.level) || !r.Get(s.model.trend) ||
       !r.Doubles(s.model.season) || !r.Get(s.model.size) || !r.Get(s.model.interval) ||
@@ -113,7 +115,7 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   s.seen = flags & 1;
   s.started = flags & 2;
   s.model.has_demand = flags & 4;
-  s.first_period = first;
+  s.window.assign(std::move(window));
   s.last_period = last;
   s.next_index = static_cast<long>(next);
   s.constants.season_length = season_length;

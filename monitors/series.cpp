@@ -27,16 +27,17 @@ bool AllowsNegative(Method m) { return !IsIntermittent(m) && m != Method::kSeaso
 
 void StartSeries(const PolicySpec& p, SeriesState& s) {
   if (p.start.kind == StartKind::kFitted) {
-    FitResult fit = FitStart(p.method, p.constants, s.window);
+    const std::vector<double>& window = s.window.values();
+    FitResult fit = FitStart(p.method, p.constants, window);
     s.constants = fit.constants;
     s.model = fit.start;
-    for (std::size_t t = 0; t < s.window.size(); ++t)
-      UpdateModel(p.method, s.constants, s.model, static_cast<long>(t), s.window[t]);
+    for (std::size_t t = 0; t < window.size(); ++t)
+      UpdateModel(p.method, s.constants, s.model, static_cast<long>(t), window[t]);
   } else {
-    s.model = StartFromWindow(p.method, p.constants, p.start, s.window);
+    s.model = StartFromWindow(p.method, p.constants, p.start, s.window.values());
   }
   s.started = true;
-  std::vector<double>().swap(s.window);
+  s.window.clear();
 }
 
 // One observed period (index s.next_index). Fills `out` for that period.
@@ -157,10 +158,7 @@ StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, doubl
       s.missing += 1;
     }
   }
-  if (!s.seen) {
-    s.seen = true;
-    s.first_period = period;
-  }
+  s.seen = true;
   s.last_period = period;
   out.opened = out.cleared = 0;
   Observe(p, s, y, out);

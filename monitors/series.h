@@ -14,6 +14,7 @@
 #pragma once
 
 #include <cstdint>
+#include <memory>
 #include <optional>
 #include <string>
 #include <vector>
@@ -45,14 +46,46 @@ struct PolicySpec {
 
 inline constexpr std::size_t kMaxRules = 64;
 
+// Actuals of the start window, allocated only while a series is in it (8 bytes otherwise).
+class WindowValues {
+ public:
+  WindowValues() = default;
+  WindowValues(const WindowValues& o) { *this = o; }
+  WindowValues& operator=(const WindowValues& o) {
+    if (this != &o) v_ = o.v_ ? std::make_unique<std::vector<double>>(*o.v_) : nullptr;
+    return *this;
+  }
+  WindowValues(WindowValues&&) noexcept = default;
+  WindowValues& operator=(WindowValues&&) noexcept = default;
+
+  void push_back(double y) {
+    if (!v_) v_ = std::make_unique<std::vector<double>>();
+    v_->push_back(y);
+  }
+  std::size_t size() const { return v_ ? v_->size() : 0; }
+  const std::vector<double>& values() const {
+    static const std::vector<double> kEmpty;
+    return v_ ? *v_ : kEmpty;
+  }
+  void assign(std::vector<double> values) {
+    if (values.empty())
+      v_.reset();
+    else
+      v_ = std::make_unique<std::vector<double>>(std::move(values));
+  }
+  void clear() { v_.reset(); }
+
+ private:
+  std::unique_ptr<std::vector<double>> v_;
+};
+
 struct SeriesState {
   bool seen = false;
   bool started = false;         // past the start window
   std::int32_t forecasts = 0;   // periods that had a forecast
-  PeriodOrdinal first_period = 0;
   PeriodOrdinal last_period = 0;
   long next_index = 0;          // index of the next period (0 = the first period)
-  std::vector<double> window;   // start-window actuals (empty once started)
+  WindowValues window;          // start-window actuals (empty once started)
   Constants constants;          // in force; alpha changes under adaptive policies
   ModelState model;
   ErrorStats stats;

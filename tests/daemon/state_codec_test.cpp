@@ -58,3 +58,18 @@ TEST_CASE("damaged state bytes are refused, not half-read", "[unit]") {
   CHECK_FALSE(forewarden::DecodeState(wrong_version, out));
   CHECK(out.forecasts == 77);
 }
+
+TEST_CASE("states written in format 1 (with the first period) still decode", "[unit]") {
+  monitors::SeriesState s;
+  s.seen = true;
+  s.last_period = 2920;
+  s.stats.mad = 1.5;
+  s.rules.resize(1);
+  const std::string v2 = forewarden::EncodeState(s);
+  std::string v1 = v2;
+  v1[0] = 1;
+  v1.insert(2, std::string(8, '\0'));  // format 1 had the first period after the flags
+  monitors::SeriesState out;
+  REQUIRE(forewarden::DecodeState(v1, out));
+  CHECK(forewarden::EncodeState(out) == v2);
+}
