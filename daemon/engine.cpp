@@ -108,7 +108,6 @@ bool Engine::Start(std::string& error) {
     s.state = std::move(row.state);
     FitRules(s.state, *policy);
     s.retained = static_cast<std::int32_t>(row.retained);
-    s.oldest = row.oldest_period;
     const bool behind = row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
     series_.push_back(std::move(s));
     if (behind) stale_states.push_back(series_.size() - 1);
@@ -244,7 +243,8 @@ bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
   return Post([this, settings] {
     // Series move to the policy of the same name; the checks in serve's reload path make sure
     // that such a policy exists and keeps its method and season length.
-    for (Series& s : series_) {
+    for (std::size_t i = 0; i < series_.size(); ++i) {
+      Series& s = series_[i];
       for (const auto& p : settings->policies)
         if (p.name == s.policy->name) {
           s.policy = &p;
@@ -355,7 +355,6 @@ void Engine::Rewind(Pending& p) {
     Series& s = series_[it->index];
     s.state = std::move(it->state);
     s.retained = it->retained;
-    s.oldest = it->oldest;
   }
   while (series_.size() > p.series_before) {
     index_.Erase(series_.back().key);
@@ -448,7 +447,7 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     index = static_cast<std::size_t>(found_at);
     if (index < touched.size() && !touched[index]) {
       const Series& s = series_[index];
-      p.undo.push_back({index, s.state, s.retained, s.oldest});
+      p.undo.push_back({index, s.state, s.retained});
       touched[index] = 1;
       touched_list.push_back(index);
     }
@@ -467,7 +466,6 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     if (st != monitors::StepStatus::kOk)
       return problem(st == monitors::StepStatus::kBadValue ? "value" : "period", why);
     if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
-    if (s.retained == 0) s.oldest = period.ordinal;
     ++s.retained;
     ++p.reply.counts.applied;
     p.reply.counts.filled += r.filled;
@@ -482,11 +480,15 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     ++p.reply.counts.unchanged;
     return true;
   }
-  if (s.retained == 0 || period.ordinal < s.oldest)
+  // The oldest retained period is read only here (restatements are rare): not kept in memory.
+  std::int64_t oldest = 0;
+  bool any = false;
+  if (!store_.OldestActual(s.id, any, oldest)) return store_error();
+  if (!any || period.ordinal < oldest)
     return problem("period", "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
                                  " is older than the retained history of '" + std::string(s.key) +
                                  "' (oldest kept: " +
-                                 (s.retained ? monitors::FormatPeriod(policy.period, s.oldest)
+                                 (any ? monitors::FormatPeriod(policy.period, oldest)
                                              : std::string("none")) +
                                  "); raise the policy's history to restate it");
   if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
@@ -580,7 +582,6 @@ bool Engine::Trim(Series& s, bool& trimmed) {
   if (!store_.UpdateCheckpoint(s.id, checkpoint) || !store_.DropBefore(s.id, actuals[drop].period))
     return false;
   s.retained = static_cast<std::int32_t>(keep);
-  s.oldest = actuals[drop].period;
   return true;
 }
 
@@ -603,7 +604,7 @@ SeriesView Engine::View(const Series& s) const {
 }
 
 void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {
-  for (const Series& s : series_) each(View(s));
+  for (std::size_t i = 0; i < series_.size(); ++i) each(View(series_[i]));
 }
 
 std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {

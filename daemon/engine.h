@@ -29,6 +29,7 @@
 #include <vector>
 
 #include "config/settings.h"
+#include "daemon/chunked_vector.h"
 #include "daemon/key_arena.h"
 #include "daemon/series_index.h"
 #include "daemon/store.h"
@@ -145,13 +146,11 @@ class Engine {
     std::int32_t retained = 0;
     const config::Policy* policy = nullptr;
     monitors::SeriesState state;
-    std::int64_t oldest = 0;
   };
   struct Undo {
     std::size_t index;
     monitors::SeriesState state;
     std::int32_t retained;
-    std::int64_t oldest;
   };
   struct Job {
     std::vector<IngestRow> rows;
@@ -185,14 +184,14 @@ class Engine {
   Clock clock_;
   Store store_;
   struct KeyOf {
-    const std::deque<Series>* series;
+    const ChunkedVector<Series>* series;
     std::string_view operator()(std::size_t i) const { return (*series)[i].key; }
   };
   std::uint32_t InternLabels(const std::string& json);
   KeyArena keys_;
   std::vector<std::string> label_sets_;
   std::unordered_map<std::string, std::uint32_t> label_ids_;
-  std::deque<Series> series_;
+  ChunkedVector<Series> series_;
   SeriesIndex<KeyOf> index_{KeyOf{&series_}};
   std::unordered_map<std::string, std::int64_t> last_arrival_;
   std::vector<char> dirty_;               // per series: state not yet written

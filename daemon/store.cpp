@@ -80,6 +80,7 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
   load_checkpoint_ = db_.Prepare("SELECT state FROM checkpoints WHERE series_id = ?1");
   put_actual_ = db_.Prepare("INSERT OR REPLACE INTO actuals(series_id, period, value) VALUES(?1, ?2, ?3)");
   get_actual_ = db_.Prepare("SELECT value FROM actuals WHERE series_id = ?1 AND period = ?2");
+  oldest_actual_ = db_.Prepare("SELECT min(period) FROM actuals WHERE series_id = ?1");
   actuals_ = db_.Prepare(
       "SELECT period, value FROM actuals WHERE series_id = ?1 AND period BETWEEN ?2 AND ?3 "
       "ORDER BY period");
@@ -92,7 +93,7 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
       "INSERT INTO audit(at_ms, who, action, series_key, detail) VALUES(?1, ?2, ?3, ?4, ?5)");
   for (const Stmt* s : {&begin_, &commit_, &rollback_, &savepoint_, &release_, &rollback_to_,
                         &insert_series_, &insert_checkpoint_, &update_state_, &update_checkpoint_, &load_checkpoint_,
-                        &put_actual_, &get_actual_, &actuals_, &drop_actuals_, &drop_adjustments_,
+                        &put_actual_, &get_actual_, &oldest_actual_, &actuals_, &drop_actuals_, &drop_adjustments_,
                         &put_adjustment_, &adjustments_, &audit_})
     if (!s->valid()) return false;
   return true;
@@ -202,6 +203,15 @@ bool Store::LoadCheckpoint(std::int64_t id, monitors::SeriesState& checkpoint) {
 
 bool Store::PutActual(std::int64_t id, std::int64_t period, double value) {
   return put_actual_.Bind(1, id).Bind(2, period).Bind(3, value).Run();
+}
+
+bool Store::OldestActual(std::int64_t id, bool& any, std::int64_t& period) {
+  oldest_actual_.Bind(1, id);
+  if (!oldest_actual_.Step()) return false;
+  any = oldest_actual_.Row() && !oldest_actual_.IsNull(0);
+  if (any) period = oldest_actual_.Int(0);
+  oldest_actual_.Reset();
+  return true;
 }
 
 bool Store::GetActual(std::int64_t id, std::int64_t period, bool& found, double& value) {

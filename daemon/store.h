@@ -67,6 +67,8 @@ class Store {
 
   // Inserts or replaces the actual of a period.
   bool PutActual(std::int64_t id, std::int64_t period, double value);
+  // The oldest retained actual's period (`any` false when there is none).
+  bool OldestActual(std::int64_t id, bool& any, std::int64_t& period);
   // The stored actual of a period, if any.
   bool GetActual(std::int64_t id, std::int64_t period, bool& found, double& value);
   // Retained actuals in period order, from `from` to `to` inclusive.
@@ -88,7 +90,7 @@ class Store {
   int schema_version_ = 0;
   Stmt begin_, commit_, rollback_, savepoint_, release_, rollback_to_;
   Stmt insert_series_, insert_checkpoint_, update_state_, update_checkpoint_, load_checkpoint_;
-  Stmt put_actual_, get_actual_, actuals_, drop_actuals_, drop_adjustments_;
+  Stmt put_actual_, get_actual_, oldest_actual_, actuals_, drop_actuals_, drop_adjustments_;
   Stmt put_adjustment_, adjustments_, audit_;
 };
 
