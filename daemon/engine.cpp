@@ -370,8 +370,19 @@ void Engine::ApplyBatch(Pending& p) {
     Fail("store: savepoint: " + store_.error());
     return;
   }
-  std::vector<char> touched(series_.size(), 0);
+  // Per-series "touched in this batch" flags live across batches (no allocation per batch);
+  // they are cleared through the list when the batch is done.
+  std::vector<char>& touched = touched_;
+  if (touched.size() < series_.size()) touched.resize(series_.size(), 0);
   std::vector<std::size_t> touched_list;
+  struct ClearTouched {
+    std::vector<char>& flags;
+    std::vector<std::size_t>& list;
+    ~ClearTouched() {
+      for (std::size_t i : list)
+        if (i < flags.size()) flags[i] = 0;
+    }
+  } clear_touched{touched, touched_list};
   std::vector<char> series_failed;
   std::unordered_map<std::string, bool> bad_series;
   bool store_failed = false;
@@ -440,7 +451,8 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     index = series_.size();
     series_.push_back(std::move(s));
     index_.Insert(series_.back().key, index);
-    touched.push_back(1);
+    if (touched.size() <= index) touched.resize(index + 1, 0);
+    touched[index] = 1;
     touched_list.push_back(index);
     ++p.reply.counts.new_series;
   } else {

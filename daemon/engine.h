@@ -195,6 +195,7 @@ class Engine {
   SeriesIndex<KeyOf> index_{KeyOf{&series_}};
   std::unordered_map<std::string, std::int64_t> last_arrival_;
   std::vector<char> dirty_;               // per series: state not yet written
+  std::vector<char> touched_;             // per series: changed by the batch being applied
   std::size_t dirty_count_ = 0;
   std::int64_t last_flush_ms_ = 0;
   long recovered_ = 0;
