@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <chrono>
+#include <nlohmann/json.hpp>
 #include <cmath>
 
 namespace forewarden {
@@ -10,29 +11,12 @@ namespace {
 constexpr std::size_t kMaxProblems = 100;
 constexpr std::size_t kMaxGroup = 64;  // batches committed together at most
 
+// Canonical JSON text of a label set (keys sorted, so equal sets intern to one string;
+// invalid UTF-8 is replaced rather than refused).
 std::string LabelsJson(const Labels& labels) {
-  std::string out = "{";
-  for (std::size_t i = 0; i < labels.size(); ++i) {
-    if (i) out += ',';
-    for (const std::string* s : {&labels[i].first, &labels[i].second}) {
-      out += '"';
-      for (char c : *s) {
-        if (c == '"' || c == '\\') {
-          out += '\\';
-          out += c;
-        } else if (static_cast<unsigned char>(c) < 0x20) {
-          char buf[8];
-          std::snprintf(buf, sizeof buf, "\\u%04x", c);
-          out += buf;
-        } else {
-          out += c;
-        }
-      }
-      out += '"';
-      if (s == &labels[i].first) out += ':';
-    }
-  }
-  return out + "}";
+  nlohmann::json j = nlohmann::json::object();
+  for (const auto& [name, value] : labels) j[name] = value;
+  return j.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
 }
 
 // Whether a stored state can run under a policy (reloads and restarts must not change a
@@ -53,6 +37,22 @@ void FitConstants(monitors::SeriesState& s, const config::Policy& p) {
   s.constants.beta = spec.constants.beta;
   s.constants.phi = spec.constants.phi;
   s.constants.gamma = spec.constants.gamma;
+}
+
+// A re-level (README, reset): the level takes the new value; the smoothed and cumulative errors
+// start again from zero.
+void Relevel(monitors::SeriesState& s, double level) {
+  s.model.level = level;
+  s.stats.smoothed_error = 0.0;
+  s.stats.cusum = 0.0;
+}
+
+// Applies the re-levels recorded right after the actual of `period` (adjustments in period
+// order; `next` walks through them).
+void ApplyAdjustments(monitors::SeriesState& s, const std::vector<Adjustment>& adjustments,
+                      std::size_t& next, std::int64_t period) {
+  for (; next < adjustments.size() && adjustments[next].period <= period; ++next)
+    if (adjustments[next].period == period) Relevel(s, adjustments[next].level);
 }
 
 void FitRules(monitors::SeriesState& s, const config::Policy& p) {
@@ -340,10 +340,7 @@ void Engine::Run() {
       const std::int64_t now = clock_();
       for (const Pending& p : pending)
         if (p.reply.status == IngestReply::Status::kOk)
-          for (const IngestRow& row : p.job.rows) {
-            const long pos = index_.Find(row.series);
-            if (pos >= 0) last_arrival_[series_[static_cast<std::size_t>(pos)].policy->name] = now;
-          }
+          for (const config::Policy* policy : p.policies) last_arrival_[policy->name] = now;
     }
     for (Pending& p : pending) p.job.done(std::move(p.reply));
   }
@@ -469,6 +466,9 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   const monitors::PeriodParse period = monitors::ParsePeriod(policy.period, row.period);
   if (!period.ok()) return problem("period", period.error);
   if (!std::isfinite(row.value)) return problem("value", "the value is not a finite number");
+  // an actual for the policy arrived (new, duplicate or restated): the feed is alive
+  if (std::find(p.policies.begin(), p.policies.end(), &policy) == p.policies.end())
+    p.policies.push_back(&policy);
 
   if (!s.state.seen || period.ordinal > s.state.last_period) {
     monitors::StepResult r;
@@ -546,14 +546,7 @@ bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::Serie
     if (monitors::Step(spec, state, a.period, a.value, r) != monitors::StepStatus::kOk)
       return false;
     if (rows) rows->push_back({a.period, a.value, true, r});
-    while (next_adj < adjustments.size() && adjustments[next_adj].period <= a.period) {
-      if (adjustments[next_adj].period == a.period) {
-        state.model.level = adjustments[next_adj].level;
-        state.stats.smoothed_error = 0.0;
-        state.stats.cusum = 0.0;
-      }
-      ++next_adj;
-    }
+    ApplyAdjustments(state, adjustments, next_adj, a.period);
   }
   out = std::move(state);
   return true;
@@ -582,14 +575,7 @@ bool Engine::Trim(Series& s, bool& trimmed) {
       Fail("series '" + std::string(s.key) + "': its retained actuals cannot be replayed into the checkpoint");
       return false;
     }
-    while (next_adj < adjustments.size() && adjustments[next_adj].period <= actuals[i].period) {
-      if (adjustments[next_adj].period == actuals[i].period) {
-        checkpoint.model.level = adjustments[next_adj].level;
-        checkpoint.stats.smoothed_error = 0.0;
-        checkpoint.stats.cusum = 0.0;
-      }
-      ++next_adj;
-    }
+    ApplyAdjustments(checkpoint, adjustments, next_adj, actuals[i].period);
   }
   if (!store_.UpdateCheckpoint(s.id, checkpoint) || !store_.DropBefore(s.id, actuals[drop].period))
     return false;
@@ -701,9 +687,7 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
     return false;
   }
   monitors::SeriesState next = s.state;
-  next.model.level = new_level;
-  next.stats.smoothed_error = 0.0;
-  next.stats.cusum = 0.0;
+  Relevel(next, new_level);
   if (!store_.UpdateState(s.id, next) || !store_.Commit()) {
     Fail("store: " + store_.error());
     store_.Rollback();

@@ -164,6 +164,7 @@ class Engine {
     std::vector<Undo> undo;
     std::size_t series_before = 0;
     std::unordered_set<std::size_t> must_write;  // restated series: state written with the batch
+    std::vector<const config::Policy*> policies;  // that received new actuals (a few)
   };
 
   void Run();

@@ -88,6 +88,15 @@ def test_ingest_then_query():
         assert detail["lower"] < detail["forecast"] < detail["upper"], detail
         status, body, _ = s.request("GET", "/v1/policies")
         assert [p["series"] for p in body["policies"]] == [2, 1], body
+        assert all(p["last_actual_at"] for p in body["policies"]), body
+        # labels travel with NDJSON and can be filtered on
+        status, _, _ = s.request("POST", "/v1/actuals",
+                                 '{"series":"w/l","period":"%s","value":3,"labels":{"channel":"web"}}\n'
+                                 % week(0), "application/x-ndjson")
+        assert status == 200
+        status, body, _ = s.request("GET", "/v1/series?label=channel:web")
+        assert [x["key"] for x in body["series"]] == ["w/l"], body
+        assert s.request("GET", "/v1/series/w/l")[1]["labels"] == {"channel": "web"}
         for key in ("w/a", "w/b", "s/c"):
             got = assert_matches_replay(s, key, text)
             assert len(got) == 12  # history 8 + lazy trimming slack
