@@ -65,7 +65,9 @@ void FitRules(monitors::SeriesState& s, const config::Policy& p) {
 }  // namespace
 
 Engine::Engine(std::shared_ptr<const config::Settings> settings, Clock clock)
-    : settings_(std::move(settings)), clock_(std::move(clock)) {}
+    : settings_(std::move(settings)),
+      queue_depth_(static_cast<std::size_t>(settings_->server.queue_depth)),
+      clock_(std::move(clock)) {}
 
 Engine::~Engine() { Stop(); }
 
@@ -215,8 +217,7 @@ void Engine::ClearDirty() {
 bool Engine::Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)> done) {
   {
     std::lock_guard lock(mu_);
-    if (stopping_ || queue_.size() >= static_cast<std::size_t>(settings_->server.queue_depth))
-      return false;
+    if (stopping_ || queue_.size() >= queue_depth_) return false;
     Job job;
     job.rows = std::move(rows);
     job.done = std::move(done);
@@ -229,8 +230,7 @@ bool Engine::Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)
 bool Engine::Post(std::function<void()> read) {
   {
     std::lock_guard lock(mu_);
-    if (stopping_ || queue_.size() >= static_cast<std::size_t>(settings_->server.queue_depth))
-      return false;
+    if (stopping_ || queue_.size() >= queue_depth_) return false;
     Job job;
     job.read = std::move(read);
     queue_.push_back(std::move(job));

@@ -181,7 +181,8 @@ class Engine {
   bool IsStale(const Series& s) const;
   SeriesView View(const Series& s) const;
 
-  std::shared_ptr<const config::Settings> settings_;
+  std::shared_ptr<const config::Settings> settings_;  // engine thread only after Start
+  const std::size_t queue_depth_;                       // read by Submit/Post on any thread
   Clock clock_;
   Store store_;
   struct KeyOf {

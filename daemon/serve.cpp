@@ -1,5 +1,6 @@
 #include "daemon/serve.h"
 
+#include <atomic>
 #include <chrono>
 #include <csignal>
 #include <cstdlib>
@@ -155,7 +156,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
       return 1;
     }
   }
-  long reloads_ok = 0, reloads_failed = 0;
+  std::atomic<long> reloads_ok{0}, reloads_failed{0};  // server and engine threads count them
   bool stopping = false;
   const std::chrono::seconds grace(srv.shutdown_grace_seconds);
   server.OnSignals([&](int signo) {
