@@ -177,22 +177,29 @@ TEST_CASE("history is recomputed by the same step, and a reset re-levels and is 
   std::vector<IngestRow> rows;
   for (int t = 0; t < 5; ++t) rows.push_back(Row("z/a", 3000 + t, 10 + t));
   REQUIRE(SubmitAndWait(e, rows).status == IngestReply::Status::kOk);
+  // Catch's assertions stay on the test thread: the engine job only collects what to check.
+  std::vector<forewarden::HistoryRow> h;
+  bool history_ok = false, reset_ok = false, missing_reset = true, not_found = false;
+  double level = 0, live_level = 0, live_cusum = -1;
   OnEngine(e, [&] {
-    std::vector<forewarden::HistoryRow> h;
-    REQUIRE(e.History("z/a", 3001, 3003, h, error));
-    REQUIRE(h.size() == 3);
-    CHECK(h[0].period == 3001);
-    CHECK(h[0].result.forecast == 10.0);
-    CHECK(h[1].result.forecast == Approx(10 + 0.3 * 1));
-    double level = 0;
-    bool not_found = false;
-    REQUIRE(e.Reset("z/a", "mean", 0, 2, "planner-7", "store refit", level, not_found, error));
-    CHECK(level == 13.5);
-    CHECK(e.FindSeries("z/a")->state->model.level == 13.5);
-    CHECK(e.FindSeries("z/a")->state->stats.cusum == 0.0);
-    CHECK_FALSE(e.Reset("nope", "last", 0, 1, "x", "", level, not_found, error));
-    CHECK(not_found);
+    history_ok = e.History("z/a", 3001, 3003, h, error);
+    reset_ok = e.Reset("z/a", "mean", 0, 2, "planner-7", "store refit", level, not_found, error);
+    live_level = e.FindSeries("z/a")->state->model.level;
+    live_cusum = e.FindSeries("z/a")->state->stats.cusum;
+    double ignored = 0;
+    missing_reset = e.Reset("nope", "last", 0, 1, "x", "", ignored, not_found, error);
   });
+  REQUIRE(history_ok);
+  REQUIRE(h.size() == 3);
+  CHECK(h[0].period == 3001);
+  CHECK(h[0].result.forecast == 10.0);
+  CHECK(h[1].result.forecast == Approx(10 + 0.3 * 1));
+  REQUIRE(reset_ok);
+  CHECK(level == 13.5);
+  CHECK(live_level == 13.5);
+  CHECK(live_cusum == 0.0);
+  CHECK_FALSE(missing_reset);
+  CHECK(not_found);
   // a later restatement keeps the re-level (adjustments replay with the history)
   REQUIRE(SubmitAndWait(e, {Row("z/a", 3005, 20)}).status == IngestReply::Status::kOk);
   const std::string live = EngineState(e, "z/a");
