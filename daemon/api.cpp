@@ -288,31 +288,45 @@ void Api::Handle(HttpRequest&& request, Respond respond) {
       label_value = label.substr(colon + 1);
     }
     const bool queued = engine_.Post([=, this] {
-      std::vector<json> rows;
+      // Filter and sort light entries; JSON is built for the requested page only.
+      struct Entry {
+        SeriesView view;
+        double order;  // |signal| (-1 when undefined) for sort=trigg|cusum
+      };
+      std::vector<Entry> rows;
+      std::unordered_map<const char*, bool> label_match;  // label sets are interned: one parse each
       engine_.ForEachSeries([&](const SeriesView& v) {
         if (!policy.empty() && v.policy != policy) return;
         if (!status.empty() && Status(v) != status) return;
         if (!label_name.empty()) {
-          json labels = json::parse(v.labels, nullptr, false);
-          auto it = labels.find(label_name);
-          if (it == labels.end() || *it != label_value) return;
+          auto cached = label_match.find(v.labels.data());
+          if (cached == label_match.end()) {
+            json labels = json::parse(v.labels, nullptr, false);
+            auto it = labels.is_object() ? labels.find(label_name) : labels.end();
+            const bool ok = labels.is_object() && it != labels.end() && *it == label_value;
+            cached = label_match.emplace(v.labels.data(), ok).first;
+          }
+          if (!cached->second) return;
         }
-        rows.push_back(SeriesSummary(v));
+        double order = -1;
+        if (sort != "key") {
+          const std::optional<double> sig = Signal(v, sort == "trigg");
+          if (sig) order = std::fabs(*sig);
+        }
+        rows.push_back({v, order});
       });
-      if (sort != "key") {
-        const char* field = sort == "trigg" ? "trigg_signal" : "cusum_signal";
-        std::stable_sort(rows.begin(), rows.end(), [field](const json& a, const json& b) {
-          const double x = a[field].is_number() ? std::fabs(a[field].get<double>()) : -1;
-          const double y = b[field].is_number() ? std::fabs(b[field].get<double>()) : -1;
-          return x > y;
-        });
-      } else {
-        std::sort(rows.begin(), rows.end(),
-                  [](const json& a, const json& b) { return a["key"] < b["key"]; });
-      }
+      auto before = [&](const Entry& a, const Entry& b) {
+        if (sort != "key" && a.order != b.order) return a.order > b.order;
+        return a.view.key < b.view.key;
+      };
+      const std::size_t end = std::min(rows.size(), static_cast<std::size_t>(offset + limit));
+      if (end < rows.size())
+        std::partial_sort(rows.begin(), rows.begin() + static_cast<long>(end), rows.end(), before);
+      else
+        std::sort(rows.begin(), rows.end(), before);
       json page = json::array();
-      for (long i = offset; i < static_cast<long>(rows.size()) && i < offset + limit; ++i)
-        page.push_back(std::move(rows[static_cast<std::size_t>(i)]));
+      for (std::size_t i = static_cast<std::size_t>(offset); i < end; ++i)
+        page.push_back(SeriesSummary(rows[i].view));
       respond(Json(200, {{"total", rows.size()}, {"offset", offset}, {"limit", limit}, {"series", page}}));
     });
     if (!queued) respond(Error(503, "the engine is busy; retry later"));

@@ -81,6 +81,13 @@ def test_ingest_then_query():
         assert body["applied"] == 36 and body["new_series"] == 3, body
         status, body, _ = s.request("GET", "/v1/series?sort=trigg&limit=2")
         assert status == 200 and body["total"] == 3 and len(body["series"]) == 2, body
+        status, whole, _ = s.request("GET", "/v1/series?sort=cusum")
+        signals = [abs(x["cusum_signal"]) for x in whole["series"]]
+        assert signals == sorted(signals, reverse=True), whole
+        status, second, _ = s.request("GET", "/v1/series?sort=cusum&offset=1&limit=1")
+        assert second["series"] == whole["series"][1:2], (second, whole)
+        status, by_key, _ = s.request("GET", "/v1/series")
+        assert [x["key"] for x in by_key["series"]] == ["s/c", "w/a", "w/b"], by_key
         status, body, _ = s.request("GET", "/v1/series?policy=skipping")
         assert [x["key"] for x in body["series"]] == ["s/c"], body
         status, detail, _ = s.request("GET", "/v1/series/w/a")
