@@ -380,7 +380,6 @@ void Engine::ApplyBatch(Pending& p) {
         if (i < flags.size()) flags[i] = 0;
     }
   } clear_touched{touched, touched_list};
-  std::vector<char> series_failed;
   std::unordered_map<std::string, bool> bad_series;
   bool store_failed = false;
   for (const IngestRow& row : p.job.rows) {
@@ -522,9 +521,9 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   return true;
 }
 
-bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out) {
-  monitors::SeriesState state;
-  std::vector<StoredActual> actuals;
+bool Engine::ReplayCheckpoint(const Series& s, std::size_t leave_last,
+                              std::vector<StoredActual>& actuals, monitors::SeriesState& state,
+                              std::vector<HistoryRow>* rows) {
   std::vector<Adjustment> adjustments;
   if (!store_.LoadCheckpoint(s.id, state) ||
       !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) ||
@@ -534,20 +533,28 @@ bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::Serie
   }
   FitRules(state, *s.policy);
   FitConstants(state, *s.policy);
-  const monitors::PolicySpec& spec = s.policy->spec;
+  const std::size_t count = actuals.size() > leave_last ? actuals.size() - leave_last : 0;
   std::size_t next_adj = 0;
-  for (const StoredActual& a : actuals) {
+  for (std::size_t i = 0; i < count; ++i) {
+    const StoredActual& a = actuals[i];
     monitors::StepResult r;
     if (rows && state.seen) {
       // report the gap periods this step will fill, as the chart shows them
       for (std::int64_t g = state.last_period + 1; g < a.period; ++g)
         rows->push_back({g, 0.0, false, {}});
     }
-    if (monitors::Step(spec, state, a.period, a.value, r) != monitors::StepStatus::kOk)
+    if (monitors::Step(s.policy->spec, state, a.period, a.value, r) != monitors::StepStatus::kOk)
       return false;
     if (rows) rows->push_back({a.period, a.value, true, r});
     ApplyAdjustments(state, adjustments, next_adj, a.period);
   }
+  return true;
+}
+
+bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out) {
+  std::vector<StoredActual> actuals;
+  monitors::SeriesState state;
+  if (!ReplayCheckpoint(s, 0, actuals, state, rows)) return false;
   out = std::move(state);
   return true;
 }
@@ -558,57 +565,47 @@ bool Engine::Trim(Series& s, bool& trimmed) {
   const std::int64_t slack = std::max<std::int64_t>(8, keep / 4);
   if (s.retained <= keep + slack) return true;
   trimmed = true;
-  monitors::SeriesState checkpoint;
+  // The checkpoint moves past all but the newest `keep` actuals, which are then dropped.
   std::vector<StoredActual> actuals;
-  std::vector<Adjustment> adjustments;
-  if (!store_.LoadCheckpoint(s.id, checkpoint) ||
-      !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) || !store_.Adjustments(s.id, adjustments))
+  monitors::SeriesState checkpoint;
+  if (!ReplayCheckpoint(s, static_cast<std::size_t>(keep), actuals, checkpoint, nullptr)) {
+    Fail("series '" + std::string(s.key) + "': its retained actuals cannot be replayed into the checkpoint");
     return false;
-  FitRules(checkpoint, *s.policy);
-  FitConstants(checkpoint, *s.policy);
-  const std::size_t drop = actuals.size() - static_cast<std::size_t>(keep);
-  std::size_t next_adj = 0;
-  monitors::StepResult r;
-  for (std::size_t i = 0; i < drop; ++i) {
-    if (monitors::Step(s.policy->spec, checkpoint, actuals[i].period, actuals[i].value, r) !=
-        monitors::StepStatus::kOk) {
-      Fail("series '" + std::string(s.key) + "': its retained actuals cannot be replayed into the checkpoint");
-      return false;
-    }
-    ApplyAdjustments(checkpoint, adjustments, next_adj, actuals[i].period);
   }
-  if (!store_.UpdateCheckpoint(s.id, checkpoint) || !store_.DropBefore(s.id, actuals[drop].period))
+  const std::size_t first_kept = actuals.size() - static_cast<std::size_t>(keep);
+  if (!store_.UpdateCheckpoint(s.id, checkpoint) ||
+      !store_.DropBefore(s.id, actuals[first_kept].period))
     return false;
   s.retained = static_cast<std::int32_t>(keep);
   return true;
 }
 
-bool Engine::IsStale(const Series& s) const {
-  if (!s.state.seen) return false;
-  std::int64_t days = clock_() / 86400000;
-  if (clock_() < 0) days -= 1;
-  int y, m, d;
-  monitors::CivilFromDays(days, y, m, d);
-  char today[16];
-  std::snprintf(today, sizeof today, "%04d-%02d-%02d", y, m, d);
-  const monitors::PeriodParse now = monitors::ParsePeriod(s.policy->period, today);
-  if (!now.ok()) return false;
-  // Periods that have ended since the last actual without one of their own.
-  return now.ordinal - s.state.last_period - 1 >= s.policy->stale_after;
+std::int64_t Engine::Today() const {
+  const std::int64_t ms = clock_();
+  return ms >= 0 ? ms / 86400000 : -((-ms + 86399999) / 86400000);
 }
 
-SeriesView Engine::View(const Series& s) const {
-  return SeriesView{s.key, s.policy->name, label_sets_[s.labels], &s.state, s.policy, IsStale(s)};
+bool Engine::IsStale(const Series& s, std::int64_t today) const {
+  if (!s.state.seen) return false;
+  // Periods that have ended since the last actual without one of their own.
+  const monitors::PeriodOrdinal now = monitors::PeriodOfDay(s.policy->period, today);
+  return now - s.state.last_period - 1 >= s.policy->stale_after;
+}
+
+SeriesView Engine::View(const Series& s, std::int64_t today) const {
+  return SeriesView{s.key, s.policy->name, label_sets_[s.labels], &s.state, s.policy,
+                    IsStale(s, today)};
 }
 
 void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {
-  for (std::size_t i = 0; i < series_.size(); ++i) each(View(series_[i]));
+  const std::int64_t today = Today();
+  for (std::size_t i = 0; i < series_.size(); ++i) each(View(series_[i], today));
 }
 
 std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {
   const long pos = index_.Find(key);
   if (pos < 0) return std::nullopt;
-  return View(series_[static_cast<std::size_t>(pos)]);
+  return View(series_[static_cast<std::size_t>(pos)], Today());
 }
 
 bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,

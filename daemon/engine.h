@@ -178,8 +178,14 @@ class Engine {
   void ClearDirty();
   void Rewind(Pending& p);
   void Fail(const std::string& why);
-  bool IsStale(const Series& s) const;
-  SeriesView View(const Series& s) const;
+  std::int64_t Today() const;  // days since 1970-01-01 by the clock
+  bool IsStale(const Series& s, std::int64_t today) const;
+  SeriesView View(const Series& s, std::int64_t today) const;
+  // Loads the checkpoint and runs all but the newest `leave_last` retained actuals through the
+  // step, applying re-levels; `actuals` gets every retained actual. False on a store failure
+  // (recorded) or when an actual does not step.
+  bool ReplayCheckpoint(const Series& s, std::size_t leave_last, std::vector<StoredActual>& actuals,
+                        monitors::SeriesState& state, std::vector<HistoryRow>* rows);
 
   std::shared_ptr<const config::Settings> settings_;  // engine thread only after Start
   const std::size_t queue_depth_;                       // read by Submit/Post on any thread

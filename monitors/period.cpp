@@ -137,12 +137,21 @@ PeriodParse ParsePeriod(PeriodKind kind, std::string_view text) {
   }
 
   PeriodParse p;
-  switch (kind) {
-    case PeriodKind::kDay: p.ordinal = DaysFromCivil(year, month, day); break;
-    case PeriodKind::kWeek: p.ordinal = WeekOrdinalOfDay(DaysFromCivil(year, month, day)); break;
-    case PeriodKind::kMonth: p.ordinal = static_cast<PeriodOrdinal>(year) * 12 + (month - 1); break;
-  }
+  p.ordinal = PeriodOfDay(kind, DaysFromCivil(year, month, day));
   return p;
+}
+
+PeriodOrdinal PeriodOfDay(PeriodKind kind, std::int64_t days) {
+  switch (kind) {
+    case PeriodKind::kDay: return days;
+    case PeriodKind::kWeek: return WeekOrdinalOfDay(days);
+    case PeriodKind::kMonth: {
+      int y, m, d;
+      CivilFromDays(days, y, m, d);
+      return static_cast<PeriodOrdinal>(y) * 12 + (m - 1);
+    }
+  }
+  return days;
 }
 
 int FormatPeriodTo(PeriodKind kind, PeriodOrdinal ordinal, char* out) {

@@ -36,6 +36,9 @@ struct PeriodParse {
 // Years 1..9999.
 PeriodParse ParsePeriod(PeriodKind kind, std::string_view text);
 
+// The period of a kind that holds a day (days since 1970-01-01).
+PeriodOrdinal PeriodOfDay(PeriodKind kind, std::int64_t days);
+
 // The ISO date (YYYY-MM-DD) of the period's first day.
 std::string FormatPeriod(PeriodKind kind, PeriodOrdinal ordinal);
 

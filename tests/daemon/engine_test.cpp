@@ -208,3 +208,25 @@ TEST_CASE("history is recomputed by the same step, and a reset re-levels and is 
   REQUIRE(SubmitAndWait(e, {Row("z/a", 3003, 13.0)}).counts.restated == 1);
   CHECK(EngineState(e, "z/a") == live);
 }
+
+TEST_CASE("a series is stale once stale_after whole periods have ended without an actual", "[integration]") {
+  TempDir dir;
+  auto settings = Settings(dir.File("data"));  // policy "zero": weekly, stale_after 2 (default)
+  std::int64_t now_ms = 0;
+  Engine e(settings, [&] { return now_ms; });
+  std::string error;
+  REQUIRE(e.Start(error));
+  REQUIRE(SubmitAndWait(e, {Row("z/a", 3000, 5)}).status == IngestReply::Status::kOk);
+  auto stale_on = [&](std::int64_t day) {
+    now_ms = day * 86400000 + 3600000;
+    bool stale = false;
+    OnEngine(e, [&] { stale = e.FindSeries("z/a")->stale; });
+    return stale;
+  };
+  const std::int64_t monday = monitors::DaysFromCivil(1969, 12, 29) + 3000 * 7;  // week 3000
+  CHECK_FALSE(stale_on(monday + 7 * 2));  // one week ended without its actual
+  CHECK(stale_on(monday + 7 * 3));        // two weeks ended
+  CHECK(monitors::FormatPeriod(monitors::PeriodKind::kWeek, 3000) ==
+        monitors::FormatPeriod(monitors::PeriodKind::kDay, monday));
+  CHECK_FALSE(stale_on(monday + 7 * 3 - 1));  // the second week's last day: not ended yet
+}
