@@ -1,5 +1,7 @@
 #include "config/load.h"
 
+#include "monitors/calibrate.h"
+
 #include <yaml-cpp/yaml.h>
 
 #include <cmath>
@@ -206,61 +208,133 @@ void ReadStart(Reader& r, const YAML::Node& n, const std::string& path,
   }
 }
 
+// Rule keys; the calibrated limit (false_alert_every) is derived later, in ReadPolicy, when
+// the policy's method and constants are known. `every` and `clear_fraction` return the budget.
 void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors::RuleSpec& rule,
-              bool& ok) {
+              double& every, double& clear_fraction, bool& ok) {
+  using monitors::SignalKind;
   ok = false;
+  every = 0.0;
+  clear_fraction = 1.0;
   if (!n.IsMap()) {
     r.Add(n, path, "a rule must be a map with name, signal and limit");
     return;
   }
   const std::size_t before = r.problems().size();
   r.CheckKeys(n, path,
-              {"name", "signal", "limit", "clear", "persistence", "direction", "severity"});
+              {"name", "signal", "limit", "false_alert_every", "clear", "clear_fraction",
+               "persistence", "direction", "severity", "periods", "escalate_limit",
+               "escalate_severity", "resolve_after"});
   if (!n["name"].IsDefined())
     r.Add(n, path, "a rule needs a 'name'");
   else
     r.String(n["name"], path + ".name", rule.name);
+  static const char* kSignals = "trigg, cusum, error, bias, accuracy, alpha_at_cap or stale";
   std::string text;
   if (!n["signal"].IsDefined()) {
-    r.Add(n, path, "a rule needs a 'signal' (trigg, cusum or error)");
+    r.Add(n, path, std::string("a rule needs a 'signal' (") + kSignals + ")");
+    return;
   } else if (r.String(n["signal"], path + ".signal", text)) {
     auto s = monitors::ParseSignalKind(text);
-    if (!s)
-      r.Add(n["signal"], path + ".signal", "must be trigg, cusum or error, got '" + text + "'");
-    else
-      rule.signal = *s;
+    if (!s) {
+      r.Add(n["signal"], path + ".signal", std::string("must be ") + kSignals + ", got '" + text + "'");
+      return;
+    }
+    rule.signal = *s;
   }
-  if (!n["limit"].IsDefined()) {
-    r.Add(n, path, "a rule needs a 'limit'");
-  } else if (rule.signal == monitors::SignalKind::kTrigg) {
-    r.Range(n, "limit", path, rule.limit, 0.0, true, 1.0, true);
+  const SignalKind sig = rule.signal;
+  const bool windowed = sig == SignalKind::kBias || sig == SignalKind::kAccuracy ||
+                        sig == SignalKind::kAlphaAtCap || sig == SignalKind::kStale;
+  long periods = 0;
+  if (windowed) {
+    if (!n["periods"].IsDefined())
+      r.Add(n, path, std::string("a ") + text + " rule needs 'periods' (" +
+                         (sig == SignalKind::kStale         ? "periods past due"
+                          : sig == SignalKind::kAlphaAtCap ? "periods at the cap"
+                                                           : "periods averaged") +
+                         ")");
+    r.Int(n, "periods", path, periods, 1, 1000);
+  } else if (n["periods"].IsDefined()) {
+    r.Add(n["periods"], path + ".periods", "only bias, accuracy, alpha_at_cap and stale rules take 'periods'");
+  }
+  const bool takes_limit = sig != SignalKind::kAlphaAtCap && sig != SignalKind::kStale;
+  const bool calibrated = n["false_alert_every"].IsDefined();
+  if (!takes_limit) {
+    for (const char* key : {"limit", "false_alert_every", "clear", "clear_fraction", "escalate_limit"})
+      if (n[key].IsDefined())
+        r.Add(n[key], Reader::Join(path, key),
+              std::string("a ") + text + " rule takes 'periods', not '" + key + "'");
+  } else if (calibrated) {
+    if (n["limit"].IsDefined())
+      r.Add(n["limit"], path + ".limit", "give either 'limit' or 'false_alert_every', not both");
+    if (n["clear"].IsDefined())
+      r.Add(n["clear"], path + ".clear", "with 'false_alert_every' the clear level is 'clear_fraction' of the derived limit");
+    r.Range(n, "false_alert_every", path, every, 2.0, false, 100000.0, false);
+    r.Range(n, "clear_fraction", path, clear_fraction, 0.0, true, 1.0, false);
   } else {
-    r.Range(n, "limit", path, rule.limit, 0.0, true, 1e6, false);
+    if (!n["limit"].IsDefined()) {
+      r.Add(n, path, "a rule needs a 'limit' or a 'false_alert_every' budget");
+    } else if (sig == SignalKind::kTrigg) {
+      r.Range(n, "limit", path, rule.limit, 0.0, true, 1.0, true);
+    } else {
+      r.Range(n, "limit", path, rule.limit, 0.0, true, 1e6, false);
+    }
+    if (n["clear_fraction"].IsDefined())
+      r.Add(n["clear_fraction"], path + ".clear_fraction", "'clear_fraction' goes with 'false_alert_every'; give 'clear'");
+    rule.clear = rule.limit;
+    r.Range(n, "clear", path, rule.clear, 0.0, false, 1e6, false);
+    if (rule.clear > rule.limit && n["clear"].IsDefined())
+      r.Add(n["clear"], path + ".clear", "must not exceed the limit (it is the level below which "
+                                         "the rule stops holding)");
   }
-  rule.clear = rule.limit;
-  r.Range(n, "clear", path, rule.clear, 0.0, false, 1e6, false);
-  if (rule.clear > rule.limit && n["clear"].IsDefined())
-    r.Add(n["clear"], path + ".clear", "must not exceed the limit (it is the level below which "
-                                       "the rule stops holding)");
   long persistence = 1;
   r.Int(n, "persistence", path, persistence, 1, 10000);
   rule.persistence = static_cast<int>(persistence);
+  if (sig == SignalKind::kAlphaAtCap) {
+    if (n["persistence"].IsDefined())
+      r.Add(n["persistence"], path + ".persistence", "an alpha_at_cap rule counts its 'periods'");
+    rule.limit = rule.clear = 0.5;  // the signal is 1 at the cap, 0 below it
+    rule.persistence = static_cast<int>(periods);
+  } else if (sig == SignalKind::kStale) {
+    rule.limit = rule.clear = static_cast<double>(periods) - 0.5;  // at least `periods` past due
+  } else {
+    rule.periods = static_cast<int>(periods);
+  }
   if (n["direction"].IsDefined() && r.String(n["direction"], path + ".direction", text)) {
     auto d = monitors::ParseDirection(text);
     if (!d)
       r.Add(n["direction"], path + ".direction",
             "must be both, under-forecast or over-forecast, got '" + text + "'");
+    else if (*d != monitors::Direction::kBoth &&
+             (sig == SignalKind::kAccuracy || sig == SignalKind::kAlphaAtCap || sig == SignalKind::kStale))
+      r.Add(n["direction"], path + ".direction", "this signal has no direction; leave it out");
     else
       rule.direction = *d;
   }
-  if (n["severity"].IsDefined() && r.String(n["severity"], path + ".severity", text)) {
-    auto s = monitors::ParseSeverity(text);
-    if (!s)
-      r.Add(n["severity"], path + ".severity",
-            "must be info, warning or critical, got '" + text + "'");
-    else
-      rule.severity = *s;
+  for (auto [key, out] : {std::pair{"severity", &rule.severity},
+                          std::pair{"escalate_severity", &rule.escalate_severity}})
+    if (n[key].IsDefined() && r.String(n[key], Reader::Join(path, key), text)) {
+      auto s = monitors::ParseSeverity(text);
+      if (!s)
+        r.Add(n[key], Reader::Join(path, key), "must be info, warning or critical, got '" + text + "'");
+      else
+        *out = *s;
+    }
+  if (n["escalate_limit"].IsDefined() && takes_limit) {
+    double e = 0;
+    r.Range(n, "escalate_limit", path, e, 0.0, true, 1e6, false);
+    rule.escalate_limit = e;
+    if (!calibrated && e <= rule.limit)
+      r.Add(n["escalate_limit"], path + ".escalate_limit", "must be beyond the limit");
+    if (rule.escalate_severity <= rule.severity)
+      r.Add(n["escalate_limit"], path + ".escalate_limit",
+            "escalate_severity must be above the rule's severity");
+  } else if (n["escalate_severity"].IsDefined()) {
+    r.Add(n["escalate_severity"], path + ".escalate_severity", "goes with 'escalate_limit'");
   }
+  long resolve_after = 1;
+  r.Int(n, "resolve_after", path, resolve_after, 1, 10000);
+  rule.resolve_after = static_cast<int>(resolve_after);
   ok = r.problems().size() == before;
 }
 
@@ -432,22 +506,121 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       r.Add(rules, path + ".rules", "must be a list of rules");
     } else {
       std::set<std::string> names;
+      struct Budget {
+        std::size_t index;
+        std::size_t node;
+        double every, clear_fraction;
+      };
+      std::vector<Budget> budgets;
       for (std::size_t i = 0; i < rules.size(); ++i) {
         const std::string rp = path + ".rules[" + std::to_string(i) + "]";
         monitors::RuleSpec rule;
         bool ok = false;
-        ReadRule(r, rules[i], rp, rule, ok);
+        double every = 0, clear_fraction = 1;
+        ReadRule(r, rules[i], rp, rule, every, clear_fraction, ok);
         if (!ok) continue;
         if (!names.insert(rule.name).second) {
           r.Add(rules[i], rp + ".name", "rule name '" + rule.name + "' is used twice");
           continue;
         }
+        if (rule.signal == monitors::SignalKind::kAlphaAtCap && !s.adaptive.enabled)
+          r.Add(rules[i], rp, "an alpha_at_cap rule needs an adaptive policy");
+        if (every > 0) budgets.push_back({s.rules.size(), i, every, clear_fraction});
         s.rules.push_back(rule);
+      }
+      // Limits from budgets, once the method and constants are known (same inputs: cached).
+      for (const Budget& b : budgets) {
+        const std::string rp = path + ".rules[" + std::to_string(b.node) + "]";
+        const monitors::Calibration c =
+            monitors::CalibrateRule(s, b.index, b.every, b.clear_fraction);
+        monitors::RuleSpec& rule = s.rules[b.index];
+        if (!c.ok) {
+          r.Add(rules[b.node], rp, c.problem);
+          continue;
+        }
+        rule.limit = c.limit;
+        rule.clear = b.clear_fraction * c.limit;
+        if (rule.escalate_limit && *rule.escalate_limit <= rule.limit) {
+          std::ostringstream msg;
+          msg << "escalate_limit " << *rule.escalate_limit << " is not beyond the derived limit "
+              << rule.limit;
+          r.Add(rules[b.node]["escalate_limit"], rp + ".escalate_limit", msg.str());
+        }
+        p.calibrations.push_back({rule.name, b.every, c.limit, c.rate,
+                                  monitors::PeriodsPerWeek(p.period) / b.every});
       }
       if (rules.size() > monitors::kMaxRules)
         r.Add(rules, path + ".rules",
               "at most " + std::to_string(monitors::kMaxRules) + " rules per policy");
     }
+  }
+}
+
+void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
+  const std::string path = "alerts";
+  if (!n.IsMap()) {
+    r.Add(n, path, "must be a map");
+    return;
+  }
+  r.CheckKeys(n, path,
+              {"storm_threshold", "sinks", "max_attempts", "initial_backoff_seconds",
+               "max_backoff_seconds", "batch", "resend_seconds", "public_url"});
+  r.Int(n, "storm_threshold", path, a.storm_threshold, 0, 10000000);
+  r.Int(n, "max_attempts", path, a.max_attempts, 1, 1000000);
+  r.Range(n, "initial_backoff_seconds", path, a.initial_backoff_seconds, 0.0, true, 86400.0, false);
+  r.Range(n, "max_backoff_seconds", path, a.max_backoff_seconds, 0.0, true, 7 * 86400.0, false);
+  if (a.max_backoff_seconds < a.initial_backoff_seconds)
+    r.Add(n["max_backoff_seconds"], path + ".max_backoff_seconds",
+          "must not be below initial_backoff_seconds");
+  r.Int(n, "batch", path, a.batch, 1, 10000);
+  r.Int(n, "resend_seconds", path, a.resend_seconds, 1, 86400);
+  if (n["public_url"].IsDefined()) r.String(n["public_url"], path + ".public_url", a.public_url);
+  const YAML::Node sinks = n["sinks"];
+  if (!sinks.IsDefined()) return;
+  a.sinks.clear();
+  if (!sinks.IsSequence()) {
+    r.Add(sinks, path + ".sinks", "must be a list of sinks");
+    return;
+  }
+  std::set<std::string> names;
+  for (std::size_t i = 0; i < sinks.size(); ++i) {
+    const std::string sp = path + ".sinks[" + std::to_string(i) + "]";
+    const YAML::Node k = sinks[i];
+    if (!k.IsMap()) {
+      r.Add(k, sp, "a sink must be a map with name and type");
+      continue;
+    }
+    r.CheckKeys(k, sp, {"name", "type", "url", "secret_file", "secret_env", "timeout_seconds"});
+    Sink sink;
+    std::string type;
+    if (!k["name"].IsDefined()) r.Add(k, sp, "a sink needs a 'name'");
+    else r.String(k["name"], sp + ".name", sink.name);
+    if (!sink.name.empty() && !names.insert(sink.name).second)
+      r.Add(k["name"], sp + ".name", "sink name '" + sink.name + "' is used twice");
+    if (!k["type"].IsDefined()) {
+      r.Add(k, sp, "a sink needs a 'type' (webhook, alertmanager or log)");
+    } else if (r.String(k["type"], sp + ".type", type)) {
+      if (type == "webhook") sink.kind = Sink::Kind::kWebhook;
+      else if (type == "alertmanager") sink.kind = Sink::Kind::kAlertmanager;
+      else if (type == "log") sink.kind = Sink::Kind::kLog;
+      else r.Add(k["type"], sp + ".type", "must be webhook, alertmanager or log, got '" + type + "'");
+    }
+    for (auto [key, out] : {std::pair{"url", &sink.url}, std::pair{"secret_file", &sink.secret_file},
+                            std::pair{"secret_env", &sink.secret_env}})
+      if (k[key].IsDefined()) r.String(k[key], Reader::Join(sp, key), *out);
+    r.Int(k, "timeout_seconds", sp, sink.timeout_seconds, 1, 3600);
+    if (sink.kind != Sink::Kind::kLog) {
+      if (sink.url.rfind("http://", 0) != 0)
+        r.Add(k["url"].IsDefined() ? k["url"] : k, sp + ".url",
+              "needs an http:// URL (TLS is not built in: put a local TLS proxy in front)");
+    } else if (!sink.url.empty()) {
+      r.Add(k["url"], sp + ".url", "a log sink takes no url");
+    }
+    if (sink.kind != Sink::Kind::kWebhook && (!sink.secret_file.empty() || !sink.secret_env.empty()))
+      r.Add(k, sp, "only webhook sinks take a secret");
+    if (!sink.secret_file.empty() && !sink.secret_env.empty())
+      r.Add(k, sp, "give either secret_file or secret_env, not both");
+    a.sinks.push_back(std::move(sink));
   }
 }
 
@@ -522,8 +695,10 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
     result.problems = std::move(r.problems());
     return result;
   }
-  r.CheckKeys(root, "", {"policies", "server", "fallback_policy"});
+  r.CheckKeys(root, "", {"policies", "server", "fallback_policy", "alerts"});
   if (root["server"].IsDefined()) ReadServer(r, root["server"], result.settings.server);
+  result.settings.alerts.sinks = {Sink{"log", Sink::Kind::kLog, "", "", "", 10}};
+  if (root["alerts"].IsDefined()) ReadAlerts(r, root["alerts"], result.settings.alerts);
   if (root["fallback_policy"].IsDefined())
     r.String(root["fallback_policy"], "fallback_policy", result.settings.fallback_policy);
   const YAML::Node policies = root["policies"];

@@ -18,6 +18,15 @@ struct Match {
   std::vector<std::pair<std::string, std::string>> labels;
 };
 
+// A limit derived from a false-alarm budget (monitors/calibrate.h).
+struct RuleCalibration {
+  std::string rule;
+  double every = 0.0;           // periods per false alert per series, as configured
+  double limit = 0.0;           // derived
+  double rate = 0.0;            // episodes per period at that limit, in the simulation
+  double per_series_week = 0.0; // expected false alerts per series per week
+};
+
 struct Policy {
   std::string name;
   Match match;
@@ -25,6 +34,32 @@ struct Policy {
   monitors::PolicySpec spec;
   int history = 104;        // actuals kept per series for restatements and charts
   int stale_after = 2;      // periods an actual may be overdue before the series is stale
+  std::vector<RuleCalibration> calibrations;  // rules with a false_alert_every budget
+};
+
+// Where alert notifications go (`alerts.sinks`).
+struct Sink {
+  enum class Kind { kWebhook, kAlertmanager, kLog };
+  std::string name;
+  Kind kind = Kind::kLog;
+  std::string url;            // webhook: the endpoint; alertmanager: its base URL
+  std::string secret_file;    // webhook: HMAC-SHA256 key, read from this file...
+  std::string secret_env;     // ...or this environment variable
+  long timeout_seconds = 10;
+};
+
+// Alert lifecycle and delivery (`alerts:`); all optional.
+struct Alerts {
+  // More than this many series of one policy opening the same rule in one batch make one
+  // grouped notification instead of one each (0: never group).
+  long storm_threshold = 25;
+  std::vector<Sink> sinks;      // default: one log sink
+  long max_attempts = 20;       // deliveries of an event to a sink before it is dead-lettered
+  double initial_backoff_seconds = 1.0;
+  double max_backoff_seconds = 600.0;
+  long batch = 100;             // events sent in one round per sink
+  long resend_seconds = 60;     // alertmanager: open alerts are re-sent this often
+  std::string public_url;       // base URL of this service in notifications ("" = from listen)
 };
 
 enum class Synchronous { kFull, kNormal };
@@ -59,6 +94,7 @@ struct Settings {
   std::vector<Policy> policies;  // first match wins
   std::string fallback_policy;   // taken by series no policy matches ("" = reject them)
   Server server;
+  Alerts alerts;
 };
 
 // True when `key` matches the glob `pattern`.

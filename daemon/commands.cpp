@@ -2,6 +2,7 @@
 
 #include <cstdlib>
 #include <iostream>
+#include <cstdio>
 #include <map>
 #include <sstream>
 
@@ -113,12 +114,44 @@ int CheckConfig(const std::vector<std::string>& args, std::ostream& out, std::os
         << ", warmup " << s.warmup << ", gaps "
         << (s.gaps == monitors::GapRule::kZero ? "zero" : "skip") << ", coverage "
         << FormatNumber(s.coverage) << '\n';
-    for (const auto& r : s.rules)
-      out << "    rule " << r.name << ": " << monitors::SignalKindName(r.signal) << " beyond "
-          << FormatNumber(r.limit) << " (" << monitors::DirectionName(r.direction) << ") for "
-          << r.persistence << (r.persistence == 1 ? " period" : " periods") << ", clears within "
-          << FormatNumber(r.clear) << ", " << monitors::SeverityName(r.severity) << '\n';
+    for (const auto& r : s.rules) {
+      out << "    rule " << r.name << ": " << monitors::SignalKindName(r.signal);
+      if (r.signal == monitors::SignalKind::kStale) {
+        out << " after " << static_cast<int>(r.limit + 0.5) << " periods past due";
+      } else if (r.signal == monitors::SignalKind::kAlphaAtCap) {
+        out << " for " << r.persistence << " periods";
+      } else {
+        if (r.periods > 0) out << " over " << r.periods << " periods";
+        out << " beyond " << FormatNumber(r.limit) << " (" << monitors::DirectionName(r.direction)
+            << ") for " << r.persistence << (r.persistence == 1 ? " period" : " periods")
+            << ", clears within " << FormatNumber(r.clear);
+        if (r.escalate_limit)
+          out << ", " << monitors::SeverityName(r.escalate_severity) << " beyond "
+              << FormatNumber(*r.escalate_limit);
+      }
+      out << ", " << monitors::SeverityName(r.severity) << ", resolves after " << r.resolve_after
+          << (r.resolve_after == 1 ? " clear period" : " clear periods") << '\n';
+      for (const auto& c : p.calibrations)
+        if (c.rule == r.name) {
+          char line[200];
+          std::snprintf(line, sizeof line,
+                        "      limit derived for one false alert per %g periods: %.4g; expected "
+                        "%.3g false alerts per week per 1,000 in-control series\n",
+                        c.every, c.limit, 1000.0 * c.per_series_week);
+          out << line;
+        }
+    }
   }
+  const config::Alerts& a = settings.alerts;
+  out << "  alerts: " << a.sinks.size() << (a.sinks.size() == 1 ? " sink" : " sinks");
+  for (const auto& k : a.sinks)
+    out << ", " << k.name << " ("
+        << (k.kind == config::Sink::Kind::kWebhook        ? "webhook"
+            : k.kind == config::Sink::Kind::kAlertmanager ? "alertmanager"
+                                                          : "log")
+        << (k.url.empty() ? "" : " " + k.url)
+        << (k.secret_file.empty() && k.secret_env.empty() ? "" : ", signed") << ")";
+  out << "; storms of more than " << a.storm_threshold << " series grouped\n";
   return 0;
 }
 

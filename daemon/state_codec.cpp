@@ -6,8 +6,9 @@
 namespace forewarden {
 namespace {
 
-// 1: the first version (with the series' first period); 2: without it.
-constexpr std::uint8_t kVersion = 2;
+// 1: the first version (with the series' first period); 2: without it; 3: rule episodes
+// (quiet periods, open, escalated) and the bias/accuracy window.
+constexpr std::uint8_t kVersion = 3;
 
 class Writer {
  public:
@@ -77,9 +78,15 @@ std::string EncodeState(const monitors::SeriesState& s) {
   w.Put(static_cast<std::uint32_t>(s.rules.size()));
   for (const auto& r : s.rules) {
     w.Put<std::int32_t>(r.run);
-    w.Put<std::uint8_t>(r.active ? 1 : 0);
+    w.Put<std::uint8_t>(static_cast<std::uint8_t>((r.active ? 1 : 0) | (r.open ? 2 : 0) |
+                                                  (r.escalated ? 4 : 0)));
+    w.Put<std::uint16_t>(r.quiet);
   }
   w.Put<std::uint64_t>(s.active);
+  w.Put<std::uint16_t>(s.recent.capacity());
+  const std::vector<float> recent = s.recent.Values();
+  w.Put(static_cast<std::uint32_t>(recent.size()));
+  for (float v : recent) w.Put(v);
   return std::move(w.out);
 }
 
@@ -91,7 +98,7 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   std::int32_t season_length = 0;
   std::uint32_t nrules = 0;
   std::vector<double> window;
-  if (!r.Get(version) || (version != 1 && version != kVersion) || !r.Get(flags) ||
+  if (!r.Get(version) || version < 1 || version > kVersion || !r.Get(flags) ||
       (version == 1 && !r.Get(first)) || !r.Get(last) || !r.Get(next) || !r.Doubles(window) ||
       !r.Get(s.constants.alpha) ||
       !r.Get(s.constants.beta) || !r.Get(s.constants.phi) || !r.Get(s.constants.gamma) ||
@@ -104,12 +111,27 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   s.rules.resize(nrules);
   for (auto& rule : s.rules) {
     std::int32_t run = 0;
-    std::uint8_t active = 0;
-    if (!r.Get(run) || !r.Get(active) || run < 0 || run > UINT16_MAX) return false;
+    std::uint8_t bits = 0;
+    if (!r.Get(run) || !r.Get(bits) || run < 0 || run > UINT16_MAX) return false;
+    if (version >= 3 && !r.Get(rule.quiet)) return false;
     rule.run = static_cast<std::uint16_t>(run);
-    rule.active = active != 0;
+    rule.active = bits & 1;
+    // before version 3 a holding rule was its own episode
+    rule.open = version >= 3 ? (bits & 2) != 0 : rule.active;
+    rule.escalated = bits & 4;
   }
-  if (!r.Get(s.active) || !r.done()) return false;
+  if (!r.Get(s.active)) return false;
+  if (version >= 3) {
+    std::uint16_t capacity = 0;
+    std::uint32_t n = 0;
+    if (!r.Get(capacity) || !r.Get(n) || n % 2 != 0 || n / 2 > capacity) return false;
+    for (std::uint32_t i = 0; i < n; i += 2) {
+      float e = 0, a = 0;
+      if (!r.Get(e) || !r.Get(a)) return false;
+      s.recent.Push(capacity, e, a);
+    }
+  }
+  if (!r.done()) return false;
   for (std::int64_t v : {since, forecasts, missing})
     if (v < 0 || v > INT32_MAX) return false;
   s.seen = flags & 1;

@@ -1,47 +1,15 @@
 #include "monitors/rule.h"
 
 namespace monitors {
-namespace {
-
-// The signal's excursion in the watched direction (positive = towards the limit).
-double Excursion(Direction d, double v) {
-  switch (d) {
-    case Direction::kBoth: return v < 0 ? -v : v;
-    case Direction::kUnder: return v;
-    case Direction::kOver: return -v;
-  }
-  return 0;
-}
-
-}  // namespace
-
-RuleChange EvaluateRule(const RuleSpec& rule, RuleState& st, std::optional<double> value) {
-  if (!value) return RuleChange::kNone;
-  const double x = Excursion(rule.direction, *value);
-  if (x > rule.limit) {
-    if (st.run < UINT16_MAX) st.run += 1;
-  } else {
-    st.run = 0;
-  }
-  if (!st.active) {
-    if (st.run >= rule.persistence) {
-      st.active = true;
-      return RuleChange::kOpened;
-    }
-    return RuleChange::kNone;
-  }
-  if (x <= rule.clear) {
-    st.active = false;
-    return RuleChange::kCleared;
-  }
-  return RuleChange::kNone;
-}
-
 const char* SignalKindName(SignalKind k) {
   switch (k) {
     case SignalKind::kTrigg: return "trigg";
     case SignalKind::kCusum: return "cusum";
     case SignalKind::kError: return "error";
+    case SignalKind::kBias: return "bias";
+    case SignalKind::kAccuracy: return "accuracy";
+    case SignalKind::kAlphaAtCap: return "alpha_at_cap";
+    case SignalKind::kStale: return "stale";
   }
   return "?";
 }
@@ -65,6 +33,10 @@ std::optional<SignalKind> ParseSignalKind(const std::string& t) {
   if (t == "trigg") return SignalKind::kTrigg;
   if (t == "cusum") return SignalKind::kCusum;
   if (t == "error") return SignalKind::kError;
+  if (t == "bias") return SignalKind::kBias;
+  if (t == "accuracy") return SignalKind::kAccuracy;
+  if (t == "alpha_at_cap") return SignalKind::kAlphaAtCap;
+  if (t == "stale") return SignalKind::kStale;
   return std::nullopt;
 }
 std::optional<Direction> ParseDirection(const std::string& t) {

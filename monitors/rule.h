@@ -1,14 +1,28 @@
-// Alert rules as a pure function: limit, persistence, hysteresis and direction.
+// Alert rules as a pure function: limit, persistence, hysteresis, direction, escalation and
+// the episode (one alert) that a rule's holding periods make up.
 //
 // A rule watches one signal of one series:
-//   trigg  Trigg's signal E/M                     (limit in [0, 1])
-//   cusum  the cumulative signal C/M              (limit in MADs)
-//   error  this period's error in sigmas, e / (1.2533*M before the update)  (a spike)
+//   trigg         Trigg's signal E/M                               (limit in [0, 1])
+//   cusum         the cumulative signal C/M                        (limit in MADs)
+//   error         this period's error in sigmas, e / (1.2533*M before the update)  (a spike)
+//   bias          mean error over the last `periods` periods with a forecast, as a share of
+//                 their mean actual: sum(e) / sum(A)               (limit a share, 0.2 = 20 %)
+//   accuracy      mean absolute error over the same window: sum|e| / sum(A)
+//   alpha_at_cap  the adaptive smoothing constant at its cap: the rule holds after
+//                 `persistence` consecutive periods at the cap
+//   stale         no actual for more than `limit` periods past due (evaluated on the service's
+//                 clock, and in Step when an actual arrives after such a gap)
 // Positive values mean actuals above forecast ("under-forecast"); negative ones mean the
-// forecast was too high ("over-forecast").
+// forecast was too high ("over-forecast"). bias and accuracy are undefined until the window is
+// full or while its actuals sum to 0 or less.
 // The rule holds once the signal has been beyond `limit` in the watched direction for
 // `persistence` consecutive periods, and stops holding when it comes back within `clear`
 // (clear <= limit gives hysteresis). A period where the signal is undefined changes nothing.
+//
+// Episodes: an episode opens when the rule starts holding and no episode is open; it escalates
+// (once) when the signal goes beyond `escalate_limit`; it ends after the rule has not held for
+// `resolve_after` consecutive evaluated periods. A rule that holds again before then continues
+// the same episode, so a signal hovering at its limit makes one alert, not many.
 #pragma once
 
 #include <algorithm>
@@ -20,7 +34,7 @@
 
 namespace monitors {
 
-enum class SignalKind { kTrigg, kCusum, kError };
+enum class SignalKind { kTrigg, kCusum, kError, kBias, kAccuracy, kAlphaAtCap, kStale };
 enum class Direction { kBoth, kUnder, kOver };
 enum class Severity { kInfo, kWarning, kCritical };
 
@@ -32,15 +46,22 @@ struct RuleSpec {
   int persistence = 1;
   Direction direction = Direction::kBoth;
   Severity severity = Severity::kWarning;
+  int periods = 0;                      // bias, accuracy: window length
+  std::optional<double> escalate_limit;  // beyond it the episode takes escalate_severity
+  Severity escalate_severity = Severity::kCritical;
+  int resolve_after = 1;                // periods clear before the episode ends
 };
 
 struct RuleState {
-  std::uint16_t run = 0;  // consecutive periods beyond the limit (saturates at 65535)
-  bool active = false;    // the rule holds
+  std::uint16_t run = 0;    // consecutive periods beyond the limit (saturates at 65535)
+  std::uint16_t quiet = 0;  // consecutive evaluated periods without holding, while open
+  bool active = false;      // the rule holds
+  bool open = false;        // an episode is open
+  bool escalated = false;   // the open episode went beyond escalate_limit
 };
 
 // The rule states of one series: up to four inline (most policies have a few rules), more on
-// the heap. Four bytes a rule, so a series with few rules costs no allocation.
+// the heap. Eight bytes a rule, so a series with few rules costs no allocation.
 class RuleStates {
  public:
   RuleStates() = default;
@@ -93,8 +114,83 @@ class RuleStates {
 
 enum class RuleChange { kNone, kOpened, kCleared };
 
+// The signal's excursion in the watched direction (positive = towards the limit).
+inline double Excursion(Direction d, double v) {
+  switch (d) {
+    case Direction::kBoth: return v < 0 ? -v : v;
+    case Direction::kUnder: return v;
+    case Direction::kOver: return -v;
+  }
+  return 0;
+}
+
+// What an evaluation did to the rule's episode.
+struct EpisodeChange {
+  bool opened = false;
+  bool escalated = false;
+  bool resolved = false;
+};
+
 // Advances the rule by one period with the signal's value (nullopt if undefined).
-RuleChange EvaluateRule(const RuleSpec& rule, RuleState& state, std::optional<double> value);
+inline RuleChange EvaluateRule(const RuleSpec& rule, RuleState& st, std::optional<double> value) {
+  if (!value) return RuleChange::kNone;
+  const double x = Excursion(rule.direction, *value);
+  if (x > rule.limit) {
+    if (st.run < UINT16_MAX) st.run += 1;
+  } else {
+    st.run = 0;
+  }
+  if (!st.active) {
+    if (st.run >= rule.persistence) {
+      st.active = true;
+      return RuleChange::kOpened;
+    }
+    return RuleChange::kNone;
+  }
+  if (x <= rule.clear) {
+    st.active = false;
+    return RuleChange::kCleared;
+  }
+  return RuleChange::kNone;
+}
+
+// Advances the episode after EvaluateRule with the same value (nothing when undefined).
+inline EpisodeChange AdvanceEpisode(const RuleSpec& rule, RuleState& st, std::optional<double> value) {
+  EpisodeChange c;
+  if (!value) return c;
+  if (st.active) {
+    st.quiet = 0;
+    if (!st.open) {
+      st.open = true;
+      st.escalated = false;
+      c.opened = true;
+    }
+    if (rule.escalate_limit && !st.escalated &&
+        Excursion(rule.direction, *value) > *rule.escalate_limit) {
+      st.escalated = true;
+      c.escalated = !c.opened;  // an episode that opens beyond it opens escalated
+    }
+    return c;
+  }
+  if (!st.open) return c;
+  if (st.quiet < UINT16_MAX) st.quiet += 1;
+  if (st.quiet >= rule.resolve_after) {
+    st.open = false;
+    st.escalated = false;
+    st.quiet = 0;
+    c.resolved = true;
+  }
+  return c;
+}
+
+
+// The severity of an open episode.
+inline Severity EpisodeSeverity(const RuleSpec& rule, const RuleState& state) {
+  return state.escalated ? rule.escalate_severity : rule.severity;
+}
+
+// Rules whose signal comes from the step's forecast error (everything but stale).
+inline bool StepSignal(SignalKind k) { return k != SignalKind::kStale; }
 
 const char* SignalKindName(SignalKind k);
 const char* DirectionName(Direction d);

@@ -6,6 +6,45 @@
 #include "monitors/interval.h"
 
 namespace monitors {
+namespace {
+void Evaluate(const RuleSpec& rule, SeriesState& s, std::size_t i, std::optional<double> value,
+              StepResult& out);
+}  // namespace
+
+std::uint16_t RecentCapacity(const PolicySpec& policy) {
+  int cap = 0;
+  for (const RuleSpec& r : policy.rules)
+    if (r.signal == SignalKind::kBias || r.signal == SignalKind::kAccuracy)
+      cap = std::max(cap, r.periods);
+  return static_cast<std::uint16_t>(std::min(cap, 65535));
+}
+
+std::optional<double> RuleValue(const RuleSpec& rule, const StepResult& r, const SeriesState& s) {
+  switch (rule.signal) {
+    case SignalKind::kTrigg: return r.trigg;
+    case SignalKind::kCusum: return r.cusum;
+    case SignalKind::kError: return r.spike;
+    case SignalKind::kAlphaAtCap:
+      if (!r.has_forecast) return std::nullopt;
+      return r.at_cap ? 1.0 : 0.0;
+    case SignalKind::kBias:
+    case SignalKind::kAccuracy: {
+      double e = 0, abs_e = 0, a = 0;
+      if (!r.has_forecast || !s.recent.Sums(rule.periods, e, abs_e, a) || !(a > 0.0))
+        return std::nullopt;
+      return (rule.signal == SignalKind::kBias ? e : abs_e) / a;
+    }
+    case SignalKind::kStale: return std::nullopt;
+  }
+  return std::nullopt;
+}
+
+void CheckStale(const PolicySpec& p, SeriesState& s, long overdue, StepResult& out) {
+  if (!s.seen) return;
+  for (std::size_t i = 0; i < p.rules.size(); ++i)
+    if (p.rules[i].signal == SignalKind::kStale)
+      Evaluate(p.rules[i], s, i, static_cast<double>(overdue), out);
+}
 
 SeriesState NewSeriesState(const PolicySpec& policy) {
   SeriesState s;
@@ -40,12 +79,32 @@ void StartSeries(const PolicySpec& p, SeriesState& s) {
   s.window.clear();
 }
 
+// Evaluates rule i with `value`, recording what changed in `out` and s.active.
+void Evaluate(const RuleSpec& rule, SeriesState& s, std::size_t i, std::optional<double> value,
+              StepResult& out) {
+  const RuleChange change = EvaluateRule(rule, s.rules[i], value);
+  const std::uint64_t bit = std::uint64_t{1} << i;
+  if (change == RuleChange::kOpened) {
+    s.active |= bit;
+    out.opened |= bit;
+  } else if (change == RuleChange::kCleared) {
+    s.active &= ~bit;
+    out.cleared |= bit;
+  }
+  const EpisodeChange ep = AdvanceEpisode(rule, s.rules[i], value);
+  if (ep.opened) out.episodes_opened |= bit;
+  if (ep.escalated) out.episodes_escalated |= bit;
+  if (ep.resolved) out.episodes_resolved |= bit;
+}
+
 // One observed period (index s.next_index). Fills `out` for that period.
 void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
   const long index = s.next_index++;
   out.has_forecast = false;
   out.trigg.reset();
   out.cusum.reset();
+  out.spike.reset();
+  out.at_cap = false;
   out.lower.reset();
   out.upper.reset();
   out.alpha = s.constants.alpha;
@@ -82,25 +141,16 @@ void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
   UpdateModel(p.method, s.constants, s.model, index, y);
   out.stats = s.stats;
   s.forecasts += 1;
+  if (mad_before > 0.0) out.spike = e / (kSigmaPerMad * mad_before);
+  out.at_cap = p.adaptive.enabled && s.constants.alpha >= p.adaptive.cap;
+  if (const std::uint16_t cap = RecentCapacity(p)) s.recent.Push(cap, e, y);
   if (s.forecasts > p.warmup) {
     out.trigg = TriggSignal(s.stats);
     out.cusum = CusumSignal(s.stats);
-    std::optional<double> spike;
-    if (mad_before > 0.0) spike = e / (kSigmaPerMad * mad_before);
     for (std::size_t i = 0; i < p.rules.size(); ++i) {
       const RuleSpec& rule = p.rules[i];
-      const std::optional<double>& v = rule.signal == SignalKind::kTrigg   ? out.trigg
-                                       : rule.signal == SignalKind::kCusum ? out.cusum
-                                                                           : spike;
-      const RuleChange change = EvaluateRule(rule, s.rules[i], v);
-      const std::uint64_t bit = std::uint64_t{1} << i;
-      if (change == RuleChange::kOpened) {
-        s.active |= bit;
-        out.opened |= bit;
-      } else if (change == RuleChange::kCleared) {
-        s.active &= ~bit;
-        out.cleared |= bit;
-      }
+      if (!StepSignal(rule.signal)) continue;
+      Evaluate(rule, s, i, RuleValue(rule, out, s), out);
     }
   }
   out.active = s.active;
@@ -145,13 +195,28 @@ StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, doubl
   const bool risky = p.method == Method::kSeasonalMul;
   if (risky) before = s;
 
-  std::uint64_t opened = 0, cleared = 0;
+  // Episode changes of the gap periods and of the stale check add up into the step's result.
+  std::uint64_t opened = 0, cleared = 0, ep_opened = 0, ep_escalated = 0, ep_resolved = 0;
+  auto collect = [&] {
+    opened |= out.opened;
+    cleared |= out.cleared;
+    ep_opened |= out.episodes_opened;
+    ep_escalated |= out.episodes_escalated;
+    ep_resolved |= out.episodes_resolved;
+    out.opened = out.cleared = out.episodes_opened = out.episodes_escalated =
+        out.episodes_resolved = 0;
+  };
+  out.opened = out.cleared = out.episodes_opened = out.episodes_escalated =
+      out.episodes_resolved = 0;
+  if (s.seen && gap > 0) {
+    // The series went `gap` periods past due: what the service's clock would have seen.
+    CheckStale(p, s, gap, out);
+    collect();
+  }
   for (long g = 0; g < gap; ++g) {
     if (p.gaps == GapRule::kZero) {
       Observe(p, s, 0.0, out);
-      opened |= out.opened;
-      cleared |= out.cleared;
-      out.opened = out.cleared = 0;
+      collect();
     } else {
       if (s.started) CoastModel(p.method, s.constants, s.model);
       s.next_index += 1;
@@ -160,10 +225,14 @@ StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, doubl
   }
   s.seen = true;
   s.last_period = period;
-  out.opened = out.cleared = 0;
   Observe(p, s, y, out);
+  // the actual arrived: the series is not overdue any more
+  CheckStale(p, s, 0, out);
   out.opened |= opened;
   out.cleared |= cleared;
+  out.episodes_opened |= ep_opened;
+  out.episodes_escalated |= ep_escalated;
+  out.episodes_resolved |= ep_resolved;
   out.filled = gap;
   if (risky && !Finite(s)) {
     s = std::move(before);

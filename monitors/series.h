@@ -79,6 +79,85 @@ class WindowValues {
   std::unique_ptr<std::vector<double>> v_;
 };
 
+// Errors and actuals of the newest periods with a forecast, for the bias and accuracy rules
+// (allocated only for policies that have such rules: 8 bytes a period).
+class RecentWindow {
+ public:
+  RecentWindow() = default;
+  RecentWindow(const RecentWindow& o) { *this = o; }
+  RecentWindow& operator=(const RecentWindow& o) {
+    if (this != &o) {
+      cap_ = o.cap_;
+      head_ = o.head_;
+      count_ = o.count_;
+      buf_.reset();
+      if (o.buf_) {
+        buf_.reset(new float[2 * std::size_t{cap_}]);
+        std::copy(o.buf_.get(), o.buf_.get() + 2 * std::size_t{cap_}, buf_.get());
+      }
+    }
+    return *this;
+  }
+  RecentWindow(RecentWindow&&) noexcept = default;
+  RecentWindow& operator=(RecentWindow&&) noexcept = default;
+
+  // Adds the newest period; a new capacity starts the window again.
+  void Push(std::uint16_t capacity, double error, double actual) {
+    if (capacity == 0) {
+      Clear();
+      return;
+    }
+    if (capacity != cap_ || !buf_) {
+      buf_.reset(new float[2 * std::size_t{capacity}]);
+      cap_ = capacity;
+      head_ = 0;
+      count_ = 0;
+    }
+    buf_[2 * std::size_t{head_}] = static_cast<float>(error);
+    buf_[2 * std::size_t{head_} + 1] = static_cast<float>(actual);
+    head_ = static_cast<std::uint16_t>((head_ + 1) % cap_);
+    if (count_ < cap_) ++count_;
+  }
+  // Sums over the newest n periods; false while fewer than n are held.
+  bool Sums(int n, double& error, double& abs_error, double& actual) const {
+    if (n <= 0 || n > count_) return false;
+    error = abs_error = actual = 0.0;
+    std::size_t i = head_;
+    for (int k = 0; k < n; ++k) {
+      i = (i + cap_ - 1) % cap_;
+      const double e = buf_[2 * i];
+      error += e;
+      abs_error += e < 0 ? -e : e;
+      actual += buf_[2 * i + 1];
+    }
+    return true;
+  }
+  void Clear() {
+    buf_.reset();
+    cap_ = head_ = count_ = 0;
+  }
+  std::uint16_t capacity() const { return cap_; }
+  std::uint16_t count() const { return count_; }
+  // Oldest first: (error, actual) pairs, for serialisation.
+  std::vector<float> Values() const {
+    std::vector<float> v;
+    v.reserve(2 * std::size_t{count_});
+    std::size_t i = (head_ + cap_ - count_) % (cap_ ? cap_ : 1);
+    for (int k = 0; k < count_; ++k, i = (i + 1) % cap_) {
+      v.push_back(buf_[2 * i]);
+      v.push_back(buf_[2 * i + 1]);
+    }
+    return v;
+  }
+
+ private:
+  std::unique_ptr<float[]> buf_;
+  std::uint16_t cap_ = 0, head_ = 0, count_ = 0;
+};
+
+// The bias/accuracy window a policy needs (0: none).
+std::uint16_t RecentCapacity(const PolicySpec& policy);
+
 struct SeriesState {
   bool seen = false;
   bool started = false;         // past the start window
@@ -92,6 +171,7 @@ struct SeriesState {
   std::int32_t missing = 0;     // periods skipped under gap rule "skip"
   RuleStates rules;
   std::uint64_t active = 0;     // bit i: rule i holds
+  RecentWindow recent;          // bias/accuracy rules only
 };
 
 // A fresh state for a series of this policy.
@@ -108,10 +188,25 @@ struct StepResult {
   std::optional<double> lower;  // prediction interval of `forecast`; empty while M is 0
   std::optional<double> upper;
   std::uint64_t active = 0;     // rules holding after this period
+  std::optional<double> spike;  // the error in sigmas (MAD before the update)
+  bool at_cap = false;          // adaptive alpha at its cap after this period
   std::uint64_t opened = 0;     // rules that started holding in this step (gap periods too)
   std::uint64_t cleared = 0;
+  // Episodes (rule.h) in this step, gap periods included: bit i for rule i.
+  std::uint64_t episodes_opened = 0;
+  std::uint64_t episodes_escalated = 0;
+  std::uint64_t episodes_resolved = 0;
   long filled = 0;              // gap periods filled with zero or skipped
 };
+
+// The value rule `rule` watches after a step (`state` is the series' state after it), or
+// nullopt when it is undefined. Not for stale rules.
+std::optional<double> RuleValue(const RuleSpec& rule, const StepResult& result,
+                                const SeriesState& state);
+
+// The service's clock says the series has gone `overdue` periods past due without an actual:
+// evaluates its stale rules, recording episode changes in `out` (its other fields untouched).
+void CheckStale(const PolicySpec& policy, SeriesState& state, long overdue, StepResult& out);
 
 enum class StepStatus {
   kOk,

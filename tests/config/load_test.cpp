@@ -93,6 +93,26 @@ TEST_CASE("settings that cannot work are refused", "[unit]") {
       {"policies:\n  - {name: a, match: '*', period: week, gaps: fill}\n",
        "gaps: must be zero or skip"},
       {"policies: [\n", "not valid YAML"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: bias, limit: 0.2}]}\n",
+       "a bias rule needs 'periods'"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: stale, periods: 3, limit: 2}]}\n",
+       "a stale rule takes 'periods', not 'limit'"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: alpha_at_cap, periods: 3}]}\n",
+       "an alpha_at_cap rule needs an adaptive policy"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: trigg, limit: 0.5, false_alert_every: 52}]}\n",
+       "give either 'limit' or 'false_alert_every'"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: 4, escalate_limit: 3}]}\n",
+       "escalate_limit: must be beyond the limit"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: 4, severity: critical, escalate_limit: 6}]}\n",
+       "escalate_severity must be above"},
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: accuracy, periods: 4, limit: 0.3, direction: over-forecast}]}\n",
+       "this signal has no direction"},
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: w, type: webhook, url: 'https://x'}]}\n",
+       "needs an http:// URL"},
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: l, type: log, secret_env: X}]}\n",
+       "only webhook sinks take a secret"},
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {initial_backoff_seconds: 10, max_backoff_seconds: 5}\n",
+       "must not be below initial_backoff_seconds"},
   };
   for (const Case& c : cases) {
     auto r = LoadSettingsText(c.yaml, "t.yaml");
@@ -154,4 +174,31 @@ TEST_CASE("the server section and the fallback policy load with their defaults a
   CHECK_THAT(all, Catch::Contains("server.queue_depth: must be in [1, 100000], got 0"));
   CHECK_THAT(all, Catch::Contains("give token_file or token_env, not both"));
   CHECK_THAT(all, Catch::Contains("fallback_policy: names no policy: 'missing'"));
+}
+
+TEST_CASE("a false-alarm budget becomes a derived limit, shown with its expected rate", "[unit]") {
+  auto r = LoadSettingsText(
+      "policies:\n"
+      "  - name: a\n    match: '*'\n    period: day\n    alpha: 0.1\n    signal_beta: 0.1\n"
+      "    rules:\n"
+      "      - {name: drift, signal: cusum, false_alert_every: 1000, clear_fraction: 0.5}\n"
+      "      - {name: gone, signal: stale, periods: 3, resolve_after: 2}\n",
+      "t.yaml");
+  INFO(AllProblems(r));
+  REQUIRE(r.ok());
+  const config::Policy& p = r.settings.policies[0];
+  REQUIRE(p.calibrations.size() == 1);
+  const monitors::RuleSpec& drift = p.spec.rules[0];
+  // derived, not configured: between the textbook 4 MADs (16 % of in-control periods beyond it at
+  // alpha 0.1, REFERENCES.md Table B) and 15 MADs
+  CHECK(drift.limit > 4.0);
+  CHECK(drift.limit < 15.0);
+  CHECK(drift.clear == Approx(0.5 * drift.limit));
+  CHECK(p.calibrations[0].limit == drift.limit);
+  CHECK(p.calibrations[0].per_series_week == Approx(7.0 / 1000));
+  CHECK(p.spec.rules[1].limit == 2.5);
+  CHECK(p.spec.rules[1].resolve_after == 2);
+  // no alerts section: one log sink
+  REQUIRE(r.settings.alerts.sinks.size() == 1);
+  CHECK(r.settings.alerts.sinks[0].kind == config::Sink::Kind::kLog);
 }

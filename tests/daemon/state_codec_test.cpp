@@ -23,7 +23,12 @@ TEST_CASE("a decoded state continues exactly like the original, for every method
     monitors::RuleSpec rule;
     rule.name = "r";
     rule.limit = rule.clear = 0.3;
-    p.rules = {rule, rule};
+    rule.resolve_after = 3;
+    monitors::RuleSpec bias = rule;
+    bias.signal = monitors::SignalKind::kBias;
+    bias.periods = 4;
+    bias.limit = bias.clear = 0.1;
+    p.rules = {rule, rule, bias};
     monitors::SeriesState a = monitors::NewSeriesState(p);
     monitors::StepResult r;
     for (int t = 0; t < 6; ++t) REQUIRE(monitors::Step(p, a, 100 + t, t % 3 ? u(gen) + 1 : 0.5, r) == monitors::StepStatus::kOk);
@@ -39,6 +44,8 @@ TEST_CASE("a decoded state continues exactly like the original, for every method
       REQUIRE(ra.forecast == rb.forecast);
       REQUIRE(ra.stats.mad == rb.stats.mad);
       REQUIRE(ra.active == rb.active);
+      REQUIRE(ra.episodes_opened == rb.episodes_opened);
+      REQUIRE(ra.episodes_resolved == rb.episodes_resolved);
     }
     CHECK(forewarden::EncodeState(a) == forewarden::EncodeState(b));
   }
@@ -59,17 +66,25 @@ TEST_CASE("damaged state bytes are refused, not half-read", "[unit]") {
   CHECK(out.forecasts == 77);
 }
 
-TEST_CASE("states written in format 1 (with the first period) still decode", "[unit]") {
+TEST_CASE("states written in formats 1 and 2 still decode", "[unit]") {
   monitors::SeriesState s;
   s.seen = true;
   s.last_period = 2920;
   s.stats.mad = 1.5;
   s.rules.resize(1);
-  const std::string v2 = forewarden::EncodeState(s);
+  s.rules[0].active = true;
+  s.rules[0].open = true;  // formats 1 and 2: a holding rule is an open episode
+  const std::string v3 = forewarden::EncodeState(s);
+  // Format 2: no quiet count after the rule's run and flags, no window at the end.
+  std::string v2 = v3.substr(0, v3.size() - 6);  // window capacity (2) and length (4)
+  v2.erase(v2.size() - 8 - 2, 2);                 // the rule's quiet count before `active` bits
+  v2[0] = 2;
   std::string v1 = v2;
   v1[0] = 1;
   v1.insert(2, std::string(8, '\0'));  // format 1 had the first period after the flags
-  monitors::SeriesState out;
-  REQUIRE(forewarden::DecodeState(v1, out));
-  CHECK(forewarden::EncodeState(out) == v2);
+  for (const std::string& old : {v2, v1}) {
+    monitors::SeriesState out;
+    REQUIRE(forewarden::DecodeState(old, out));
+    CHECK(forewarden::EncodeState(out) == v3);
+  }
 }

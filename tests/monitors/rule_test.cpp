@@ -84,3 +84,47 @@ TEST_CASE("rule states keep their values across growing past the inline capacity
   EvaluateRule(r, st, 5.0);
   CHECK(st.run == 65535);  // saturates
 }
+
+TEST_CASE("an episode spans the holding periods and ends after resolve_after clear ones", "[unit]") {
+  RuleSpec r;
+  r.limit = r.clear = 0.5;
+  r.resolve_after = 2;
+  RuleState st;
+  auto step = [&](double v) {
+    EvaluateRule(r, st, v);
+    return monitors::AdvanceEpisode(r, st, v);
+  };
+  CHECK(step(0.6).opened);
+  CHECK_FALSE(step(0.4).resolved);  // one clear period
+  auto again = step(0.7);           // holds again: the same episode goes on
+  CHECK_FALSE(again.opened);
+  CHECK_FALSE(step(0.1).resolved);
+  CHECK(step(0.1).resolved);
+  CHECK_FALSE(st.open);
+  CHECK(step(0.9).opened);  // a new episode
+  // undefined values change nothing
+  CHECK_FALSE(monitors::AdvanceEpisode(r, st, std::nullopt).resolved);
+}
+
+TEST_CASE("an episode escalates once when the signal passes the escalation limit", "[unit]") {
+  RuleSpec r;
+  r.limit = r.clear = 4;
+  r.severity = monitors::Severity::kWarning;
+  r.escalate_limit = 8;
+  RuleState st;
+  auto step = [&](double v) {
+    EvaluateRule(r, st, v);
+    return monitors::AdvanceEpisode(r, st, v);
+  };
+  CHECK(step(5).opened);
+  CHECK(monitors::EpisodeSeverity(r, st) == monitors::Severity::kWarning);
+  CHECK(step(-9).escalated);  // direction both
+  CHECK(monitors::EpisodeSeverity(r, st) == monitors::Severity::kCritical);
+  CHECK_FALSE(step(10).escalated);
+  CHECK(step(1).resolved);
+  // opening beyond the escalation limit opens escalated, with no separate escalation
+  auto c = step(9);
+  CHECK(c.opened);
+  CHECK_FALSE(c.escalated);
+  CHECK(monitors::EpisodeSeverity(r, st) == monitors::Severity::kCritical);
+}

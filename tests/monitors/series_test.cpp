@@ -229,3 +229,94 @@ TEST_CASE("through Step, the cumulative error of fixed-alpha ses is (F(n+1) - F(
     CHECK(r.back().stats.cusum == Approx((f_next - r[1].forecast) / alpha).epsilon(1e-9));
   }
 }
+
+namespace {
+monitors::PolicySpec RulePolicy(monitors::RuleSpec rule) {
+  monitors::PolicySpec p;
+  p.method = monitors::Method::kSes;
+  p.constants.alpha = 0.2;
+  p.start.kind = monitors::StartKind::kExplicit;
+  p.start.level = 10;
+  p.initial_mad = 1;
+  p.rules = {std::move(rule)};
+  return p;
+}
+}  // namespace
+
+TEST_CASE("bias rule: mean error over the window as a share of mean demand", "[unit]") {
+  // Hand computation: explicit level 10, alpha 0.2, actuals 12, 12, 12.
+  // F = 10, 10.4, 10.72; e = 2, 1.6, 1.28; sum e = 4.88 over sum A = 36 -> 0.13556.
+  monitors::RuleSpec bias;
+  bias.name = "bias";
+  bias.signal = monitors::SignalKind::kBias;
+  bias.periods = 3;
+  bias.limit = bias.clear = 0.13;
+  bias.direction = monitors::Direction::kUnder;
+  const monitors::PolicySpec p = RulePolicy(bias);
+  monitors::SeriesState s = monitors::NewSeriesState(p);
+  monitors::StepResult r;
+  REQUIRE(monitors::Step(p, s, 1, 12, r) == monitors::StepStatus::kOk);
+  CHECK_FALSE(monitors::RuleValue(bias, r, s).has_value());  // window not full
+  REQUIRE(monitors::Step(p, s, 2, 12, r) == monitors::StepStatus::kOk);
+  CHECK(r.episodes_opened == 0);
+  REQUIRE(monitors::Step(p, s, 3, 12, r) == monitors::StepStatus::kOk);
+  REQUIRE(monitors::RuleValue(bias, r, s).has_value());
+  CHECK(*monitors::RuleValue(bias, r, s) == Approx(4.88 / 36).epsilon(1e-6));
+  CHECK(r.episodes_opened == 1);
+  // accuracy over the same window: sum |e| / sum A, the same here
+  monitors::RuleSpec acc = bias;
+  acc.signal = monitors::SignalKind::kAccuracy;
+  CHECK(*monitors::RuleValue(acc, r, s) == Approx(4.88 / 36).epsilon(1e-6));
+  // the window keeps only the newest three: an actual on forecast (F4 = 10.976) drops e1 = 2
+  REQUIRE(monitors::Step(p, s, 4, 10.976, r) == monitors::StepStatus::kOk);
+  CHECK(*monitors::RuleValue(bias, r, s) == Approx(2.88 / 34.976).epsilon(1e-5));
+}
+
+TEST_CASE("alpha_at_cap holds after the adaptive constant stays at its cap", "[unit]") {
+  monitors::RuleSpec pinned;
+  pinned.name = "pinned";
+  pinned.signal = monitors::SignalKind::kAlphaAtCap;
+  pinned.limit = pinned.clear = 0.5;
+  pinned.persistence = 3;
+  monitors::PolicySpec p = RulePolicy(pinned);
+  p.adaptive.enabled = true;
+  p.adaptive.lagged = false;
+  p.adaptive.floor = 0.05;
+  p.adaptive.cap = 0.5;
+  p.signal_beta = 0.2;
+  monitors::SeriesState s = monitors::NewSeriesState(p);
+  monitors::StepResult r;
+  // a step from 10 to 20 drives |E/M| towards 1, so alpha sits at the 0.5 cap (REFERENCES #40)
+  long t = 1;
+  std::uint64_t opened_at = 0;
+  for (; t <= 10; ++t) REQUIRE(monitors::Step(p, s, t, 10, r) == monitors::StepStatus::kOk);
+  for (; t <= 16 && !opened_at; ++t) {
+    REQUIRE(monitors::Step(p, s, t, 20, r) == monitors::StepStatus::kOk);
+    if (r.episodes_opened) opened_at = static_cast<std::uint64_t>(t);
+  }
+  CHECK(opened_at == 13);  // at the cap from t = 11: the third period is t = 13
+}
+
+TEST_CASE("stale rule: an actual after a long gap reports one episode, opened and ended", "[unit]") {
+  monitors::RuleSpec stale;
+  stale.name = "stale";
+  stale.signal = monitors::SignalKind::kStale;
+  stale.limit = stale.clear = 2.5;  // three periods past due
+  monitors::PolicySpec p = RulePolicy(stale);
+  p.gaps = monitors::GapRule::kSkip;
+  monitors::SeriesState s = monitors::NewSeriesState(p);
+  monitors::StepResult r;
+  REQUIRE(monitors::Step(p, s, 1, 10, r) == monitors::StepStatus::kOk);
+  REQUIRE(monitors::Step(p, s, 4, 10, r) == monitors::StepStatus::kOk);  // two missing
+  CHECK(r.episodes_opened == 0);
+  REQUIRE(monitors::Step(p, s, 8, 10, r) == monitors::StepStatus::kOk);  // three missing
+  CHECK(r.episodes_opened == 1);
+  CHECK(r.episodes_resolved == 1);
+  // the service's clock opens it while the series is overdue; the arrival ends it
+  monitors::StepResult clock;
+  monitors::CheckStale(p, s, 3, clock);
+  CHECK(clock.episodes_opened == 1);
+  REQUIRE(monitors::Step(p, s, 12, 10, r) == monitors::StepStatus::kOk);
+  CHECK(r.episodes_opened == 0);
+  CHECK(r.episodes_resolved == 1);
+}
