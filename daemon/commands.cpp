@@ -19,10 +19,12 @@ namespace {
 constexpr const char* kUsage = R"(usage: forewarden COMMAND [OPTIONS]
 
 commands:
-  replay --config FILE --input FILE.csv [--output FILE.csv]
+  replay --config FILE --input FILE.csv [--output FILE.csv] [--alerts FILE.csv]
         Run an actuals CSV (header series,period,value) through the monitoring engine and
         write one row per actual with forecast, error, signals, interval and alerts.
         "-" reads standard input / writes standard output (the default output).
+        --alerts writes one row per alert episode: series, policy, rule, severity and the
+        periods it opened, escalated and resolved (empty while still open).
   serve --config FILE [--listen HOST:PORT] [--data DIR]
         Run the service: HTTP API (default 127.0.0.1:8700), durable store in the data
         folder, optional drop folder. SIGHUP reloads the settings; SIGTERM stops gracefully.
@@ -157,9 +159,10 @@ int CheckConfig(const std::vector<std::string>& args, std::ostream& out, std::os
 
 int Replay(const std::vector<std::string>& args, std::ostream& err) {
   std::map<std::string, std::string> flags;
-  if (!ParseFlags(args, 1, {"config", "input", "output"}, flags, err)) return 2;
+  if (!ParseFlags(args, 1, {"config", "input", "output", "alerts"}, flags, err)) return 2;
   if (!flags.count("config") || !flags.count("input")) {
-    err << "usage: forewarden replay --config FILE --input FILE.csv [--output FILE.csv]\n";
+    err << "usage: forewarden replay --config FILE --input FILE.csv [--output FILE.csv] "
+           "[--alerts FILE.csv]\n";
     return 2;
   }
   config::Settings settings;
@@ -167,6 +170,7 @@ int Replay(const std::vector<std::string>& args, std::ostream& err) {
   ReplayOptions options;
   options.input = flags["input"];
   options.output = flags.count("output") ? flags["output"] : "-";
+  if (flags.count("alerts")) options.alerts = flags["alerts"];
   ReplaySummary summary;
   std::string error;
   const int rc = RunReplay(settings, options, summary, error);

@@ -40,6 +40,16 @@ struct SeriesSlot {
   const config::Policy* policy;
   SeriesSlot* next_seen = nullptr;  // the series whose row followed this one's last time
   monitors::SeriesState state;
+  std::vector<std::pair<std::size_t, std::size_t>> open;  // (rule, episode row) with --alerts
+};
+
+// One alert episode for the --alerts file.
+struct EpisodeRow {
+  std::string_view key;
+  const config::Policy* policy;
+  std::size_t rule;
+  monitors::Severity severity;
+  std::string opened, escalated, resolved;
 };
 
 // A parsed period with its normalised text.
@@ -266,6 +276,41 @@ class RowWriter {
   Formatter formatters_[kFormatters];
 };
 
+// The --alerts file: one row per episode in the order they opened (written under a temporary
+// name and renamed into place).
+bool WriteEpisodes(const std::string& path, const std::vector<EpisodeRow>& episodes,
+                   std::string& error) {
+  const std::string temp = path + ".partial";
+  std::FILE* f = std::fopen(temp.c_str(), "wb");
+  if (!f) {
+    error = temp + ": cannot create: " + std::strerror(errno);
+    return false;
+  }
+  TextOut out(f);
+  out.Put("series,policy,rule,severity,opened,escalated,resolved\n");
+  for (const EpisodeRow& e : episodes) {
+    out.Field(e.key);
+    out.Put(',');
+    out.Field(e.policy->name);
+    out.Put(',');
+    out.Field(e.policy->spec.rules[e.rule].name);
+    out.Put(',');
+    out.Put(monitors::SeverityName(e.severity));
+    for (const std::string* t : {&e.opened, &e.escalated, &e.resolved}) {
+      out.Put(',');
+      out.Put(*t);
+    }
+    out.Put('\n');
+  }
+  const bool ok = out.Flush() && std::fclose(f) == 0;
+  if (!ok || std::rename(temp.c_str(), path.c_str()) != 0) {
+    error = path + ": cannot write: " + std::strerror(errno);
+    std::remove(temp.c_str());
+    return false;
+  }
+  return true;
+}
+
 }  // namespace
 
 int RunReplay(const config::Settings& settings, const ReplayOptions& options,
@@ -338,6 +383,8 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   PeriodCache periods;
   // Declared after the keys, slots and period cache that queued rows point into, so that it
   // is destroyed (and its threads joined) first.
+  const bool want_episodes = !options.alerts.empty();
+  std::vector<EpisodeRow> episodes;
   RowWriter writer(out_file.file);
   struct AbandonOnError {
     RowWriter& writer;
@@ -377,7 +424,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
           error = Where(line, "series") + "no policy matches the series '" + std::string(key) + "'";
           return 2;
         }
-        slots.push_back(SeriesSlot{keys.Add(key), policy, nullptr, monitors::NewSeriesState(policy->spec)});
+        slots.push_back(SeriesSlot{keys.Add(key), policy, nullptr, monitors::NewSeriesState(policy->spec), {}});
         found = &slots.back();
         series.emplace(found->key, found);
       }
@@ -417,11 +464,42 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     row.period = parsed.text;
     row.policy = &policy;
     row.actual = value;
-    if (r.opened) {
+    if (r.episodes_opened) {
       auto& counts = opened_counts[&policy];
       counts.resize(policy.spec.rules.size(), 0);
       for (std::size_t i = 0; i < policy.spec.rules.size(); ++i)
-        if (r.opened >> i & 1) ++counts[i];
+        if (r.episodes_opened >> i & 1) ++counts[i];
+    }
+    if (want_episodes && (r.episodes_opened | r.episodes_escalated | r.episodes_resolved)) {
+      const auto& rules = policy.spec.rules;
+      for (std::size_t i = 0; i < rules.size(); ++i) {
+        const std::uint64_t bit = std::uint64_t{1} << i;
+        auto it = std::find_if(slot.open.begin(), slot.open.end(),
+                               [i](const auto& o) { return o.first == i; });
+        if ((r.episodes_resolved & bit) && it != slot.open.end()) {
+          episodes[it->second].resolved = parsed.text;
+          slot.open.erase(it);
+          it = slot.open.end();
+        }
+        if (r.episodes_opened & bit) {
+          slot.open.push_back({i, episodes.size()});
+          episodes.push_back({slot.key, &policy, i, rules[i].severity, parsed.text, "", ""});
+          it = slot.open.end() - 1;
+          if (slot.state.rules[i].escalated && slot.state.rules[i].open) {
+            episodes.back().severity = rules[i].escalate_severity;
+            episodes.back().escalated = parsed.text;
+          }
+          if (r.episodes_resolved & bit) {  // opened and ended in one step (a stale gap)
+            episodes.back().resolved = parsed.text;
+            slot.open.pop_back();
+            it = slot.open.end();
+          }
+        }
+        if ((r.episodes_escalated & bit) && it != slot.open.end()) {
+          episodes[it->second].severity = rules[i].escalate_severity;
+          episodes[it->second].escalated = parsed.text;
+        }
+      }
     }
   }
   if (!in.ok()) {
@@ -443,6 +521,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     }
     out_file.owned = false;
   }
+  if (want_episodes && !WriteEpisodes(options.alerts, episodes, error)) return 1;
   summary.series = static_cast<long>(series.size());
   summary.actuals = rows;
   for (const config::Policy& p : settings.policies)

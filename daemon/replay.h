@@ -14,13 +14,15 @@ struct ReplayOptions {
   std::string input;   // "-" = standard input
   std::string output;  // empty or "-" = standard output; a file is written under a temporary
                        // name and renamed into place only when the whole replay succeeded
+  std::string alerts;  // if set: one CSV row per alert episode (series, policy, rule, severity,
+                       // opened, escalated, resolved periods), written the same way
 };
 
 struct ReplaySummary {
   long series = 0;
   long actuals = 0;
   double seconds = 0.0;
-  std::map<std::string, long> alerts_opened;  // "policy/rule" -> episodes opened
+  std::map<std::string, long> alerts_opened;  // "policy/rule" -> alert episodes opened
 };
 
 // Returns 0 on success, 2 on bad input (the message in `error` names the line and field),
