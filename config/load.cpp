@@ -564,7 +564,8 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
   }
   r.CheckKeys(n, path,
               {"storm_threshold", "sinks", "max_attempts", "initial_backoff_seconds",
-               "max_backoff_seconds", "batch", "resend_seconds", "public_url"});
+               "max_backoff_seconds", "batch", "resend_seconds", "public_url", "check_seconds"});
+  r.Int(n, "check_seconds", path, a.check_seconds, 1, 86400);
   r.Int(n, "storm_threshold", path, a.storm_threshold, 0, 10000000);
   r.Int(n, "max_attempts", path, a.max_attempts, 1, 1000000);
   r.Range(n, "initial_backoff_seconds", path, a.initial_backoff_seconds, 0.0, true, 86400.0, false);

@@ -59,6 +59,7 @@ struct Alerts {
   double max_backoff_seconds = 600.0;
   long batch = 100;             // events sent in one round per sink
   long resend_seconds = 60;     // alertmanager: open alerts are re-sent this often
+  long check_seconds = 30;      // how often ended snoozes and stale rules are checked
   std::string public_url;       // base URL of this service in notifications ("" = from listen)
 };
 

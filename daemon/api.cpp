@@ -436,7 +436,7 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
                                   {"gap_periods_filled", r.counts.filled},
                                   {"new_series", r.counts.new_series},
                                   {"alerts_opened", r.counts.alerts_opened},
-                                  {"alerts_resolved", r.counts.alerts_cleared}}));
+                                  {"alerts_resolved", r.counts.alerts_resolved}}));
       case IngestReply::Status::kRejected:
         counters_.rejected_bad_input.fetch_add(1);
         return respond(Json(400, problems_json(r.problems, r.problem_count)));

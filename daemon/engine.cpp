@@ -41,10 +41,13 @@ void FitConstants(monitors::SeriesState& s, const config::Policy& p) {
 
 // A re-level (README, reset): the level takes the new value; the smoothed and cumulative errors
 // start again from zero.
+// Rules start again too: a reset ends every episode (its alerts resolve with reason "reset").
 void Relevel(monitors::SeriesState& s, double level) {
   s.model.level = level;
   s.stats.smoothed_error = 0.0;
   s.stats.cusum = 0.0;
+  for (auto& r : s.rules) r = monitors::RuleState{};
+  s.active = 0;
 }
 
 // Applies the re-levels recorded right after the actual of `period` (adjustments in period
@@ -81,6 +84,7 @@ bool Engine::Start(std::string& error) {
   std::string problem;
   std::vector<std::size_t> stale_states;
   std::int64_t count = 0;
+  notified_ = 0;
   if (!store_.CountSeries(count)) {
     error = "store: " + store_.error();
     return false;
@@ -155,10 +159,159 @@ bool Engine::Start(std::string& error) {
     }
     recovered_ = static_cast<long>(stale_states.size());
   }
+  if (!OpenAlerts(error)) return false;
   dirty_.assign(series_.size(), 0);
-  last_flush_ms_ = clock_();
+  last_flush_ms_ = last_housekeeping_ms_ = clock_();
   thread_ = std::thread([this] { Run(); });
   return true;
+}
+
+bool Engine::OpenAlerts(std::string& error) {
+  std::unordered_map<std::int64_t, long> by_id;
+  by_id.reserve(series_.size());
+  for (std::size_t i = 0; i < series_.size(); ++i) by_id[series_[i].id] = static_cast<long>(i);
+  if (!alerts_.Open(store_.db(), [&](std::int64_t id) {
+        auto it = by_id.find(id);
+        return it == by_id.end() ? -1L : it->second;
+      }, error)) {
+    error = "store: alerts: " + error;
+    return false;
+  }
+  alerts_.Configure(*settings_);
+  alerts_.Index(
+      [&](long index, const std::string& rule) -> std::optional<std::pair<std::size_t, std::size_t>> {
+        const auto& rules = series_[static_cast<std::size_t>(index)].policy->spec.rules;
+        for (std::size_t r = 0; r < rules.size(); ++r)
+          if (rules[r].name == rule) return std::pair{static_cast<std::size_t>(index), r};
+        return std::nullopt;
+      },
+      [&](long index, const std::string& text) -> std::int64_t {
+        const auto parsed = monitors::ParsePeriod(series_[static_cast<std::size_t>(index)].policy->period, text);
+        return parsed.ok() ? parsed.ordinal : INT64_MAX;
+      });
+  return true;
+}
+
+AlertSeries Engine::Info(std::size_t index) const {
+  const Series& s = series_[index];
+  return AlertSeries{s.id, std::string(s.key), s.policy};
+}
+
+void Engine::CollectChanges(std::size_t index, const monitors::StepResult& r, std::int64_t period,
+                            std::vector<AlertChange>& out) const {
+  const std::uint64_t any = r.episodes_opened | r.episodes_escalated | r.episodes_resolved;
+  if (!any) return;
+  const Series& s = series_[index];
+  const auto& rules = s.policy->spec.rules;
+  for (std::size_t i = 0; i < rules.size(); ++i) {
+    const std::uint64_t bit = std::uint64_t{1} << i;
+    if (!(any & bit)) continue;
+    AlertChange c;
+    c.series = index;
+    c.rule = i;
+    c.period = period;
+    if (monitors::StepSignal(rules[i].signal)) c.value = monitors::RuleValue(rules[i], r, s.state);
+    c.severity = monitors::EpisodeSeverity(rules[i], s.state.rules[i]);
+    // an episode that ended in this step (a stale gap) opened in it too: both are recorded
+    if (r.episodes_opened & bit) {
+      c.kind = AlertChange::Kind::kOpened;
+      if (r.episodes_resolved & bit) c.severity = rules[i].severity;
+      out.push_back(c);
+    }
+    if (r.episodes_escalated & bit) {
+      c.kind = AlertChange::Kind::kEscalated;
+      out.push_back(c);
+    }
+    if (r.episodes_resolved & bit) {
+      c.kind = AlertChange::Kind::kResolved;
+      c.reason = "clear";
+      out.push_back(c);
+    }
+  }
+}
+
+bool Engine::AlertAction(const std::function<bool(AlertBook&, std::int64_t, int&, std::string&)>& action,
+                         int& status, std::string& error) {
+  const std::string sticky = failure();
+  if (!sticky.empty()) {
+    status = 503;
+    error = sticky;
+    return false;
+  }
+  if (!store_.Begin()) {
+    Fail("store: " + store_.error());
+    status = 503;
+    error = failure();
+    return false;
+  }
+  const std::size_t mark = alerts_.Mark();
+  status = 200;
+  if (!action(alerts_, clock_(), status, error)) {
+    store_.Rollback();
+    alerts_.RollbackTo(mark);
+    if (status == 500) {
+      Fail("store: alerts: " + error);
+      status = 503;
+      error = failure();
+    }
+    return false;
+  }
+  if (!store_.Commit()) {
+    Fail("store: commit: " + store_.error());
+    store_.Rollback();
+    alerts_.RollbackTo(mark);
+    status = 503;
+    error = failure();
+    return false;
+  }
+  alerts_.Forget();
+  if (on_outbox_) on_outbox_();
+  return true;
+}
+
+void Engine::Housekeeping() {
+  const std::int64_t now = clock_();
+  if (now - last_housekeeping_ms_ < settings_->alerts.check_seconds * 1000) return;
+  last_housekeeping_ms_ = now;
+  if (!failure().empty()) return;
+  // Stale rules: series whose actuals are overdue (policies with stale rules only).
+  std::vector<AlertChange> changes;
+  const std::int64_t today = Today();
+  std::vector<std::pair<std::size_t, monitors::SeriesState>> before;
+  for (std::size_t i = 0; i < series_.size(); ++i) {
+    Series& s = series_[i];
+    const auto& rules = s.policy->spec.rules;
+    if (!s.state.seen ||
+        std::none_of(rules.begin(), rules.end(),
+                     [](const monitors::RuleSpec& r) { return r.signal == monitors::SignalKind::kStale; }))
+      continue;
+    const std::int64_t overdue = monitors::PeriodOfDay(s.policy->period, today) - s.state.last_period - 1;
+    if (overdue <= 0) continue;
+    monitors::StepResult r;
+    monitors::SeriesState saved = s.state;
+    monitors::CheckStale(s.policy->spec, s.state, static_cast<long>(overdue), r);
+    if (r.episodes_opened) {
+      before.push_back({i, std::move(saved)});
+      CollectChanges(i, r, s.state.last_period + overdue, changes);
+      MarkDirty(i);
+    }
+  }
+  const std::size_t mark = alerts_.Mark();
+  AlertCounts counts;
+  const bool ok = store_.Begin() && alerts_.Apply(changes, [this](std::size_t i) { return Info(i); }, now, counts) &&
+                  alerts_.WakeSnoozed(now, [this](std::size_t i) { return Info(i); }, counts) &&
+                  store_.Commit();
+  if (!ok) {
+    Fail("store: alerts: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
+    store_.Rollback();
+    alerts_.RollbackTo(mark);
+    for (auto& [i, state] : before) series_[i].state = std::move(state);
+    return;
+  }
+  alerts_.Forget();
+  alert_counts_.opened += counts.opened;
+  alert_counts_.notified += counts.notified;
+  if (counts.notified && on_outbox_) on_outbox_();
 }
 
 void Engine::Stop() {
@@ -253,6 +406,8 @@ bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
         }
     }
     settings_ = settings;
+    std::string error;
+    if (!OpenAlerts(error)) Fail(error);  // rule indexes may have moved: place alerts again
   });
 }
 
@@ -279,6 +434,7 @@ void Engine::Run() {
       const auto flush_every = std::chrono::seconds(std::max<long>(1, settings_->server.state_flush_seconds));
       if (!wake_.wait_for(lock, flush_every, [this] { return stopping_ || !queue_.empty(); })) {
         lock.unlock();
+        Housekeeping();
         // idle: write the states that are waiting
         if (dirty_count_ && failure().empty()) {
           if (store_.Begin() && FlushDirty() && store_.Commit()) {
@@ -304,6 +460,7 @@ void Engine::Run() {
       if (group.front().read) group.front().read();
       continue;
     }
+    const std::size_t group_mark = alerts_.Mark();
     std::vector<Pending> pending(group.size());
     for (std::size_t i = 0; i < group.size(); ++i) pending[i].job = std::move(group[i]);
     const std::string sticky = failure();
@@ -330,6 +487,7 @@ void Engine::Run() {
     const std::string failed = failure();
     if (!failed.empty()) {
       store_.Rollback();
+      alerts_.RollbackTo(group_mark);
       // Undo in reverse order: later batches saw the earlier ones' states.
       for (auto it = pending.rbegin(); it != pending.rend(); ++it) {
         if (it->reply.status == IngestReply::Status::kOk) Rewind(*it);
@@ -337,12 +495,16 @@ void Engine::Run() {
         it->reply.error = failed;
       }
     } else {
+      alerts_.Forget();
       const std::int64_t now = clock_();
       for (const Pending& p : pending)
         if (p.reply.status == IngestReply::Status::kOk)
           for (const config::Policy* policy : p.policies) last_arrival_[policy->name] = now;
+      if (notified_ && on_outbox_) on_outbox_();
     }
+    notified_ = 0;
     for (Pending& p : pending) p.job.done(std::move(p.reply));
+    Housekeeping();
   }
 }
 
@@ -362,6 +524,7 @@ void Engine::Rewind(Pending& p) {
 
 void Engine::ApplyBatch(Pending& p) {
   p.series_before = series_.size();
+  p.alert_mark = alerts_.Mark();
   p.reply.counts.rows = static_cast<long>(p.job.rows.size());
   if (!store_.Savepoint()) {
     Fail("store: savepoint: " + store_.error());
@@ -407,6 +570,27 @@ void Engine::ApplyBatch(Pending& p) {
         MarkDirty(i);
       }
     }
+    // Alert changes go into the same transaction as the actuals that caused them.
+    const auto info = [this](std::size_t i) { return Info(i); };
+    const std::int64_t now = clock_();
+    AlertCounts counts;
+    bool ok = alerts_.Apply(p.alert_changes, info, now, counts);
+    for (std::size_t k = 0; ok && k < touched_list.size(); ++k) {
+      const std::size_t i = touched_list[k];
+      ok = alerts_.WakeSnoozedAt(i, series_[i].state.last_period, info, now, counts);
+    }
+    if (!ok) {
+      Fail("store: alerts: " + alerts_.error());
+      return;
+    }
+    p.reply.counts.alerts_opened = counts.opened;
+    p.reply.counts.alerts_resolved = counts.resolved;
+    alert_counts_.opened += counts.opened;
+    alert_counts_.escalated += counts.escalated;
+    alert_counts_.resolved += counts.resolved;
+    alert_counts_.grouped += counts.grouped;
+    alert_counts_.notified += counts.notified;
+    notified_ += counts.notified;
     if (!store_.ReleaseSavepoint()) Fail("store: release: " + store_.error());
     return;
   }
@@ -414,6 +598,8 @@ void Engine::ApplyBatch(Pending& p) {
   p.reply.counts = IngestCounts{};
   p.reply.counts.rows = static_cast<long>(p.job.rows.size());
   if (!store_.RollbackToSavepoint()) Fail("store: rollback: " + store_.error());
+  alerts_.RollbackTo(p.alert_mark);
+  p.alert_changes.clear();
   Rewind(p);
 }
 
@@ -480,8 +666,7 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     ++s.retained;
     ++p.reply.counts.applied;
     p.reply.counts.filled += r.filled;
-    p.reply.counts.alerts_opened += __builtin_popcountll(r.opened);
-    p.reply.counts.alerts_cleared += __builtin_popcountll(r.cleared);
+    CollectChanges(index, r, period.ordinal, p.alert_changes);
     return true;
   }
   bool found = false;
@@ -512,11 +697,23 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     }
     return problem("value", "the restated history cannot be recomputed");
   }
-  const std::uint64_t before = s.state.active;
+  // Episodes the restated history no longer has (or now has) resolve (open) as of the newest
+  // period.
+  monitors::StepResult diff;
+  for (std::size_t i = 0; i < recomputed.rules.size() && i < s.state.rules.size(); ++i) {
+    const std::uint64_t bit = std::uint64_t{1} << i;
+    const monitors::RuleState& was = s.state.rules[i];
+    const monitors::RuleState& now = recomputed.rules[i];
+    if (was.open && !now.open) diff.episodes_resolved |= bit;
+    if (!was.open && now.open) diff.episodes_opened |= bit;
+    if (was.open && now.open && now.escalated && !was.escalated) diff.episodes_escalated |= bit;
+  }
   s.state = std::move(recomputed);
   p.must_write.insert(index);
-  p.reply.counts.alerts_opened += __builtin_popcountll(s.state.active & ~before);
-  p.reply.counts.alerts_cleared += __builtin_popcountll(before & ~s.state.active);
+  const std::size_t first_change = p.alert_changes.size();
+  CollectChanges(index, diff, s.state.last_period, p.alert_changes);
+  for (std::size_t k = first_change; k < p.alert_changes.size(); ++k)
+    if (p.alert_changes[k].kind == AlertChange::Kind::kResolved) p.alert_changes[k].reason = "restated";
   ++p.reply.counts.restated;
   return true;
 }
@@ -685,13 +882,21 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
   }
   monitors::SeriesState next = s.state;
   Relevel(next, new_level);
-  if (!store_.UpdateState(s.id, next) || !store_.Commit()) {
-    Fail("store: " + store_.error());
+  const std::size_t mark = alerts_.Mark();
+  AlertCounts counts;
+  if (!alerts_.ResolveSeries(static_cast<std::size_t>(pos), "reset", who,
+                             [this](std::size_t i) { return Info(i); }, clock_(), counts) ||
+      !store_.UpdateState(s.id, next) || !store_.Commit()) {
+    Fail("store: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
     store_.Rollback();
+    alerts_.RollbackTo(mark);
     error = failure();
     return false;
   }
+  alerts_.Forget();
   s.state = std::move(next);
+  alert_counts_.resolved += counts.resolved;
+  if (counts.notified && on_outbox_) on_outbox_();
   return true;
 }
 

@@ -29,6 +29,7 @@
 #include <vector>
 
 #include "config/settings.h"
+#include "daemon/alert_book.h"
 #include "daemon/chunked_vector.h"
 #include "daemon/key_arena.h"
 #include "daemon/series_index.h"
@@ -61,8 +62,8 @@ struct IngestCounts {
   long restated = 0;
   long filled = 0;           // gap periods filled with zero or skipped
   long new_series = 0;
-  long alerts_opened = 0;    // rules that started holding
-  long alerts_cleared = 0;   // rules that stopped holding
+  long alerts_opened = 0;    // alert episodes opened
+  long alerts_resolved = 0;  // alert episodes resolved
 };
 
 struct IngestReply {
@@ -137,6 +138,18 @@ class Engine {
   // Series whose stored state was behind their actuals at start (after a crash) and were
   // brought up to date by replaying them.
   long recovered_series() const { return recovered_; }
+  // The alert book and the database it writes to (reads for the alerts API).
+  AlertBook& alerts() { return alerts_; }
+  Db& db() { return store_.db(); }
+  // Runs a hand change of an alert in its own transaction; `status` 200 on success, else the
+  // book's 404/409 or 503 when the store failed.
+  bool AlertAction(const std::function<bool(AlertBook&, std::int64_t now_ms, int& status,
+                                            std::string& error)>& action,
+                   int& status, std::string& error);
+
+  const AlertCounts& alert_counts() const { return alert_counts_; }
+  // Before Start: called (on the engine thread) after each commit that queued notifications.
+  void OnOutbox(std::function<void()> listener) { on_outbox_ = std::move(listener); }
 
  private:
   struct Series {
@@ -165,6 +178,8 @@ class Engine {
     std::size_t series_before = 0;
     std::unordered_set<std::size_t> must_write;  // restated series: state written with the batch
     std::vector<const config::Policy*> policies;  // that received new actuals (a few)
+    std::vector<AlertChange> alert_changes;
+    std::size_t alert_mark = 0;
   };
 
   void Run();
@@ -178,6 +193,13 @@ class Engine {
   void ClearDirty();
   void Rewind(Pending& p);
   void Fail(const std::string& why);
+  AlertSeries Info(std::size_t index) const;
+  bool OpenAlerts(std::string& error);
+  // Snoozes that ran out and stale rules, every alerts.check_seconds.
+  void Housekeeping();
+  // Alert changes of one step of series `index` (episode bits of `r`).
+  void CollectChanges(std::size_t index, const monitors::StepResult& r, std::int64_t period,
+                      std::vector<AlertChange>& out) const;
   std::int64_t Today() const;  // days since 1970-01-01 by the clock
   bool IsStale(const Series& s, std::int64_t today) const;
   SeriesView View(const Series& s, std::int64_t today) const;
@@ -207,6 +229,11 @@ class Engine {
   std::size_t dirty_count_ = 0;
   std::int64_t last_flush_ms_ = 0;
   long recovered_ = 0;
+  AlertBook alerts_;
+  AlertCounts alert_counts_;  // since start (engine thread)
+  std::int64_t last_housekeeping_ms_ = 0;
+  std::function<void()> on_outbox_;
+  long notified_ = 0;  // notifications queued by the batches being committed
 
   mutable std::mutex mu_;
   std::condition_variable wake_;

@@ -13,7 +13,7 @@ namespace http = beast::http;
 
 HttpResult HttpPost(const std::string& url, const std::string& content_type,
                     const std::string& body, const std::string& token,
-                    std::chrono::seconds timeout) {
+                    std::chrono::seconds timeout, const HttpHeaders& headers) {
   HttpResult result;
   const std::string scheme = "http://";
   if (url.rfind(scheme, 0) != 0) {
@@ -42,8 +42,9 @@ HttpResult HttpPost(const std::string& url, const std::string& content_type,
     stream.connect(resolver.resolve(host, port));
     http::request<http::string_body> req{http::verb::post, target, 11};
     req.set(http::field::host, hostport);
-    req.set(http::field::user_agent, "forewarden-push");
+    req.set(http::field::user_agent, "forewarden");
     req.set(http::field::content_type, content_type);
+    for (const auto& [name, value] : headers) req.set(name, value);
     if (!token.empty()) req.set(http::field::authorization, "Bearer " + token);
     req.body() = body;
     req.prepare_payload();

@@ -3,6 +3,8 @@
 
 #include <chrono>
 #include <string>
+#include <utility>
+#include <vector>
 
 namespace forewarden {
 
@@ -13,9 +15,12 @@ struct HttpResult {
   std::string error;         // connection or protocol failure
 };
 
-// POSTs `body` to an http:// URL (host, optional port, path). `token`: a bearer token or "".
+using HttpHeaders = std::vector<std::pair<std::string, std::string>>;
+
+// POSTs `body` to an http:// URL (host, optional port, path). `token`: a bearer token or "";
+// `headers` are added as given.
 HttpResult HttpPost(const std::string& url, const std::string& content_type,
                     const std::string& body, const std::string& token,
-                    std::chrono::seconds timeout);
+                    std::chrono::seconds timeout, const HttpHeaders& headers = {});
 
 }  // namespace forewarden

@@ -83,6 +83,7 @@ class Store {
              const std::string& series_key, const std::string& detail);
 
   int schema_version() const { return schema_version_; }
+  Db& db() { return db_; }  // the alert book shares the connection (and its transactions)
 
  private:
   bool Migrate();
