@@ -4,25 +4,13 @@
 #include <map>
 #include <nlohmann/json.hpp>
 
+#include "daemon/iso_time.h"
 #include "monitors/period.h"
 
 namespace forewarden {
 namespace {
 
 using json = nlohmann::json;
-
-std::string IsoTime(std::int64_t ms) {
-  const std::int64_t days = ms >= 0 ? ms / 86400000 : -((-ms + 86399999) / 86400000);
-  const std::int64_t in_day = ms - days * 86400000;
-  int y = 0;
-  int m = 0, d = 0;
-  monitors::CivilFromDays(days, y, m, d);
-  char buf[40];
-  std::snprintf(buf, sizeof buf, "%04d-%02d-%02dT%02d:%02d:%02d.%03dZ", y, m, d,
-                static_cast<int>(in_day / 3600000), static_cast<int>(in_day / 60000 % 60),
-                static_cast<int>(in_day / 1000 % 60), static_cast<int>(in_day % 1000));
-  return buf;
-}
 
 }  // namespace
 
@@ -228,7 +216,8 @@ bool AlertBook::Event(std::int64_t alert, std::int64_t group, const std::string&
 
 // The notification text of an alert event: {"kind", "at", "summary", "alert": {...}}.
 static std::string AlertBody(Db& db, std::int64_t id, const std::string& kind, std::int64_t now_ms,
-                             const std::string& url, std::string& error) {
+                             const std::string& url, std::string& error,
+                             const char* previous_severity = nullptr) {
   std::string alert;
   if (!AlertJson(db, id, alert, error)) return {};
   json a = json::parse(alert);
@@ -245,6 +234,7 @@ static std::string AlertBody(Db& db, std::int64_t id, const std::string& kind, s
                     : "",
                 a["opened_period"].get<std::string>().c_str());
   json body{{"kind", kind}, {"at", IsoTime(now_ms)}, {"summary", summary}, {"alert", a}};
+  if (previous_severity) body["previous_severity"] = previous_severity;
   return body.dump(-1, ' ', false, json::error_handler_t::replace);
 }
 
@@ -323,6 +313,7 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
     } else if (c.kind == AlertChange::Kind::kEscalated) {
       if (it == open_.end() || it->second.severity >= c.severity) continue;
       Live o = it->second;
+      const monitors::Severity previous = o.severity;
       o.severity = c.severity;
       o.state = 'o';
       o.snooze_ms = o.snooze_period = INT64_MAX;
@@ -331,7 +322,8 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
       if (c.value) set_severity_.Bind(4, *c.value); else set_severity_.BindNull(4);
       if (!set_severity_.Run()) return Fail("alert escalation");
       Set(key, o);
-      const std::string body = AlertBody(*db_, o.id, "escalated", now_ms, SeriesUrl(s.key), error);
+      const std::string body = AlertBody(*db_, o.id, "escalated", now_ms, SeriesUrl(s.key), error,
+                                         monitors::SeverityName(previous));
       if (body.empty()) return Fail("alert body: " + error);
       if (!Event(o.id, o.group, "escalated", now_ms, "", "", body, true)) return false;
       ++counts.escalated;

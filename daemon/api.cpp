@@ -6,6 +6,7 @@
 #include <nlohmann/json.hpp>
 
 #include "daemon/ingest.h"
+#include "daemon/iso_time.h"
 #include "monitors/interval.h"
 
 namespace forewarden {
@@ -53,15 +54,6 @@ HttpResponse Unauthorized() {
 json Number(std::optional<double> v) {
   if (!v || !std::isfinite(*v)) return nullptr;
   return *v;
-}
-
-std::string IsoTime(std::int64_t ms) {
-  const std::time_t t = static_cast<std::time_t>(ms / 1000);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char buf[32];
-  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%SZ", &tm);
-  return buf;
 }
 
 // Splits "path?a=1&b=2" into the path and decoded query pairs.
@@ -237,14 +229,28 @@ void Api::Handle(HttpRequest&& request, Respond respond) {
         json labels = json::object();
         for (auto& [k, v] : p.match.labels) labels[k] = v;
         json rules = json::array();
-        for (const auto& r : p.spec.rules)
-          rules.push_back({{"name", r.name},
-                           {"signal", monitors::SignalKindName(r.signal)},
-                           {"limit", r.limit},
-                           {"clear", r.clear},
-                           {"persistence", r.persistence},
-                           {"direction", monitors::DirectionName(r.direction)},
-                           {"severity", monitors::SeverityName(r.severity)}});
+        for (const auto& r : p.spec.rules) {
+          json rule{{"name", r.name},
+                    {"signal", monitors::SignalKindName(r.signal)},
+                    {"limit", r.limit},
+                    {"clear", r.clear},
+                    {"persistence", r.persistence},
+                    {"direction", monitors::DirectionName(r.direction)},
+                    {"severity", monitors::SeverityName(r.severity)},
+                    {"resolve_after", r.resolve_after}};
+          if (r.periods > 0) rule["periods"] = r.periods;
+          if (r.escalate_limit)
+            rule["escalate"] = {{"limit", *r.escalate_limit},
+                                {"severity", monitors::SeverityName(r.escalate_severity)}};
+          for (const auto& c : p.calibrations)
+            if (c.rule == r.name)
+              rule["calibration"] = {
+                  {"false_alert_every", c.every},
+                  {"derived_limit", c.limit},
+                  {"simulated_rate", c.rate},
+                  {"expected_false_alerts_per_week", c.per_series_week * static_cast<double>(counts[p.name])}};
+          rules.push_back(std::move(rule));
+        }
         const std::int64_t last = engine_.LastArrival(p.name);
         list.push_back({{"name", p.name},
                         {"match", {{"key", p.match.key}, {"labels", labels}}},
@@ -332,6 +338,10 @@ void Api::Handle(HttpRequest&& request, Respond respond) {
     if (!queued) respond(Error(503, "the engine is busy; retry later"));
     return;
   }
+  if (path == "/v1/alerts" || path.rfind("/v1/alerts/", 0) == 0)
+    return Alerts(path, query, std::move(request), std::move(respond));
+  if (path == "/v1/deliveries" || path == "/v1/deliveries/retry")
+    return Deliveries(path, query, std::move(request), std::move(respond));
   const std::string prefix = "/v1/series/";
   if (path.rfind(prefix, 0) == 0 && path.size() > prefix.size()) {
     std::string rest = path.substr(prefix.size());
@@ -453,6 +463,257 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
     out.headers.emplace_back("Retry-After", "1");
     respond(std::move(out));
   }
+}
+
+namespace {
+
+json DeliveryRows(Db& db, std::int64_t event) {
+  json out = json::array();
+  Stmt q = db.Prepare("SELECT sink, state, attempts, last_error FROM deliveries WHERE event_id = ?1 ORDER BY sink");
+  if (!q.valid() || !q.Bind(1, event).Step()) return out;
+  for (; q.Row(); q.Step())
+    out.push_back({{"sink", std::string(q.Text(0))}, {"state", std::string(q.Text(1))},
+                   {"attempts", q.Int(2)},
+                   {"last_error", q.IsNull(3) ? json(nullptr) : json(std::string(q.Text(3)))}});
+  return out;
+}
+
+}  // namespace
+
+void Api::Alerts(const std::string& path, const Query& query, HttpRequest&& request, Respond respond) {
+  auto param = [&](const char* name) -> std::string {
+    for (auto& [k, v] : query)
+      if (k == name) return v;
+    return "";
+  };
+  const bool get = request.method == "GET", post = request.method == "POST";
+  if (path == "/v1/alerts") {
+    if (!get) return respond(Error(405, "use GET"));
+    long limit = 100;
+    std::int64_t before = INT64_MAX;
+    try {
+      if (!param("limit").empty()) limit = std::stol(param("limit"));
+      if (!param("before").empty()) before = std::stoll(param("before"));
+    } catch (const std::exception&) {
+      return respond(Error(400, "limit and before must be whole numbers"));
+    }
+    if (limit < 1 || limit > 1000) return respond(Error(400, "limit must be 1..1000"));
+    const std::string state = param("state");
+    if (!state.empty() && state != "open" && state != "acknowledged" && state != "snoozed" &&
+        state != "resolved" && state != "unresolved")
+      return respond(Error(400, "state must be open, acknowledged, snoozed, resolved or unresolved"));
+    const std::string severity = param("severity");
+    if (!severity.empty() && !monitors::ParseSeverity(severity))
+      return respond(Error(400, "severity must be info, warning or critical"));
+    std::string group = param("group");
+    if (!group.empty() && group.find_first_not_of("0123456789") != std::string::npos)
+      return respond(Error(400, "group must be a whole number"));
+    // Fixed SQL fragments; every value is bound.
+    std::string sql = "SELECT id FROM alerts WHERE id < ?1";
+    std::vector<std::string> values;
+    auto filter = [&](const std::string& value, const char* column) {
+      if (value.empty()) return;
+      values.push_back(value);
+      sql += std::string(" AND ") + column + " = ?" + std::to_string(values.size() + 1);
+    };
+    if (state == "unresolved")
+      sql += " AND state != 'resolved'";
+    else
+      filter(state, "state");
+    filter(param("policy"), "policy");
+    filter(param("rule"), "rule");
+    filter(severity, "severity");
+    filter(param("series"), "series_key");
+    filter(group, "CAST(group_id AS TEXT)");
+    sql += " ORDER BY id DESC LIMIT " + std::to_string(limit + 1);
+    const bool queued = engine_.Post([=, this] {
+      Db& db = engine_.db();
+      Stmt q = db.Prepare(sql);
+      if (!q.valid()) return respond(Error(503, db.error()));
+      q.Bind(1, before);
+      for (std::size_t i = 0; i < values.size(); ++i) q.Bind(static_cast<int>(i + 2), values[i]);
+      std::vector<std::int64_t> ids;
+      if (!q.Step()) return respond(Error(503, db.error()));
+      for (; q.Row(); q.Step()) ids.push_back(q.Int(0));
+      const bool more = static_cast<long>(ids.size()) > limit;
+      if (more) ids.pop_back();
+      json list = json::array();
+      for (std::int64_t id : ids) {
+        std::string text, error;
+        if (!AlertJson(db, id, text, error)) return respond(Error(503, error));
+        list.push_back(json::parse(text));
+      }
+      respond(Json(200, {{"alerts", list},
+                         {"next_before", more ? json(ids.back()) : json(nullptr)}}));
+    });
+    if (!queued) respond(Error(503, "the engine is busy; retry later"));
+    return;
+  }
+  // /v1/alerts/{id}[/acknowledge|/snooze|/resolve]
+  std::string rest = path.substr(std::string("/v1/alerts/").size());
+  std::string action;
+  if (const std::size_t slash = rest.find('/'); slash != std::string::npos) {
+    action = rest.substr(slash + 1);
+    rest.resize(slash);
+  }
+  if (rest.empty() || rest.size() > 18 || rest.find_first_not_of("0123456789") != std::string::npos)
+    return respond(Error(404, "no such alert: " + rest));
+  const std::int64_t id = std::stoll(rest);
+  if (action.empty()) {
+    if (!get) return respond(Error(405, "use GET"));
+    const bool queued = engine_.Post([=, this] {
+      Db& db = engine_.db();
+      std::string text, error;
+      if (!AlertJson(db, id, text, error))
+        return respond(Error(error.rfind("no alert", 0) == 0 ? 404 : 503, error));
+      json alert = json::parse(text);
+      json history = json::array();
+      Stmt q = db.Prepare(
+          "SELECT id, kind, at_ms, actor, note FROM alert_events WHERE alert_id = ?1 ORDER BY id");
+      if (!q.valid() || !q.Bind(1, id).Step()) return respond(Error(503, db.error()));
+      std::vector<std::int64_t> events;
+      for (; q.Row(); q.Step()) {
+        history.push_back({{"event", q.Int(0)},
+                           {"kind", std::string(q.Text(1))},
+                           {"at", IsoTime(q.Int(2))},
+                           {"by", q.IsNull(3) ? json(nullptr) : json(std::string(q.Text(3)))},
+                           {"note", q.IsNull(4) ? json(nullptr) : json(std::string(q.Text(4)))}});
+        events.push_back(q.Int(0));
+      }
+      q.Reset();
+      for (std::size_t i = 0; i < events.size(); ++i) history[i]["deliveries"] = DeliveryRows(db, events[i]);
+      alert["history"] = history;
+      respond(Json(200, alert));
+    });
+    if (!queued) respond(Error(503, "the engine is busy; retry later"));
+    return;
+  }
+  if (action != "acknowledge" && action != "snooze" && action != "resolve")
+    return respond(Error(404, "no such endpoint: " + path));
+  if (!post) return respond(Error(405, "use POST"));
+  if (!Authorized(request)) return respond(Unauthorized());
+  json body = json::parse(request.body, nullptr, false);
+  if (body.is_discarded() || !body.is_object())
+    return respond(Error(400, "the body must be a JSON object such as {\"by\": \"name\", \"note\": \"...\"}"));
+  if (!body.contains("by") || !body["by"].is_string() || body["by"].get<std::string>().empty())
+    return respond(Error(400, "field by: say who does this (kept in the alert's history)"));
+  const std::string by = body["by"].get<std::string>();
+  if (body.contains("note") && !body["note"].is_string())
+    return respond(Error(400, "field note: must be a string"));
+  const std::string note = body.value("note", "");
+  std::string until;
+  std::optional<std::int64_t> until_ms;
+  if (action == "snooze") {
+    if (!body.contains("until") || !body["until"].is_string())
+      return respond(Error(400, "field until: a period of the series' policy (2026-W50, 2026-12, 2026-12-05) or an ISO 8601 time (2026-12-05T10:00:00Z)"));
+    until = body["until"].get<std::string>();
+    std::int64_t ms = 0;
+    if (until.find('T') != std::string::npos) {
+      if (!ParseIsoTime(until, ms)) return respond(Error(400, "field until: not an ISO 8601 time with Z or an offset: " + until));
+      until_ms = ms;
+    }
+  }
+  const bool queued = engine_.Post([=, this] {
+    int status = 200;
+    std::string error;
+    engine_.AlertAction(
+        [&](AlertBook& book, std::int64_t now, int& st, std::string& err) {
+          if (action == "acknowledge") return book.Acknowledge(id, by, note, now, st, err);
+          if (action == "resolve") return book.ResolveByHand(id, by, note, now, st, err);
+          std::optional<std::int64_t> until_period;
+          if (!until_ms) {
+            // a period of the alert's policy
+            std::string policy_name;
+            Stmt q = engine_.db().Prepare("SELECT policy FROM alerts WHERE id = ?1");
+            if (q.valid() && q.Bind(1, id).Step() && q.Row()) policy_name = std::string(q.Text(0));
+            const config::Policy* policy = nullptr;
+            for (const auto& p : engine_.settings().policies)
+              if (p.name == policy_name) policy = &p;
+            if (!policy) {
+              st = 404;
+              err = "no alert " + std::to_string(id) + " of a known policy";
+              return false;
+            }
+            const monitors::PeriodParse parsed = monitors::ParsePeriod(policy->period, until);
+            if (!parsed.ok()) {
+              st = 400;
+              err = "field until: " + parsed.error;
+              return false;
+            }
+            until_period = parsed.ordinal;
+          } else if (*until_ms <= now) {
+            st = 400;
+            err = "field until: the time has passed";
+            return false;
+          }
+          return book.Snooze(id, until_period, until, until_ms, by, note, now, st, err);
+        },
+        status, error);
+    if (status != 200) return respond(Error(status, error));
+    std::string text;
+    if (!AlertJson(engine_.db(), id, text, error)) return respond(Error(503, error));
+    respond(Json(200, json::parse(text)));
+  });
+  if (!queued) respond(Error(503, "the engine is busy; retry later"));
+}
+
+void Api::Deliveries(const std::string& path, const Query& query, HttpRequest&& request, Respond respond) {
+  std::string state = "dead", sink;
+  for (auto& [k, v] : query) {
+    if (k == "state") state = v;
+    if (k == "sink") sink = v;
+  }
+  if (state != "dead" && state != "pending" && state != "delivered")
+    return respond(Error(400, "state must be dead, pending or delivered"));
+  if (path == "/v1/deliveries/retry") {
+    if (request.method != "POST") return respond(Error(405, "use POST"));
+    if (!Authorized(request)) return respond(Unauthorized());
+    const bool queued = engine_.Post([=, this] {
+      int status = 200;
+      std::string error;
+      long changed = 0;
+      engine_.AlertAction(
+          [&](AlertBook&, std::int64_t now, int& st, std::string& err) {
+            Stmt q = engine_.db().Prepare(
+                "UPDATE deliveries SET state = 'pending', attempts = 0, next_ms = ?1 "
+                "WHERE state = 'dead' AND (?2 = '' OR sink = ?2)");
+            if (!q.valid() || !q.Bind(1, now).Bind(2, sink).Run()) {
+              st = 500;
+              err = engine_.db().error();
+              return false;
+            }
+            changed = engine_.db().Changes();
+            return true;
+          },
+          status, error);
+      if (status != 200) return respond(Error(status, error));
+      respond(Json(200, {{"requeued", changed}}));
+    });
+    if (!queued) respond(Error(503, "the engine is busy; retry later"));
+    return;
+  }
+  if (request.method != "GET") return respond(Error(405, "use GET"));
+  const bool queued = engine_.Post([=, this] {
+    Db& db = engine_.db();
+    Stmt q = db.Prepare(
+        "SELECT d.event_id, d.sink, d.state, d.attempts, d.last_error, e.kind, e.alert_id, "
+        "e.group_id, e.at_ms FROM deliveries d JOIN alert_events e ON e.id = d.event_id "
+        "WHERE d.state = ?1 AND (?2 = '' OR d.sink = ?2) ORDER BY d.event_id LIMIT 1000");
+    if (!q.valid() || !q.Bind(1, state).Bind(2, sink).Step()) return respond(Error(503, db.error()));
+    json list = json::array();
+    for (; q.Row(); q.Step())
+      list.push_back({{"event", q.Int(0)},
+                      {"sink", std::string(q.Text(1))},
+                      {"state", std::string(q.Text(2))},
+                      {"attempts", q.Int(3)},
+                      {"last_error", q.IsNull(4) ? json(nullptr) : json(std::string(q.Text(4)))},
+                      {"kind", std::string(q.Text(5))},
+                      {"alert", q.IsNull(6) ? json(nullptr) : json(q.Int(6))},
+                      {"group", q.IsNull(7) ? json(nullptr) : json(q.Int(7))},
+                      {"at", IsoTime(q.Int(8))}});
+    respond(Json(200, {{"deliveries", list}}));
+  });
+  if (!queued) respond(Error(503, "the engine is busy; retry later"));
 }
 
 void Api::Reset(const std::string& key, HttpRequest&& request, Respond respond) {

@@ -4,7 +4,14 @@
 //   GET  /v1/series/{key}                 next forecast, interval, statistics, signals, alerts
 //   GET  /v1/series/{key}/history         ?from=&to= (ISO dates): what a chart needs
 //   POST /v1/series/{key}/reset           {"to": "value"|"last"|"mean", "value", "k", "who", "note"}
-//   GET  /v1/policies
+//   GET  /v1/policies                     with derived limits and expected false alerts
+//   GET  /v1/alerts                       ?state= &policy= &rule= &severity= &series= &group= &limit= &before=
+//   GET  /v1/alerts/{id}                  with its history and deliveries
+//   POST /v1/alerts/{id}/acknowledge      {"by", "note"}
+//   POST /v1/alerts/{id}/snooze           {"until": period or ISO time, "by", "note"}
+//   POST /v1/alerts/{id}/resolve          {"by", "note"}
+//   GET  /v1/deliveries                   ?state=dead|pending|delivered &sink=
+//   POST /v1/deliveries/retry             ?sink=  dead deliveries back to pending
 //   GET  /healthz, /readyz
 // Write endpoints need "Authorization: Bearer TOKEN" when a token is configured (compared in
 // constant time, never logged). Reads run as jobs on the engine thread.
@@ -39,7 +46,10 @@ class Api {
 
  private:
   void Ingest(HttpRequest&& request, Respond respond);
+  using Query = std::vector<std::pair<std::string, std::string>>;
   void Reset(const std::string& key, HttpRequest&& request, Respond respond);
+  void Alerts(const std::string& path, const Query& query, HttpRequest&& request, Respond respond);
+  void Deliveries(const std::string& path, const Query& query, HttpRequest&& request, Respond respond);
   bool Authorized(const HttpRequest& request);
   std::shared_ptr<const config::Settings> settings() const;
 

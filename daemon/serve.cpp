@@ -13,6 +13,7 @@
 #include "config/load.h"
 #include "daemon/api.h"
 #include "daemon/drop_folder.h"
+#include "daemon/delivery.h"
 #include "daemon/engine.h"
 #include "daemon/http_server.h"
 
@@ -120,13 +121,22 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
     return 2;
   }
 
-  Engine engine(settings, [] {
+  const auto wall_clock = [] {
     return std::chrono::duration_cast<std::chrono::milliseconds>(
                std::chrono::system_clock::now().time_since_epoch())
         .count();
-  });
+  };
+  Engine engine(settings, wall_clock);
+  Delivery delivery(settings, wall_clock);
+  engine.OnOutbox([&delivery] { delivery.Notify(); });
   if (!engine.Start(error)) {
     err << "forewarden serve: " << error << '\n';
+    return 1;
+  }
+  // Undelivered events from before a stop or a crash go out first.
+  if (!delivery.Start(error)) {
+    err << "forewarden serve: " << error << '\n';
+    engine.Stop();
     return 1;
   }
   Api api(engine, settings, token);
@@ -141,6 +151,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   if (!server.Start(error)) {
     err << "forewarden serve: " << error << '\n';
     engine.Stop();
+    delivery.Stop();
     return 1;
   }
   std::unique_ptr<DropFolder> folder;
@@ -153,6 +164,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
       server.Shutdown(std::chrono::seconds(0));
       server.Run();
       engine.Stop();
+      delivery.Stop();
       return 1;
     }
   }
@@ -195,6 +207,11 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
           Log(err, "reload refused, the settings in force stay: " + problem);
           return;
         }
+        if (!delivery.Update(next, problem)) {
+          ++reloads_failed;
+          Log(err, "reload refused, the settings in force stay: " + problem);
+          return;
+        }
         engine.Reload(next);
         api.Update(next, next_token);
         ++reloads_ok;
@@ -225,6 +242,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   server.Run();
   if (folder) folder->Stop();
   engine.Stop();
+  delivery.Stop();
   Log(err, "stopped");
   return 0;
 }
