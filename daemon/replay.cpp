@@ -477,27 +477,27 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
         auto it = std::find_if(slot.open.begin(), slot.open.end(),
                                [i](const auto& o) { return o.first == i; });
         if ((r.episodes_resolved & bit) && it != slot.open.end()) {
-          episodes[it->second].resolved = parsed.text;
+          episodes[it->second].resolved.assign(parsed.text, sizeof parsed.text);
           slot.open.erase(it);
           it = slot.open.end();
         }
         if (r.episodes_opened & bit) {
           slot.open.push_back({i, episodes.size()});
-          episodes.push_back({slot.key, &policy, i, rules[i].severity, parsed.text, "", ""});
+          episodes.push_back({slot.key, &policy, i, rules[i].severity, std::string(parsed.text, sizeof parsed.text), "", ""});
           it = slot.open.end() - 1;
           if (slot.state.rules[i].escalated && slot.state.rules[i].open) {
             episodes.back().severity = rules[i].escalate_severity;
-            episodes.back().escalated = parsed.text;
+            episodes.back().escalated.assign(parsed.text, sizeof parsed.text);
           }
           if (r.episodes_resolved & bit) {  // opened and ended in one step (a stale gap)
-            episodes.back().resolved = parsed.text;
+            episodes.back().resolved.assign(parsed.text, sizeof parsed.text);
             slot.open.pop_back();
             it = slot.open.end();
           }
         }
         if ((r.episodes_escalated & bit) && it != slot.open.end()) {
           episodes[it->second].severity = rules[i].escalate_severity;
-          episodes[it->second].escalated = parsed.text;
+          episodes[it->second].escalated.assign(parsed.text, sizeof parsed.text);
         }
       }
     }

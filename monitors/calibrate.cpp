@@ -112,17 +112,27 @@ std::uint64_t Mix(std::uint64_t seed, std::uint64_t path) {
   return seed ^ (path * 0xd1b54a32d192ed03ULL + 0x8cb92ba72f3d8dd7ULL);
 }
 
+SignalSample EmptySample(const SimulationSize& size) {
+  SignalSample out;
+  out.paths = size.paths;
+  out.burn_in = size.burn_in;
+  out.periods = size.periods;
+  out.x.resize(static_cast<std::size_t>(size.paths) * (size.burn_in + size.periods));
+  return out;
+}
+
+// The excursion of a value, NaN when undefined.
+float ExcursionOrNaN(Direction d, std::optional<double> v) {
+  return v ? static_cast<float>(Excursion(d, *v)) : std::numeric_limits<float>::quiet_NaN();
+}
+
 }  // namespace
 
 SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule, const SimulationSize& size) {
   const PolicySpec p = InControlPolicy(policy, rule);
   const RuleSpec& watched = p.rules[0];
-  SignalSample out;
-  out.paths = size.paths;
-  out.burn_in = size.burn_in;
-  out.periods = size.periods;
+  SignalSample out = EmptySample(size);
   const long per_path = size.burn_in + size.periods;
-  out.x.resize(static_cast<std::size_t>(size.paths) * per_path);
   const int m = std::max(1, p.constants.season_length);
   for (int path = 0; path < size.paths; ++path) {
     Random rng(Mix(size.seed, static_cast<std::uint64_t>(path)));
@@ -133,8 +143,7 @@ SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule, const S
       const double y = InControlValue(p.method, m, t, rng);
       std::optional<double> v;
       if (Step(p, state, t + 1, y, r) == StepStatus::kOk) v = RuleValue(watched, r, state);
-      x[t] = v ? static_cast<float>(Excursion(watched.direction, *v))
-               : std::numeric_limits<float>::quiet_NaN();
+      x[t] = ExcursionOrNaN(watched.direction, v);
     }
   }
   return out;
@@ -142,12 +151,8 @@ SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule, const S
 
 SignalSample SampleIidErrors(double beta, SignalKind signal, Direction direction,
                              const SimulationSize& size) {
-  SignalSample out;
-  out.paths = size.paths;
-  out.burn_in = size.burn_in;
-  out.periods = size.periods;
+  SignalSample out = EmptySample(size);
   const long per_path = size.burn_in + size.periods;
-  out.x.resize(static_cast<std::size_t>(size.paths) * per_path);
   for (int path = 0; path < size.paths; ++path) {
     Random rng(Mix(size.seed, static_cast<std::uint64_t>(path)));
     ErrorStats s;
@@ -156,7 +161,7 @@ SignalSample SampleIidErrors(double beta, SignalKind signal, Direction direction
     for (long t = 0; t < per_path; ++t) {
       UpdateErrorStats(s, beta, rng.Normal());
       const std::optional<double> v = signal == SignalKind::kCusum ? CusumSignal(s) : TriggSignal(s);
-      x[t] = v ? static_cast<float>(Excursion(direction, *v)) : std::numeric_limits<float>::quiet_NaN();
+      x[t] = ExcursionOrNaN(direction, v);
     }
   }
   return out;

@@ -1,0 +1,411 @@
+"""End-to-end tests of alerts: the lifecycle API, replay agreement, the transactional outbox
+and its delivery to a webhook receiver (inside the test, checking the HMAC-SHA256 signature)
+and to Debian's real prometheus-alertmanager on loopback (own port and data folder). Waits are
+for events with a deadline, never sleeps."""
+import hashlib
+import hmac
+import http.server
+import json
+import os
+import signal
+import socket
+import subprocess
+import sys
+import threading
+import time
+import urllib.request
+
+sys.path.insert(0, os.path.dirname(__file__))
+import harness  # noqa: E402
+from harness import Server, run, temp_dir  # noqa: E402
+
+SECRET = "s3cret-for-tests"
+
+# An in-control start, then a lasting step: a cusum rule opens and stays open (series "up");
+# the same step that goes away again: the rule opens and later resolves (series "blip").
+BASE = [100, 102, 98, 101, 99, 100, 103, 97, 100, 101]
+UP = BASE + [150] * 6
+BLIP = BASE + [150, 150, 150] + [100] * 20
+
+
+def weeks(n, start_week=1):
+    return ["2026-W%02d" % (start_week + i) for i in range(n)]
+
+
+def csv_rows(series, values, start_week=1):
+    return "".join("%s,%s,%s\n" % (series, p, v) for p, v in zip(weeks(len(values), start_week), values))
+
+
+def settings(extra_alerts="", token_line=""):
+    return """
+server:
+  synchronous: normal
+%s
+policies:
+  - name: stores
+    match: '*'
+    period: week
+    method: ses
+    alpha: 0.2
+    signal_beta: 0.2
+    warmup: 4
+    rules:
+      - {name: shift, signal: cusum, limit: 3, clear: 2, resolve_after: 2, severity: warning,
+         escalate_limit: 6, escalate_severity: critical}
+alerts:
+  initial_backoff_seconds: 0.05
+  max_backoff_seconds: 0.2
+  check_seconds: 1
+%s
+""" % (token_line, extra_alerts)
+
+
+def wait_for(what, check, deadline=harness.DEADLINE):
+    """Polls `check` (which returns a truthy value when done) until the deadline."""
+    end = time.monotonic() + deadline
+    while True:
+        value = check()
+        if value:
+            return value
+        if time.monotonic() > end:
+            raise AssertionError("timed out waiting for " + what)
+        time.sleep(0.02)  # a polling interval, not synchronisation: the condition decides
+
+
+def free_port():
+    s = socket.socket()
+    s.bind(("127.0.0.1", 0))
+    port = s.getsockname()[1]
+    s.close()
+    return port
+
+
+class Receiver:
+    """A webhook receiver on loopback: records every request; answers 503 while `down`."""
+
+    def __init__(self):
+        self.requests = []
+        self.down = False
+        self.lock = threading.Lock()
+        self.cond = threading.Condition(self.lock)
+        outer = self
+
+        class Handler(http.server.BaseHTTPRequestHandler):
+            def do_POST(self):
+                body = self.rfile.read(int(self.headers.get("Content-Length", "0")))
+                with outer.cond:
+                    outer.requests.append((self.path, dict(self.headers), body, outer.down))
+                    outer.cond.notify_all()
+                    down = outer.down
+                self.send_response(503 if down else 200)
+                self.send_header("Content-Length", "0")
+                self.end_headers()
+
+            def log_message(self, *args):
+                pass
+
+        self.server = http.server.ThreadingHTTPServer(("127.0.0.1", 0), Handler)
+        self.port = self.server.server_address[1]
+        self.thread = threading.Thread(target=self.server.serve_forever, daemon=True)
+        self.thread.start()
+
+    def url(self, path):
+        return "http://127.0.0.1:%d%s" % (self.port, path)
+
+    def wait(self, what, check):
+        end = time.monotonic() + harness.DEADLINE
+        with self.cond:
+            while True:
+                got = check(self.requests)
+                if got:
+                    return got
+                left = end - time.monotonic()
+                if left <= 0:
+                    raise AssertionError("receiver: timed out waiting for " + what)
+                self.cond.wait(left)
+
+    def accepted(self, path="/hook"):
+        """Event bodies answered 200 on `path`, parsed."""
+        return [json.loads(b) for p, h, b, down in self.requests if p == path and not down]
+
+    def close(self):
+        self.server.shutdown()
+
+
+def webhook_sink(receiver, extra=""):
+    secret_file = os.path.join(temp_dir(), "hook.secret")
+    with open(secret_file, "w") as f:
+        f.write(SECRET + "\n")
+    return """  sinks:
+    - {name: hook, type: webhook, url: '%s', secret_file: '%s', timeout_seconds: 5}
+%s""" % (receiver.url("/hook"), secret_file, extra)
+
+
+def notified_events(server, sink):
+    """Event ids that have a delivery row for `sink`, over every alert (via the API)."""
+    ids = set()
+    status, body, _ = server.request("GET", "/v1/alerts?limit=1000")
+    assert status == 200, body
+    for a in body["alerts"]:
+        _, detail, _ = server.request("GET", "/v1/alerts/%d" % a["id"])
+        for h in detail["history"]:
+            if any(d["sink"] == sink for d in h["deliveries"]):
+                ids.add(h["event"])
+    return ids
+
+
+def delivered_all(server, sink):
+    status, body, _ = server.request("GET", "/v1/deliveries?state=pending&sink=" + sink)
+    assert status == 200, body
+    return not body["deliveries"]
+
+
+def test_lifecycle_api_and_replay_agree():
+    token = "tok-" + "x" * 20
+    tdir = temp_dir()
+    with open(os.path.join(tdir, "token"), "w") as f:
+        f.write(token)
+    srv = Server(settings(token_line="  token_file: " + os.path.join(tdir, "token")), workdir=tdir)
+    try:
+        feed = "series,period,value\n" + csv_rows("north/up", UP) + csv_rows("north/blip", BLIP)
+        status, body, _ = srv.post_csv(feed, token)
+        assert status == 200, body
+        assert body["alerts_opened"] >= 2, body
+        # The service's episodes equal replay's (same step, same rules).
+        out = os.path.join(tdir, "episodes.csv")
+        inp = os.path.join(tdir, "feed.csv")
+        with open(inp, "w") as f:
+            f.write(feed)
+        subprocess.run([harness.BINARY, "replay", "--config", srv.config, "--input", inp,
+                        "--output", os.path.join(tdir, "rows.csv"), "--alerts", out],
+                       check=True, capture_output=True)
+        import csv
+        with open(out) as f:
+            replayed = sorted((r["series"], r["rule"], r["severity"], r["opened"], r["resolved"])
+                              for r in csv.DictReader(f))
+        status, body, _ = srv.request("GET", "/v1/alerts?limit=1000")
+        served = sorted((a["series"], a["rule"], a["severity"], a["opened_period"],
+                         a["resolved_period"] or "") for a in body["alerts"])
+        assert served == replayed, (served, replayed)
+        assert any(r[0] == "north/blip" and r[4] for r in served), "the blip resolves by itself"
+        up = [a for a in body["alerts"] if a["series"] == "north/up" and a["state"] == "open"]
+        assert len(up) == 1, body
+        alert_id = up[0]["id"]
+        assert up[0]["url"] if "url" in up[0] else True
+        # Writes need the token; reads do not.
+        status, _, _ = srv.request("POST", "/v1/alerts/%d/acknowledge" % alert_id,
+                                   json.dumps({"by": "ana"}), "application/json")
+        assert status == 401
+        status, body, _ = srv.request("POST", "/v1/alerts/%d/acknowledge" % alert_id,
+                                      json.dumps({"by": "ana", "note": "promo week"}),
+                                      "application/json", token)
+        assert status == 200 and body["state"] == "acknowledged" and body["acknowledged_by"] == "ana", body
+        status, body, _ = srv.request("POST", "/v1/alerts/%d/snooze" % alert_id,
+                                      json.dumps({"by": "ana", "until": "2026-W40"}),
+                                      "application/json", token)
+        assert status == 200 and body["state"] == "snoozed" and body["snoozed_until_period"] == "2026-W40", body
+        status, body, _ = srv.request("POST", "/v1/alerts/%d/snooze" % alert_id,
+                                      json.dumps({"by": "ana", "until": "2026-W99"}),
+                                      "application/json", token)
+        assert status == 400 and "until" in body["error"], body
+        # An actual of the snooze's period wakes the alert up again.
+        status, body, _ = srv.post_csv("series,period,value\nnorth/up,2026-W17,150\n" +
+                                       "".join("north/up,2026-W%02d,150\n" % w for w in range(18, 41)), token)
+        assert status == 200, body
+        status, body, _ = srv.request("GET", "/v1/alerts/%d" % alert_id)
+        kinds = [h["kind"] for h in body["history"]]
+        # opened (escalated to critical within the same batch), then the hand changes
+        assert kinds == ["opened", "escalated", "acknowledged", "snoozed", "snooze_ended"], kinds
+        assert body["state"] == "open", body
+        status, body, _ = srv.request("POST", "/v1/alerts/%d/resolve" % alert_id,
+                                      json.dumps({"by": "ana", "note": "new normal"}),
+                                      "application/json", token)
+        assert status == 200 and body["state"] == "resolved" and body["resolved_reason"] == "by hand", body
+        status, body, _ = srv.request("POST", "/v1/alerts/%d/acknowledge" % alert_id,
+                                      json.dumps({"by": "ana"}), "application/json", token)
+        assert status == 409, body
+        status, body, _ = srv.request("POST", "/v1/alerts/99999/acknowledge",
+                                      json.dumps({"by": "ana"}), "application/json", token)
+        assert status == 404, body
+        status, body, _ = srv.request("GET", "/v1/alerts?state=unresolved&series=north/up")
+        assert body["alerts"] == [], body
+        # The default log sink wrote one line per notified event.
+        srv.wait_stderr("kind=resolved")
+    finally:
+        srv.stop()
+
+
+def test_webhook_signature_outage_and_recovery():
+    rx = Receiver()
+    rx.down = True
+    srv = Server(settings(webhook_sink(rx)))
+    try:
+        feed = "series,period,value\n" + csv_rows("north/up", UP) + csv_rows("north/blip", BLIP)
+        status, body, _ = srv.post_csv(feed)
+        assert status == 200, body
+        # The sink is down: attempts fail and are retried with backoff.
+        rx.wait("two failed attempts", lambda reqs: len([r for r in reqs if r[3]]) >= 2)
+        rx.down = False
+        expected = notified_events(srv, "hook")
+        assert len(expected) >= 3, expected
+        rx.wait("every event", lambda reqs: {b["event_id"] for b in rx.accepted()} >= expected)
+        wait_for("no pending deliveries", lambda: delivered_all(srv, "hook"))
+        events = rx.accepted()
+        # In event order, each once after the recovery, each signed over its exact bytes.
+        ids = [e["event_id"] for e in events]
+        assert ids == sorted(set(ids)), ids
+        for path, headers, raw, down in rx.requests:
+            if down:
+                continue
+            sig = headers["X-Forewarden-Signature"]
+            assert sig == "sha256=" + hmac.new(SECRET.encode(), raw, hashlib.sha256).hexdigest()
+            body = json.loads(raw)
+            assert headers["X-Forewarden-Event"] == body["kind"]
+            assert headers["X-Forewarden-Delivery"] == body["idempotency_key"]
+            assert body["idempotency_key"].endswith("-%d" % body["event_id"])
+        opened = [e for e in events if e["kind"] == "opened"]
+        assert opened and opened[0]["alert"]["url"].startswith("http://127.0.0.1:"), opened
+        assert "cusum" in opened[0]["summary"], opened[0]
+    finally:
+        srv.stop()
+        rx.close()
+
+
+def test_kill9_with_undelivered_events_delivers_after_restart():
+    rx = Receiver()
+    rx.down = True
+    tdir = temp_dir()
+    srv = Server(settings(webhook_sink(rx)), workdir=tdir)
+    feed = "series,period,value\n" + csv_rows("north/up", UP) + csv_rows("north/blip", BLIP)
+    status, body, _ = srv.post_csv(feed)
+    assert status == 200, body
+    rx.wait("a failed attempt", lambda reqs: any(r[3] for r in reqs))
+    expected = notified_events(srv, "hook")
+    srv.kill9()
+    rx.down = False
+    srv.start()
+    try:
+        rx.wait("every event after the restart",
+                lambda reqs: {b["event_id"] for b in rx.accepted()} >= expected)
+        wait_for("no pending deliveries", lambda: delivered_all(srv, "hook"))
+    finally:
+        srv.stop()
+        rx.close()
+
+
+def test_dead_letters_and_retry():
+    rx = Receiver()
+    rx.down = True
+    srv = Server(settings(webhook_sink(rx, "  max_attempts: 2\n")))
+    try:
+        status, body, _ = srv.post_csv("series,period,value\n" + csv_rows("north/up", UP))
+        assert status == 200, body
+        dead = wait_for("dead letters", lambda: srv.request("GET", "/v1/deliveries?state=dead")[1]["deliveries"])
+        assert all(d["attempts"] == 2 and d["last_error"] == "HTTP 503" for d in dead), dead
+        rx.down = False
+        status, body, _ = srv.request("POST", "/v1/deliveries/retry", "", "application/json")
+        assert status == 200 and body["requeued"] >= 1, body
+        rx.wait("the requeued events", lambda reqs: {b["event_id"] for b in rx.accepted()} >= {d["event"] for d in dead})
+        wait_for("no dead letters", lambda: not srv.request("GET", "/v1/deliveries?state=dead")[1]["deliveries"])
+    finally:
+        srv.stop()
+        rx.close()
+
+
+def test_storm_is_grouped():
+    rx = Receiver()
+    srv = Server(settings(webhook_sink(rx, "  storm_threshold: 3\n")))
+    try:
+        feed = "series,period,value\n" + "".join(csv_rows("east/s%02d" % i, UP) for i in range(6))
+        status, body, _ = srv.post_csv(feed)
+        assert status == 200 and body["alerts_opened"] == 6, body
+        wait_for("no pending deliveries", lambda: delivered_all(srv, "hook"))
+        kinds = [e["kind"] for e in rx.accepted()]
+        assert kinds.count("group_opened") == 1 and "opened" not in kinds, kinds
+        group = [e for e in rx.accepted() if e["kind"] == "group_opened"][0]["group"]
+        assert group["series_count"] == 6 and len(group["series_sample"]) == 6, group
+        status, body, _ = srv.request("GET", "/v1/alerts?group=%d" % group["id"])
+        assert len(body["alerts"]) == 6, body
+    finally:
+        srv.stop()
+        rx.close()
+
+
+def test_alertmanager_shows_alerts_open_then_resolved():
+    rx = Receiver()  # Alertmanager's own webhook receiver: what it notifies
+    am_port = free_port()
+    am_dir = temp_dir()
+    am_config = os.path.join(am_dir, "alertmanager.yml")
+    with open(am_config, "w") as f:
+        f.write("""route:
+  receiver: test
+  group_by: ['forewarden_alert']
+  group_wait: 1s
+  group_interval: 1s
+  repeat_interval: 1h
+receivers:
+  - name: test
+    webhook_configs:
+      - url: '%s'
+        send_resolved: true
+""" % rx.url("/am"))
+    am = subprocess.Popen(["prometheus-alertmanager", "--config.file=" + am_config,
+                           "--storage.path=" + am_dir, "--web.listen-address=127.0.0.1:%d" % am_port,
+                           "--cluster.listen-address="],
+                          stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    am_url = "http://127.0.0.1:%d" % am_port
+
+    def am_get(path):
+        try:
+            with urllib.request.urlopen(am_url + path, timeout=5) as r:
+                raw = r.read()
+                return r.status, (json.loads(raw) if path.startswith("/api/") else raw)
+        except OSError:
+            return 0, None
+
+    srv = None
+    try:
+        wait_for("alertmanager ready", lambda: am_get("/-/ready")[0] == 200)
+        srv = Server(settings("  sinks:\n    - {name: am, type: alertmanager, url: '%s'}\n" % am_url))
+        status, body, _ = srv.post_csv("series,period,value\n" + csv_rows("north/up", UP))
+        assert status == 200 and body["alerts_opened"] == 1, body
+        _, alerts, _ = srv.request("GET", "/v1/alerts")
+        alert = alerts["alerts"][0]
+
+        def in_am():
+            status, listed = am_get("/api/v2/alerts")
+            for a in listed or []:
+                if a["labels"].get("forewarden_alert") == str(alert["id"]):
+                    return a
+            return None
+
+        a = wait_for("the alert in Alertmanager", in_am)
+        assert a["status"]["state"] == "active", a
+        labels = a["labels"]
+        assert labels["alertname"] == "shift" and labels["series"] == "north/up"
+        assert labels["policy"] == "stores" and labels["severity"] == alert["severity"], labels
+        assert "north/up" in a["annotations"]["summary"], a
+        assert a["annotations"]["url"].endswith("/v1/series/north%2Fup"), a
+        rx.wait("Alertmanager notifies firing", lambda reqs: any(
+            json.loads(b)["status"] == "firing" for p, h, b, d in reqs if p == "/am"))
+        status, body, _ = srv.request("POST", "/v1/alerts/%d/resolve" % alert["id"],
+                                      json.dumps({"by": "ana"}), "application/json")
+        assert status == 200, body
+        rx.wait("Alertmanager notifies resolved", lambda reqs: any(
+            json.loads(b)["status"] == "resolved" and
+            json.loads(b)["alerts"][0]["labels"]["forewarden_alert"] == str(alert["id"])
+            for p, h, b, d in reqs if p == "/am"))
+        wait_for("gone from the active alerts", lambda: in_am() is None or
+                 in_am()["status"]["state"] != "active")
+    finally:
+        if srv:
+            srv.stop()
+        am.send_signal(signal.SIGTERM)
+        am.wait(timeout=harness.DEADLINE)
+        rx.close()
+
+
+if __name__ == "__main__":
+    sys.exit(run([test_lifecycle_api_and_replay_agree, test_webhook_signature_outage_and_recovery,
+                  test_kill9_with_undelivered_events_delivers_after_restart, test_dead_letters_and_retry,
+                  test_storm_is_grouped, test_alertmanager_shows_alerts_open_then_resolved]))
