@@ -254,8 +254,10 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
                                                            : "periods averaged") +
                          ")");
     r.Int(n, "periods", path, periods, 1, 1000);
+  } else if (sig == SignalKind::kCusum) {
+    r.Int(n, "periods", path, periods, 1, 1000);  // optional: a windowed cumulative signal
   } else if (n["periods"].IsDefined()) {
-    r.Add(n["periods"], path + ".periods", "only bias, accuracy, alpha_at_cap and stale rules take 'periods'");
+    r.Add(n["periods"], path + ".periods", "only bias, accuracy, cusum, alpha_at_cap and stale rules take 'periods'");
   }
   const bool takes_limit = sig != SignalKind::kAlphaAtCap && sig != SignalKind::kStale;
   const bool calibrated = n["false_alert_every"].IsDefined();

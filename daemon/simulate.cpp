@@ -183,7 +183,9 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
     }
     {
       TextOut out(tf);
-      out.Put("series,period,kind\n");
+      // size: relative change of the mean (per period for trend-start); sigmas: the same in
+      // units of the series' noise standard deviation (cv x mean before the change)
+      out.Put("series,period,kind,size,sigmas\n");
       for (const SimSeries& s : all) {
         if (s.change == Change::kNone) continue;
         out.Field(s.key);
@@ -191,6 +193,10 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
         out.Put(monitors::FormatPeriod(o.period, first.ordinal + s.change_at));
         out.Put(',');
         out.Put(ChangeName(s.change));
+        out.Put(',');
+        out.Number(s.change_size);
+        out.Put(',');
+        out.Number(s.cv > 0 ? s.change_size / s.cv : 0.0);
         out.EndLine();
       }
       ok = out.Flush();

@@ -124,11 +124,12 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   if (version >= 3) {
     std::uint16_t capacity = 0;
     std::uint32_t n = 0;
-    if (!r.Get(capacity) || !r.Get(n) || n % 2 != 0 || n / 2 > capacity) return false;
-    for (std::uint32_t i = 0; i < n; i += 2) {
-      float e = 0, a = 0;
-      if (!r.Get(e) || !r.Get(a)) return false;
-      s.recent.Push(capacity, e, a);
+    constexpr std::uint32_t k = monitors::RecentWindow::kFields;
+    if (!r.Get(capacity) || !r.Get(n) || n % k != 0 || n / k > capacity) return false;
+    for (std::uint32_t i = 0; i < n; i += k) {
+      float e = 0, a = 0, m = 0;
+      if (!r.Get(e) || !r.Get(a) || !r.Get(m)) return false;
+      s.recent.Push(capacity, e, a, m);
     }
   }
   if (!r.done()) return false;

@@ -86,12 +86,12 @@ double InControlValue(Method method, int m, long t, Random& rng) {
   return kLevel;
 }
 
-// The policy as the simulation runs it: the true start state, only the watched rule.
-PolicySpec InControlPolicy(const PolicySpec& policy, std::size_t rule) {
+// The policy as the simulation runs it: only the watched rule; the true start state when asked.
+PolicySpec InControlPolicy(const PolicySpec& policy, std::size_t rule, bool true_start) {
   PolicySpec p = policy;
   p.rules = {policy.rules[rule]};
   p.gaps = GapRule::kZero;
-  if (!IsIntermittent(p.method)) {
+  if (true_start && !IsIntermittent(p.method)) {
     p.start = StartSpec{};
     p.start.kind = StartKind::kExplicit;
     p.start.level = kLevel;
@@ -129,7 +129,7 @@ float ExcursionOrNaN(Direction d, std::optional<double> v) {
 }  // namespace
 
 SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule, const SimulationSize& size) {
-  const PolicySpec p = InControlPolicy(policy, rule);
+  const PolicySpec p = InControlPolicy(policy, rule, size.true_start);
   const RuleSpec& watched = p.rules[0];
   SignalSample out = EmptySample(size);
   const long per_path = size.burn_in + size.periods;
@@ -232,11 +232,17 @@ Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double eve
                 " rule cannot take a false-alarm budget; give it a limit";
     return c;
   }
-  // Enough counted periods for about 200 expected false alerts at the target rate.
+  // Series of `every` periods from their start; enough of them for about 200 expected false
+  // alerts at the target rate (and never fewer than size.paths).
   SimulationSize size = size_in;
+  size.true_start = false;
+  size.burn_in = 0;
+  size.periods = StartWindow(policy.method, policy.start) + policy.warmup +
+                 static_cast<int>(std::ceil(every));
+  size.paths = std::max(size.paths, 200);
   const double needed = 200.0 * every;
-  const double have = static_cast<double>(size.paths) * size.periods;
-  if (have < needed) size.periods = static_cast<int>(std::ceil(needed / size.paths));
+  const double have = static_cast<double>(size.paths) * std::ceil(every);
+  if (have < needed) size.paths = static_cast<int>(std::ceil(needed / std::ceil(every)));
   const std::string key = CacheKey(policy, rule, every, clear_fraction, size);
   {
     std::lock_guard lock(mu);
@@ -259,20 +265,22 @@ Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double eve
     c.problem = "the signal never left zero in the simulation";
     return c;
   }
-  // The rate is not monotone near zero (a limit of 0 makes one endless episode), so walk down
-  // from the largest value seen to the first limit whose rate is over budget, then bisect the
-  // step above it.
-  constexpr int kGrid = 8;
-  for (int k = kGrid - 1; k >= 0; --k) {
-    const double at = hi * k / kGrid;
+  // The rate is not monotone near zero (a limit of 0 makes one endless episode), so halve
+  // down from the largest value seen (a rare start-up outlier may make it huge) to the first
+  // limit whose rate is over budget, then bisect the step above it.
+  for (int k = 0;; ++k) {
+    const double at = hi / 2;
     if (rate_at(at) > target) {
       lo = at;
-      hi = hi * (k + 1) / kGrid;
       break;
     }
-    if (k == 0) lo = hi = 0.0;
+    hi = at;
+    if (k == 60) {
+      lo = hi = 0.0;
+      break;
+    }
   }
-  for (int i = 0; i < 30 && hi - lo > 1e-4 * hi; ++i) {
+  for (int i = 0; i < 30 && hi - lo > 1e-3 * hi; ++i) {
     const double mid = 0.5 * (lo + hi);
     if (rate_at(mid) <= target)
       hi = mid;

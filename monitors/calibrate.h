@@ -13,14 +13,15 @@
 //   seasonal-add         y = 100 + 15 sin(2 pi j / m) + 10 z
 //   seasonal-mul         y = (100 + 10 z) * (1 + 0.15 sin(2 pi j / m))
 //   croston, sba         demand in a period with probability 1/3, size max(1, 5 + 2 z)
-// The model starts from the true state (explicit start; croston from its first demand) with
-// the policy's constants, adaptive rule, monitoring constant and warm-up; a burn-in is run
-// before counting. Series whose constants are fitted per series get the limit derived for the
-// policy's stated constants.
+// Each simulated series starts with the policy's own start rule, constants, adaptive rule,
+// monitoring constant and warm-up, and lives `every` periods: the budget is "at most one false
+// alert per series in `every` periods", its start included. This matters: the cumulative
+// signal never forgets the error of a series' start (C = (F - F1) / alpha on a constant level),
+// so a limit derived from a perfectly started model is far too tight for real series.
 //
-// The rate counted is episodes opened per period in steady state (an episode is one alert:
-// rule.h); the limit is the smallest one whose rate is at most 1 / every. Deterministic: the
-// same inputs give the same limit on every machine.
+// The rate counted is episodes opened per period (an episode is one alert: rule.h); the limit
+// is the smallest one whose rate is at most 1 / every. Deterministic: the same inputs give the
+// same limit on every machine.
 #pragma once
 
 #include <cstdint>
@@ -38,6 +39,7 @@ struct SimulationSize {
   int burn_in = 200;   // periods run before counting
   int periods = 2500;  // periods counted per path
   std::uint64_t seed = 20261202;
+  bool true_start = false;  // start from the true in-control state instead of the policy's rule
 };
 
 // One rule's signal excursions (rule.h, Excursion) on simulated paths: `burn_in + periods`
@@ -50,7 +52,8 @@ struct SignalSample {
   const float* path(int p) const { return x.data() + static_cast<std::size_t>(p) * (burn_in + periods); }
 };
 
-// The policy's in-control process (above), observed through rule `rule` of the policy.
+// The policy's in-control process (above), observed through rule `rule` of the policy
+// (started by the policy's start rule unless size.true_start).
 SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule, const SimulationSize& size);
 
 // The textbook setting of REFERENCES.md Table A: iid N(0, 1) errors fed straight into E, M and
@@ -75,7 +78,9 @@ struct Calibration {
 };
 
 // The limit of rule `rule` for at most one false alert per `every` periods; the clear level
-// follows as clear_fraction * limit. Results are cached for the process's lifetime (same
+// follows as clear_fraction * limit. `size` sets the number of paths (at least 200 expected
+// false alerts are simulated) and the seed; each path lives `every` periods plus the start
+// window and warm-up, counted from its first period. Results are cached for the process's lifetime (same
 // inputs, same answer), so reloads repeat no work. Thread-safe.
 Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double every,
                           double clear_fraction, const SimulationSize& size = {});

@@ -3,7 +3,9 @@
 //
 // A rule watches one signal of one series:
 //   trigg         Trigg's signal E/M                               (limit in [0, 1])
-//   cusum         the cumulative signal C/M                        (limit in MADs)
+//   cusum         the cumulative signal C/M                        (limit in MADs); with
+//                 `periods` n: the sum of the newest n errors over the MAD from before them
+//                 (a windowed cumulative signal that forgets the series' start)
 //   error         this period's error in sigmas, e / (1.2533*M before the update)  (a spike)
 //   bias          mean error over the last `periods` periods with a forecast, as a share of
 //                 their mean actual: sum(e) / sum(A)               (limit a share, 0.2 = 20 %)
@@ -46,7 +48,7 @@ struct RuleSpec {
   int persistence = 1;
   Direction direction = Direction::kBoth;
   Severity severity = Severity::kWarning;
-  int periods = 0;                      // bias, accuracy: window length
+  int periods = 0;                      // bias, accuracy, windowed cusum: window length
   std::optional<double> escalate_limit;  // beyond it the episode takes escalate_severity
   Severity escalate_severity = Severity::kCritical;
   int resolve_after = 1;                // periods clear before the episode ends

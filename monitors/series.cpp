@@ -14,7 +14,8 @@ void Evaluate(const RuleSpec& rule, SeriesState& s, std::size_t i, std::optional
 std::uint16_t RecentCapacity(const PolicySpec& policy) {
   int cap = 0;
   for (const RuleSpec& r : policy.rules)
-    if (r.signal == SignalKind::kBias || r.signal == SignalKind::kAccuracy)
+    if (r.signal == SignalKind::kBias || r.signal == SignalKind::kAccuracy ||
+        r.signal == SignalKind::kCusum)
       cap = std::max(cap, r.periods);
   return static_cast<std::uint16_t>(std::min(cap, 65535));
 }
@@ -22,17 +23,23 @@ std::uint16_t RecentCapacity(const PolicySpec& policy) {
 std::optional<double> RuleValue(const RuleSpec& rule, const StepResult& r, const SeriesState& s) {
   switch (rule.signal) {
     case SignalKind::kTrigg: return r.trigg;
-    case SignalKind::kCusum: return r.cusum;
+    case SignalKind::kCusum: {
+      if (rule.periods == 0) return r.cusum;
+      // the errors of the newest `periods` periods in MADs from before them: a shift does not
+      // inflate its own yardstick
+      RecentWindow::Sums w;
+      if (!r.cusum || !s.recent.Sum(rule.periods, w) || !(w.mad_before > 0.0)) return std::nullopt;
+      return w.error / w.mad_before;
+    }
     case SignalKind::kError: return r.spike;
     case SignalKind::kAlphaAtCap:
       if (!r.has_forecast) return std::nullopt;
       return r.at_cap ? 1.0 : 0.0;
     case SignalKind::kBias:
     case SignalKind::kAccuracy: {
-      double e = 0, abs_e = 0, a = 0;
-      if (!r.has_forecast || !s.recent.Sums(rule.periods, e, abs_e, a) || !(a > 0.0))
-        return std::nullopt;
-      return (rule.signal == SignalKind::kBias ? e : abs_e) / a;
+      RecentWindow::Sums w;
+      if (!r.has_forecast || !s.recent.Sum(rule.periods, w) || !(w.actual > 0.0)) return std::nullopt;
+      return (rule.signal == SignalKind::kBias ? w.error : w.abs_error) / w.actual;
     }
     case SignalKind::kStale: return std::nullopt;
   }
@@ -143,7 +150,7 @@ void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
   s.forecasts += 1;
   if (mad_before > 0.0) out.spike = e / (kSigmaPerMad * mad_before);
   out.at_cap = p.adaptive.enabled && s.constants.alpha >= p.adaptive.cap;
-  if (const std::uint16_t cap = RecentCapacity(p)) s.recent.Push(cap, e, y);
+  if (const std::uint16_t cap = RecentCapacity(p)) s.recent.Push(cap, e, y, mad_before);
   if (s.forecasts > p.warmup) {
     out.trigg = TriggSignal(s.stats);
     out.cusum = CusumSignal(s.stats);

@@ -79,10 +79,12 @@ class WindowValues {
   std::unique_ptr<std::vector<double>> v_;
 };
 
-// Errors and actuals of the newest periods with a forecast, for the bias and accuracy rules
-// (allocated only for policies that have such rules: 8 bytes a period).
+// Errors, actuals and the MAD before each of the newest periods with a forecast, for the
+// bias, accuracy and windowed cusum rules (allocated only for policies that have such rules:
+// 12 bytes a period).
 class RecentWindow {
  public:
+  static constexpr std::size_t kFields = 3;  // error, actual, MAD before the period
   RecentWindow() = default;
   RecentWindow(const RecentWindow& o) { *this = o; }
   RecentWindow& operator=(const RecentWindow& o) {
@@ -92,8 +94,8 @@ class RecentWindow {
       count_ = o.count_;
       buf_.reset();
       if (o.buf_) {
-        buf_.reset(new float[2 * std::size_t{cap_}]);
-        std::copy(o.buf_.get(), o.buf_.get() + 2 * std::size_t{cap_}, buf_.get());
+        buf_.reset(new float[kFields * cap_]);
+        std::copy(o.buf_.get(), o.buf_.get() + kFields * cap_, buf_.get());
       }
     }
     return *this;
@@ -102,33 +104,40 @@ class RecentWindow {
   RecentWindow& operator=(RecentWindow&&) noexcept = default;
 
   // Adds the newest period; a new capacity starts the window again.
-  void Push(std::uint16_t capacity, double error, double actual) {
+  void Push(std::uint16_t capacity, double error, double actual, double mad_before) {
     if (capacity == 0) {
       Clear();
       return;
     }
     if (capacity != cap_ || !buf_) {
-      buf_.reset(new float[2 * std::size_t{capacity}]);
+      buf_.reset(new float[kFields * capacity]);
       cap_ = capacity;
       head_ = 0;
       count_ = 0;
     }
-    buf_[2 * std::size_t{head_}] = static_cast<float>(error);
-    buf_[2 * std::size_t{head_} + 1] = static_cast<float>(actual);
+    float* at = buf_.get() + kFields * head_;
+    at[0] = static_cast<float>(error);
+    at[1] = static_cast<float>(actual);
+    at[2] = static_cast<float>(mad_before);
     head_ = static_cast<std::uint16_t>((head_ + 1) % cap_);
     if (count_ < cap_) ++count_;
   }
+  struct Sums {
+    double error = 0, abs_error = 0, actual = 0;
+    double mad_before = 0;  // the MAD before the oldest of the n periods
+  };
   // Sums over the newest n periods; false while fewer than n are held.
-  bool Sums(int n, double& error, double& abs_error, double& actual) const {
+  bool Sum(int n, Sums& out) const {
     if (n <= 0 || n > count_) return false;
-    error = abs_error = actual = 0.0;
+    out = Sums{};
     std::size_t i = head_;
     for (int k = 0; k < n; ++k) {
       i = (i + cap_ - 1) % cap_;
-      const double e = buf_[2 * i];
-      error += e;
-      abs_error += e < 0 ? -e : e;
-      actual += buf_[2 * i + 1];
+      const float* at = buf_.get() + kFields * i;
+      out.error += at[0];
+      out.abs_error += at[0] < 0 ? -at[0] : at[0];
+      out.actual += at[1];
+      out.mad_before = at[2];
     }
     return true;
   }
@@ -138,15 +147,13 @@ class RecentWindow {
   }
   std::uint16_t capacity() const { return cap_; }
   std::uint16_t count() const { return count_; }
-  // Oldest first: (error, actual) pairs, for serialisation.
+  // Oldest first, kFields values a period, for serialisation.
   std::vector<float> Values() const {
     std::vector<float> v;
-    v.reserve(2 * std::size_t{count_});
+    v.reserve(kFields * count_);
     std::size_t i = (head_ + cap_ - count_) % (cap_ ? cap_ : 1);
-    for (int k = 0; k < count_; ++k, i = (i + 1) % cap_) {
-      v.push_back(buf_[2 * i]);
-      v.push_back(buf_[2 * i + 1]);
-    }
+    for (int k = 0; k < count_; ++k, i = (i + 1) % cap_)
+      v.insert(v.end(), buf_.get() + kFields * i, buf_.get() + kFields * (i + 1));
     return v;
   }
 
@@ -155,7 +162,7 @@ class RecentWindow {
   std::uint16_t cap_ = 0, head_ = 0, count_ = 0;
 };
 
-// The bias/accuracy window a policy needs (0: none).
+// The window a policy's bias, accuracy and windowed cusum rules need (0: none).
 std::uint16_t RecentCapacity(const PolicySpec& policy);
 
 struct SeriesState {

@@ -27,7 +27,7 @@ TEST_CASE("the commented example config and the demo config load cleanly", "[uni
   REQUIRE(p.match.labels.size() == 1);
   CHECK(p.spec.adaptive.enabled);
   CHECK(p.spec.adaptive.cap == 0.8);
-  CHECK(p.spec.rules.size() == 3);
+  CHECK(p.spec.rules.size() == 4);
   CHECK(p.spec.rules[0].persistence == 2);
   CHECK(p.spec.rules[2].direction == monitors::Direction::kUnder);
 }
@@ -189,10 +189,11 @@ TEST_CASE("a false-alarm budget becomes a derived limit, shown with its expected
   const config::Policy& p = r.settings.policies[0];
   REQUIRE(p.calibrations.size() == 1);
   const monitors::RuleSpec& drift = p.spec.rules[0];
-  // derived, not configured: between the textbook 4 MADs (16 % of in-control periods beyond it at
-  // alpha 0.1, REFERENCES.md Table B) and 15 MADs
-  CHECK(drift.limit > 4.0);
-  CHECK(drift.limit < 15.0);
+  // derived, not configured: far beyond the textbook 4 MADs (16 % of in-control periods beyond
+  // it at alpha 0.1 even from a perfect start, REFERENCES.md Table B), because C also keeps the
+  // error of each series' start (monitors/calibrate.h)
+  CHECK(drift.limit > 8.0);
+  CHECK(drift.limit < 60.0);
   CHECK(drift.clear == Approx(0.5 * drift.limit));
   CHECK(p.calibrations[0].limit == drift.limit);
   CHECK(p.calibrations[0].per_series_week == Approx(7.0 / 1000));

@@ -185,7 +185,7 @@ TEST_CASE("simulate is deterministic for a seed and replays cleanly", "[integrat
   CHECK(TempDir::Read(dir.File("a.csv")) != TempDir::Read(dir.File("c.csv")));
   CHECK(Lines(TempDir::Read(dir.File("a.csv"))).size() == 1 + 50 * 30);
   auto truth = Lines(TempDir::Read(dir.File("a.csv.truth")));
-  CHECK(truth[0] == "series,period,kind");
+  CHECK(truth[0] == "series,period,kind,size,sigmas");
   const std::string cfg = std::string(FOREWARDEN_SOURCE_DIR) + "/config/demo.yaml";
   std::ostringstream out2, err2;
   CHECK(forewarden::RunCommand({"replay", "--config", cfg, "--input", dir.File("a.csv"), "--output",

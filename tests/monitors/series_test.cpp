@@ -320,3 +320,25 @@ TEST_CASE("stale rule: an actual after a long gap reports one episode, opened an
   CHECK(r.episodes_opened == 0);
   CHECK(r.episodes_resolved == 1);
 }
+
+TEST_CASE("windowed cusum: the newest errors over the MAD from before them", "[unit]") {
+  // Hand computation: explicit level 10, alpha 0.2, initial MAD 1, signal_beta 0.1.
+  // Actuals 12, 12: F = 10, 10.4; e = 2, 1.6; M before period 1 is 1 -> (2 + 1.6) / 1 = 3.6.
+  monitors::RuleSpec w;
+  w.name = "shift";
+  w.signal = monitors::SignalKind::kCusum;
+  w.periods = 2;
+  w.limit = w.clear = 3.5;
+  const monitors::PolicySpec p = RulePolicy(w);
+  monitors::SeriesState s = monitors::NewSeriesState(p);
+  monitors::StepResult r;
+  REQUIRE(monitors::Step(p, s, 1, 12, r) == monitors::StepStatus::kOk);
+  CHECK_FALSE(monitors::RuleValue(w, r, s).has_value());
+  REQUIRE(monitors::Step(p, s, 2, 12, r) == monitors::StepStatus::kOk);
+  REQUIRE(monitors::RuleValue(w, r, s).has_value());
+  CHECK(*monitors::RuleValue(w, r, s) == Approx(3.6).epsilon(1e-6));
+  CHECK(r.episodes_opened == 1);
+  // next: e3 = 12 - 10.72 = 1.28 over M before period 2 = 0.1 * 2 + 0.9 * 1 = 1.1
+  REQUIRE(monitors::Step(p, s, 3, 12, r) == monitors::StepStatus::kOk);
+  CHECK(*monitors::RuleValue(w, r, s) == Approx((1.6 + 1.28) / 1.1).epsilon(1e-6));
+}
