@@ -168,6 +168,11 @@ def test_lifecycle_api_and_replay_agree():
     srv = Server(settings(token_line="  token_file: " + os.path.join(tdir, "token")), workdir=tdir)
     try:
         feed = "series,period,value\n" + csv_rows("north/up", UP) + csv_rows("north/blip", BLIP)
+        # A rejected batch records no alert (and no event to deliver): all or nothing.
+        status, body, _ = srv.post_csv(feed + "north/up,2026-W30,not-a-number\n", token)
+        assert status == 400, body
+        status, body, _ = srv.request("GET", "/v1/alerts")
+        assert body["alerts"] == [], body
         status, body, _ = srv.post_csv(feed, token)
         assert status == 200, body
         assert body["alerts_opened"] >= 2, body
@@ -229,6 +234,20 @@ def test_lifecycle_api_and_replay_agree():
         assert status == 404, body
         status, body, _ = srv.request("GET", "/v1/alerts?state=unresolved&series=north/up")
         assert body["alerts"] == [], body
+        # A forecast reset resolves the series' open alerts, with the reason.
+        status, body, _ = srv.post_csv("series,period,value\n" + csv_rows("south/up", UP), token)
+        assert status == 200 and body["alerts_opened"] == 1, body
+        status, body, _ = srv.request("POST", "/v1/series/south%2Fup/reset",
+                                      json.dumps({"to": "last", "who": "ana"}), "application/json", token)
+        assert status == 200, body
+        status, body, _ = srv.request("GET", "/v1/alerts?series=south/up")
+        assert [(a["state"], a["resolved_reason"], a["resolved_by"]) for a in body["alerts"]] == \
+            [("resolved", "reset", "ana")], body
+        # Paging: newest first, `before` continues.
+        status, page1, _ = srv.request("GET", "/v1/alerts?limit=1")
+        assert len(page1["alerts"]) == 1 and page1["next_before"] is not None, page1
+        status, page2, _ = srv.request("GET", "/v1/alerts?limit=1&before=%d" % page1["next_before"])
+        assert page2["alerts"][0]["id"] < page1["alerts"][0]["id"], (page1, page2)
         # The default log sink wrote one line per notified event.
         srv.wait_stderr("kind=resolved")
     finally:
@@ -331,6 +350,33 @@ def test_storm_is_grouped():
         rx.close()
 
 
+def test_policies_show_derived_limits():
+    srv = Server("""
+policies:
+  - name: lines
+    match: '*'
+    period: day
+    alpha: 0.1
+    start: {mean_of_first: 4}
+    warmup: 8
+    rules:
+      - {name: drift, signal: trigg, false_alert_every: 1000}
+""")
+    try:
+        status, body, _ = srv.post_csv("series,period,value\n" + "".join(
+            "s%d,2026-01-0%d,10\n" % (i, d) for i in range(7) for d in range(1, 3)))
+        assert status == 200, body
+        status, body, _ = srv.request("GET", "/v1/policies")
+        rule = body["policies"][0]["rules"][0]
+        c = rule["calibration"]
+        assert c["false_alert_every"] == 1000 and c["derived_limit"] == rule["limit"], rule
+        assert 0.3 < rule["limit"] < 1.0, rule
+        # 7 series, 7 daily periods a week, one false alert per 1,000 periods each
+        assert abs(c["expected_false_alerts_per_week"] - 7 * 7 / 1000) < 1e-9, c
+    finally:
+        srv.stop()
+
+
 def test_alertmanager_shows_alerts_open_then_resolved():
     rx = Receiver()  # Alertmanager's own webhook receiver: what it notifies
     am_port = free_port()
@@ -408,4 +454,5 @@ receivers:
 if __name__ == "__main__":
     sys.exit(run([test_lifecycle_api_and_replay_agree, test_webhook_signature_outage_and_recovery,
                   test_kill9_with_undelivered_events_delivers_after_restart, test_dead_letters_and_retry,
-                  test_storm_is_grouped, test_alertmanager_shows_alerts_open_then_resolved]))
+                  test_storm_is_grouped, test_policies_show_derived_limits,
+                  test_alertmanager_shows_alerts_open_then_resolved]))
