@@ -335,7 +335,7 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
     r.Add(n["escalate_severity"], path + ".escalate_severity", "goes with 'escalate_limit'");
   }
   long resolve_after = 1;
-  r.Int(n, "resolve_after", path, resolve_after, 1, 10000);
+  r.Int(n, "resolve_after", path, resolve_after, 1, monitors::kMaxResolveAfter);
   rule.resolve_after = static_cast<int>(resolve_after);
   ok = r.problems().size() == before;
 }

@@ -222,17 +222,21 @@ static std::string AlertBody(Db& db, std::int64_t id, const std::string& kind, s
   if (!AlertJson(db, id, alert, error)) return {};
   json a = json::parse(alert);
   a["url"] = url;
-  char summary[512];
-  const json& v = a["value"];
-  std::snprintf(summary, sizeof summary, "%s %s on %s (%s): %s %s%s%s since %s", kind.c_str(),
-                a["rule"].get<std::string>().c_str(), a["series"].get<std::string>().c_str(),
-                a["policy"].get<std::string>().c_str(), a["severity"].get<std::string>().c_str(),
-                a["signal"].get<std::string>().c_str(),
-                v.is_number() ? (" " + std::to_string(v.get<double>())).c_str() : "",
-                a["limit"].is_number()
-                    ? (" (limit " + std::to_string(a["limit"].get<double>()) + ")").c_str()
-                    : "",
-                a["opened_period"].get<std::string>().c_str());
+  // One line with the numbers: "opened shift on north/a (stores): warning cusum 9.81 (limit
+  // 9.4) since 2026-03-09".
+  auto number = [](const json& n) {
+    char buf[32];
+    std::snprintf(buf, sizeof buf, "%.4g", n.get<double>());
+    return std::string(buf);
+  };
+  std::string summary = kind + " " + a["rule"].get<std::string>() + " on " +
+                        a["series"].get<std::string>() + " (" + a["policy"].get<std::string>() +
+                        "): " + a["severity"].get<std::string>() + " " +
+                        a["signal"].get<std::string>();
+  // appends piece by piece (GCC 12 warns wrongly about `"literal" + std::string&&`)
+  if (a["value"].is_number()) summary.append(" ").append(number(a["value"]));
+  if (a["limit"].is_number()) summary.append(" (limit ").append(number(a["limit"])).append(")");
+  summary.append(" since ").append(a["opened_period"].get<std::string>());
   json body{{"kind", kind}, {"at", IsoTime(now_ms)}, {"summary", summary}, {"alert", a}};
   if (previous_severity) body["previous_severity"] = previous_severity;
   return body.dump(-1, ' ', false, json::error_handler_t::replace);

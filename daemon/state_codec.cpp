@@ -80,7 +80,7 @@ std::string EncodeState(const monitors::SeriesState& s) {
     w.Put<std::int32_t>(r.run);
     w.Put<std::uint8_t>(static_cast<std::uint8_t>((r.active ? 1 : 0) | (r.open ? 2 : 0) |
                                                   (r.escalated ? 4 : 0)));
-    w.Put<std::uint16_t>(r.quiet);
+    w.Put<std::uint8_t>(r.quiet);
   }
   w.Put<std::uint64_t>(s.active);
   w.Put<std::uint16_t>(s.recent.capacity());
@@ -113,7 +113,7 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
     std::int32_t run = 0;
     std::uint8_t bits = 0;
     if (!r.Get(run) || !r.Get(bits) || run < 0 || run > UINT16_MAX) return false;
-    if (version >= 3 && !r.Get(rule.quiet)) return false;
+    if (version >= 3 && !r.Get(rule.quiet)) return false;  // one byte
     rule.run = static_cast<std::uint16_t>(run);
     rule.active = bits & 1;
     // before version 3 a holding rule was its own episode

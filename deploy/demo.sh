@@ -42,6 +42,15 @@ for s in json.load(sys.stdin)["series"]:
         s["key"], s["policy"], s["forecast"] or 0, s["trigg_signal"] or 0, s["cusum_signal"] or 0,
         ",".join(a["rule"] for a in s["alerts"])))'
 first=$(curl -s "$url/v1/series?status=alerting&sort=trigg&limit=1" | python3 -c 'import json,sys; print(json.load(sys.stdin)["series"][0]["key"])')
+
+echo
+echo "demo: open alerts, newest first (first 10 of those the log sink wrote to $out/serve.log):"
+curl -s "$url/v1/alerts?state=open&limit=10" | python3 -c '
+import json, sys
+for a in json.load(sys.stdin)["alerts"]:
+    print("  #%-6d %-28s %-14s %-7s %-8s since %s" % (
+        a["id"], a["series"], a["policy"], a["rule"], a["severity"], a["opened_period"]))'
+alert=$(curl -s "$url/v1/alerts?state=open&limit=1" | python3 -c 'import json,sys; a=json.load(sys.stdin)["alerts"]; print(a[0]["id"] if a else 1)')
 cat <<EOT
 
 Where to look (the service keeps running; Ctrl-C stops it):
@@ -50,6 +59,10 @@ Where to look (the service keeps running; Ctrl-C stops it):
   curl -s '$url/v1/series/$first'
   curl -s '$url/v1/series/$first/history'
   curl -s -X POST '$url/v1/series/$first/reset' -d '{"to": "last", "who": "you", "note": "checked"}'
+  curl -s '$url/v1/alerts?state=open&rule=shift'
+  curl -s '$url/v1/alerts/$alert'
+  curl -s -X POST '$url/v1/alerts/$alert/acknowledge' -d '{"by": "you", "note": "looking"}'
+  curl -s -X POST '$url/v1/alerts/$alert/snooze' -d '{"by": "you", "until": "2028-02-07"}'
   injected changes to compare with: $out/truth.csv
 EOT
 wait $pid

@@ -55,15 +55,18 @@ struct RuleSpec {
 };
 
 struct RuleState {
-  std::uint16_t run = 0;    // consecutive periods beyond the limit (saturates at 65535)
-  std::uint16_t quiet = 0;  // consecutive evaluated periods without holding, while open
-  bool active = false;      // the rule holds
-  bool open = false;        // an episode is open
-  bool escalated = false;   // the open episode went beyond escalate_limit
+  std::uint16_t run = 0;   // consecutive periods beyond the limit (saturates at 65535)
+  std::uint8_t quiet = 0;  // consecutive evaluated periods without holding, while open (<= 255)
+  bool active : 1 = false;     // the rule holds
+  bool open : 1 = false;       // an episode is open
+  bool escalated : 1 = false;  // the open episode went beyond escalate_limit
 };
 
+// resolve_after is at most this (the quiet count is one byte).
+inline constexpr int kMaxResolveAfter = 255;
+
 // The rule states of one series: up to four inline (most policies have a few rules), more on
-// the heap. Eight bytes a rule, so a series with few rules costs no allocation.
+// the heap. Four bytes a rule, so a series with few rules costs no allocation.
 class RuleStates {
  public:
   RuleStates() = default;
@@ -175,7 +178,7 @@ inline EpisodeChange AdvanceEpisode(const RuleSpec& rule, RuleState& st, std::op
     return c;
   }
   if (!st.open) return c;
-  if (st.quiet < UINT16_MAX) st.quiet += 1;
+  if (st.quiet < UINT8_MAX) st.quiet += 1;
   if (st.quiet >= rule.resolve_after) {
     st.open = false;
     st.escalated = false;

@@ -14,6 +14,7 @@
 #pragma once
 
 #include <cstdint>
+#include <cstring>
 #include <memory>
 #include <optional>
 #include <string>
@@ -89,13 +90,11 @@ class RecentWindow {
   RecentWindow(const RecentWindow& o) { *this = o; }
   RecentWindow& operator=(const RecentWindow& o) {
     if (this != &o) {
-      cap_ = o.cap_;
-      head_ = o.head_;
-      count_ = o.count_;
       buf_.reset();
       if (o.buf_) {
-        buf_.reset(new float[kFields * cap_]);
-        std::copy(o.buf_.get(), o.buf_.get() + kFields * cap_, buf_.get());
+        const std::size_t n = Size(o.capacity());
+        buf_.reset(new float[n]);
+        std::copy(o.buf_.get(), o.buf_.get() + n, buf_.get());
       }
     }
     return *this;
@@ -109,18 +108,18 @@ class RecentWindow {
       Clear();
       return;
     }
-    if (capacity != cap_ || !buf_) {
-      buf_.reset(new float[kFields * capacity]);
-      cap_ = capacity;
-      head_ = 0;
-      count_ = 0;
+    Header h = header();
+    if (capacity != h.cap || !buf_) {
+      buf_.reset(new float[Size(capacity)]);
+      h = Header{capacity, 0, 0};
     }
-    float* at = buf_.get() + kFields * head_;
+    float* at = data() + kFields * h.head;
     at[0] = static_cast<float>(error);
     at[1] = static_cast<float>(actual);
     at[2] = static_cast<float>(mad_before);
-    head_ = static_cast<std::uint16_t>((head_ + 1) % cap_);
-    if (count_ < cap_) ++count_;
+    h.head = static_cast<std::uint16_t>((h.head + 1) % h.cap);
+    if (h.count < h.cap) ++h.count;
+    set_header(h);
   }
   struct Sums {
     double error = 0, abs_error = 0, actual = 0;
@@ -128,12 +127,13 @@ class RecentWindow {
   };
   // Sums over the newest n periods; false while fewer than n are held.
   bool Sum(int n, Sums& out) const {
-    if (n <= 0 || n > count_) return false;
+    const Header h = header();
+    if (n <= 0 || n > h.count) return false;
     out = Sums{};
-    std::size_t i = head_;
+    std::size_t i = h.head;
     for (int k = 0; k < n; ++k) {
-      i = (i + cap_ - 1) % cap_;
-      const float* at = buf_.get() + kFields * i;
+      i = (i + h.cap - 1) % h.cap;
+      const float* at = data() + kFields * i;
       out.error += at[0];
       out.abs_error += at[0] < 0 ? -at[0] : at[0];
       out.actual += at[1];
@@ -141,25 +141,36 @@ class RecentWindow {
     }
     return true;
   }
-  void Clear() {
-    buf_.reset();
-    cap_ = head_ = count_ = 0;
-  }
-  std::uint16_t capacity() const { return cap_; }
-  std::uint16_t count() const { return count_; }
+  void Clear() { buf_.reset(); }
+  std::uint16_t capacity() const { return header().cap; }
+  std::uint16_t count() const { return header().count; }
   // Oldest first, kFields values a period, for serialisation.
   std::vector<float> Values() const {
+    const Header h = header();
     std::vector<float> v;
-    v.reserve(kFields * count_);
-    std::size_t i = (head_ + cap_ - count_) % (cap_ ? cap_ : 1);
-    for (int k = 0; k < count_; ++k, i = (i + 1) % cap_)
-      v.insert(v.end(), buf_.get() + kFields * i, buf_.get() + kFields * (i + 1));
+    v.reserve(kFields * h.count);
+    std::size_t i = (h.head + h.cap - h.count) % (h.cap ? h.cap : 1);
+    for (int k = 0; k < h.count; ++k, i = (i + 1) % h.cap)
+      v.insert(v.end(), data() + kFields * i, data() + kFields * (i + 1));
     return v;
   }
 
  private:
+  // One allocation: a 8-byte header (capacity, next slot, count) then the periods, so that a
+  // series pays one pointer when it has no window.
+  struct Header {  // trivial: copied in and out of the float buffer with memcpy
+    std::uint16_t cap, head, count;
+  };
+  static std::size_t Size(std::size_t cap) { return 2 + kFields * cap; }
+  Header header() const {
+    Header h{0, 0, 0};
+    if (buf_) std::memcpy(&h, buf_.get(), sizeof h);
+    return h;
+  }
+  void set_header(const Header& h) { std::memcpy(buf_.get(), &h, sizeof h); }
+  float* data() { return buf_.get() + 2; }
+  const float* data() const { return buf_.get() + 2; }
   std::unique_ptr<float[]> buf_;
-  std::uint16_t cap_ = 0, head_ = 0, count_ = 0;
 };
 
 // The window a policy's bias, accuracy and windowed cusum rules need (0: none).

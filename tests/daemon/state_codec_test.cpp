@@ -77,7 +77,7 @@ TEST_CASE("states written in formats 1 and 2 still decode", "[unit]") {
   const std::string v3 = forewarden::EncodeState(s);
   // Format 2: no quiet count after the rule's run and flags, no window at the end.
   std::string v2 = v3.substr(0, v3.size() - 6);  // window capacity (2) and length (4)
-  v2.erase(v2.size() - 8 - 2, 2);                 // the rule's quiet count before `active` bits
+  v2.erase(v2.size() - 8 - 1, 1);                 // the rule's quiet count before `active` bits
   v2[0] = 2;
   std::string v1 = v2;
   v1[0] = 1;
