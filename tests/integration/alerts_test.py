@@ -243,6 +243,22 @@ def test_lifecycle_api_and_replay_agree():
         status, body, _ = srv.request("GET", "/v1/alerts?series=south/up")
         assert [(a["state"], a["resolved_reason"], a["resolved_by"]) for a in body["alerts"]] == \
             [("resolved", "reset", "ana")], body
+        # An acknowledged alert that escalates opens again and notifies (replay of the same
+        # input escalates at the second 200: cusum 6.33 MADs against escalate_limit 6).
+        status, body, _ = srv.post_csv("series,period,value\n" + csv_rows("west/esc", BASE + [125] * 3), token)
+        assert status == 200 and body["alerts_opened"] == 1, body
+        _, listed, _ = srv.request("GET", "/v1/alerts?series=west/esc")
+        esc = listed["alerts"][0]
+        assert esc["severity"] == "warning", esc
+        status, body, _ = srv.request("POST", "/v1/alerts/%d/acknowledge" % esc["id"],
+                                      json.dumps({"by": "ana"}), "application/json", token)
+        assert status == 200, body
+        status, body, _ = srv.post_csv("series,period,value\nwest/esc,2026-W14,200\nwest/esc,2026-W15,200\n", token)
+        assert status == 200, body
+        _, detail, _ = srv.request("GET", "/v1/alerts/%d" % esc["id"])
+        assert detail["state"] == "open" and detail["severity"] == "critical", detail
+        assert [h["kind"] for h in detail["history"]] == ["opened", "acknowledged", "escalated"], detail
+        assert detail["history"][-1]["deliveries"][0]["sink"] == "log", detail
         # Paging: newest first, `before` continues.
         status, page1, _ = srv.request("GET", "/v1/alerts?limit=1")
         assert len(page1["alerts"]) == 1 and page1["next_before"] is not None, page1
