@@ -14,19 +14,15 @@ using json = nlohmann::json;
 
 }  // namespace
 
-bool AlertJson(Db& db, std::int64_t id, std::string& text, std::string& error) {
-  Stmt q = db.Prepare(
-      "SELECT id, series_key, policy, rule, signal, severity, state, opened_period, opened_ms, "
-      "updated_ms, value, limit_value, ack_by, note, snooze_until_period, snooze_until_ms, "
-      "resolved_period, resolved_ms, resolved_by, resolved_reason, group_id FROM alerts WHERE id = ?1");
-  if (!q.valid() || !q.Bind(1, id).Step()) {
-    error = db.error();
-    return false;
-  }
-  if (!q.Row()) {
-    error = "no alert " + std::to_string(id);
-    return false;
-  }
+namespace {
+
+constexpr const char* kAlertColumns =
+    "SELECT id, series_key, policy, rule, signal, severity, state, opened_period, opened_ms, "
+    "updated_ms, value, limit_value, ack_by, note, snooze_until_period, snooze_until_ms, "
+    "resolved_period, resolved_ms, resolved_by, resolved_reason, group_id FROM alerts WHERE id = ?1";
+
+// The alert object of a row selected with kAlertColumns.
+json AlertRow(const Stmt& q) {
   json j;
   j["id"] = q.Int(0);
   auto text_or_null = [&](int col) -> json {
@@ -55,6 +51,35 @@ bool AlertJson(Db& db, std::int64_t id, std::string& text, std::string& error) {
   j["resolved_by"] = text_or_null(18);
   j["resolved_reason"] = text_or_null(19);
   j["group"] = q.IsNull(20) ? json(nullptr) : json(q.Int(20));
+  return j;
+}
+
+// Selects alert `id` with the prepared kAlertColumns statement `q`.
+bool SelectAlert(Stmt& q, std::int64_t id, json& out, std::string& error, Db& db) {
+  q.Reset();
+  if (!q.Bind(1, id).Step()) {
+    error = db.error();
+    return false;
+  }
+  if (!q.Row()) {
+    error = "no alert " + std::to_string(id);
+    return false;
+  }
+  out = AlertRow(q);
+  q.Reset();
+  return true;
+}
+
+}  // namespace
+
+bool AlertJson(Db& db, std::int64_t id, std::string& text, std::string& error) {
+  Stmt q = db.Prepare(kAlertColumns);
+  if (!q.valid()) {
+    error = db.error();
+    return false;
+  }
+  json j;
+  if (!SelectAlert(q, id, j, error, db)) return false;
   text = j.dump(-1, ' ', false, json::error_handler_t::replace);
   return true;
 }
@@ -77,8 +102,8 @@ bool AlertBook::Open(Db& db, const std::function<long(std::int64_t)>& index_of, 
       "resolved_period = ?3, resolved_by = ?4, resolved_reason = ?5, note = COALESCE(?6, note), "
       "snooze_until_period = NULL, snooze_until_ms = NULL WHERE id = ?1");
   insert_event_ = db.Prepare(
-      "INSERT INTO alert_events(alert_id, group_id, kind, at_ms, actor, note, body) "
-      "VALUES(?1, ?2, ?3, ?4, ?5, ?6, ?7)");
+      "INSERT INTO alert_events(alert_id, group_id, kind, at_ms, actor, note, severity, value, "
+      "detail) VALUES(?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)");
   insert_delivery_ = db.Prepare(
       "INSERT INTO deliveries(event_id, sink, state, next_ms) VALUES(?1, ?2, 'pending', ?3)");
   insert_group_ = db.Prepare(
@@ -123,15 +148,18 @@ void AlertBook::Configure(const config::Settings& settings) {
   sinks_.clear();
   for (const auto& s : settings.alerts.sinks) sinks_.push_back(s.name);
   storm_threshold_ = settings.alerts.storm_threshold;
-  public_url_ = settings.alerts.public_url;
-  if (public_url_.empty()) public_url_ = "http://" + settings.server.listen;
-  while (!public_url_.empty() && public_url_.back() == '/') public_url_.pop_back();
+  public_url_ = PublicUrl(settings);
+}
+
+void AlertBook::IndexReset() {
+  open_.clear();
+  snoozed_ = 0;
 }
 
 void AlertBook::Index(const std::function<std::optional<std::pair<std::size_t, std::size_t>>(
                           long index, const std::string& rule)>& locate,
                       const std::function<std::int64_t(long index, const std::string& text)>& period_of) {
-  open_.clear();
+  IndexReset();
   for (const Loaded& l : loaded_) {
     const auto where = locate(l.index, l.rule);
     if (!where) continue;  // the rule is gone from the policy: the alert stays as it is
@@ -142,27 +170,35 @@ void AlertBook::Index(const std::function<std::optional<std::pair<std::size_t, s
     o.severity = monitors::ParseSeverity(l.severity).value_or(monitors::Severity::kWarning);
     o.snooze_ms = l.snooze_ms;
     o.snooze_period = l.snooze_period.empty() ? INT64_MAX : period_of(l.index, l.snooze_period);
-    open_[Key(where->first, where->second)] = o;
+    Put(Key(where->first, where->second), o);
   }
-  loaded_.clear();
+  std::vector<Loaded>().swap(loaded_);  // give the memory back
+}
+
+void AlertBook::Put(std::uint64_t key, const std::optional<Live>& value) {
+  auto it = open_.find(key);
+  if (it != open_.end()) {
+    if (it->second.state == 's') --snoozed_;
+    if (value)
+      it->second = *value;
+    else
+      open_.erase(it);
+  } else if (value) {
+    open_.emplace(key, *value);
+  }
+  if (value && value->state == 's') ++snoozed_;
 }
 
 void AlertBook::Set(std::uint64_t key, std::optional<Live> value) {
   auto it = open_.find(key);
   undo_.push_back({key, it == open_.end() ? std::nullopt : std::optional<Live>(it->second)});
-  if (value)
-    open_[key] = *value;
-  else if (it != open_.end())
-    open_.erase(it);
+  Put(key, value);
 }
 
 void AlertBook::RollbackTo(std::size_t mark) {
   while (undo_.size() > mark) {
     auto& [key, previous] = undo_.back();
-    if (previous)
-      open_[key] = *previous;
-    else
-      open_.erase(key);
+    Put(key, previous);
     undo_.pop_back();
   }
 }
@@ -178,8 +214,8 @@ bool AlertBook::Fail(const std::string& what) {
   return false;
 }
 
-std::string AlertBook::SeriesUrl(const std::string& key) const {
-  std::string out = public_url_ + "/v1/series/";
+std::string SeriesUrl(const std::string& base, const std::string& key) {
+  std::string out = base + "/v1/series/";
   static const char* kHex = "0123456789ABCDEF";
   for (unsigned char c : key) {
     if (std::isalnum(c) || c == '-' || c == '_' || c == '.' || c == '~') {
@@ -193,16 +229,154 @@ std::string AlertBook::SeriesUrl(const std::string& key) const {
   return out;
 }
 
+std::string PublicUrl(const config::Settings& settings) {
+  std::string url = settings.alerts.public_url;
+  if (url.empty()) url = "http://" + settings.server.listen;
+  while (!url.empty() && url.back() == '/') url.pop_back();
+  return url;
+}
+
+bool Notifications::Open(Db& db, std::string install_id, std::string public_url, std::string& error) {
+  db_ = &db;
+  install_id_ = std::move(install_id);
+  public_url_ = std::move(public_url);
+  event_ = db.Prepare(
+      "SELECT kind, at_ms, actor, note, severity, value, detail, alert_id, group_id "
+      "FROM alert_events WHERE id = ?1");
+  alert_ = db.Prepare(kAlertColumns);
+  group_ = db.Prepare("SELECT policy, rule, severity, members, opened_ms, resolved_ms FROM alert_groups WHERE id = ?1");
+  sample_ = db.Prepare("SELECT series_key FROM alerts WHERE group_id = ?1 ORDER BY id LIMIT 20");
+  for (const Stmt* q : {&event_, &alert_, &group_, &sample_})
+    if (!q->valid()) {
+      error = db.error();
+      return false;
+    }
+  return true;
+}
+
+namespace {
+
+std::string Short(double v) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.4g", v);
+  return buf;
+}
+
+const char* StateAfter(const std::string& kind) {
+  if (kind == "acknowledged") return "acknowledged";
+  if (kind == "snoozed") return "snoozed";
+  if (kind == "resolved") return "resolved";
+  return "open";
+}
+
+}  // namespace
+
+bool Notifications::Group(std::int64_t group, const std::string& kind, json& out, std::string& error) {
+  group_.Reset();
+  if (!group_.Bind(1, group).Step() || !group_.Row()) {
+    error = "no alert group " + std::to_string(group) + " " + db_->error();
+    group_.Reset();
+    return false;
+  }
+  json g{{"id", group},
+         {"policy", std::string(group_.Text(0))},
+         {"rule", std::string(group_.Text(1))},
+         {"severity", std::string(group_.Text(2))},
+         {"series_count", group_.Int(3)},
+         {"opened_at", IsoTime(group_.Int(4))},
+         {"url", public_url_ + "/v1/alerts?group=" + std::to_string(group)}};
+  group_.Reset();
+  json sample = json::array();
+  sample_.Reset();
+  if (sample_.Bind(1, group).Step())
+    for (; sample_.Row(); sample_.Step()) sample.push_back(std::string(sample_.Text(0)));
+  sample_.Reset();
+  g["series_sample"] = sample;
+  out["summary"] = kind == "group_opened"
+                       ? std::to_string(g["series_count"].get<std::int64_t>()) + " series of policy " +
+                             g["policy"].get<std::string>() + " opened " + g["rule"].get<std::string>() +
+                             " in one batch (a whole-feed problem?)"
+                       : "every series of group " + std::to_string(group) + " (" +
+                             g["policy"].get<std::string>() + ", " + g["rule"].get<std::string>() +
+                             ") is clear again";
+  out["group"] = std::move(g);
+  return true;
+}
+
+bool Notifications::Event(std::int64_t event, json& out, std::string& error) {
+  event_.Reset();
+  if (!event_.Bind(1, event).Step() || !event_.Row()) {
+    error = "no alert event " + std::to_string(event) + " " + db_->error();
+    event_.Reset();
+    return false;
+  }
+  const std::string kind(event_.Text(0));
+  const std::int64_t at = event_.Int(1);
+  const std::string actor = event_.IsNull(2) ? "" : std::string(event_.Text(2));
+  const std::string note = event_.IsNull(3) ? "" : std::string(event_.Text(3));
+  const std::string severity = event_.IsNull(4) ? "" : std::string(event_.Text(4));
+  const bool has_value = !event_.IsNull(5);
+  const double value = has_value ? event_.Double(5) : 0.0;
+  const std::string detail = event_.IsNull(6) ? "" : std::string(event_.Text(6));
+  const std::int64_t alert = event_.IsNull(7) ? 0 : event_.Int(7);
+  const std::int64_t group = event_.IsNull(8) ? 0 : event_.Int(8);
+  event_.Reset();
+  out = json{{"event_id", event},
+             {"idempotency_key", install_id_ + "-" + std::to_string(event)},
+             {"kind", kind},
+             {"at", IsoTime(at)}};
+  if (!alert) return Group(group, kind, out, error);
+  json a;
+  if (!SelectAlert(alert_, alert, a, error, *db_)) return false;
+  // The alert as it was at the event: its state and severity then; the signal value where the
+  // event has one.
+  a["state"] = StateAfter(kind);
+  if (!severity.empty()) a["severity"] = severity;
+  if (has_value) a["value"] = value;
+  a["url"] = SeriesUrl(public_url_, a["series"].get<std::string>());
+  std::string summary = kind + " " + a["rule"].get<std::string>() + " on " +
+                        a["series"].get<std::string>() + " (" + a["policy"].get<std::string>() +
+                        "): " + a["severity"].get<std::string>() + " " +
+                        a["signal"].get<std::string>();
+  // appended piece by piece (GCC 12 warns wrongly about `"literal" + std::string&&`)
+  if (a["value"].is_number()) summary.append(" ").append(Short(a["value"].get<double>()));
+  if (a["limit"].is_number()) summary.append(" (limit ").append(Short(a["limit"].get<double>())).append(")");
+  summary.append(" since ").append(a["opened_period"].get<std::string>());
+  if (!actor.empty()) summary.append(", by ").append(actor);
+  if (kind == "snoozed" && !detail.empty()) summary.append(" until ").append(detail);
+  if (kind == "resolved" && !detail.empty()) summary.append(" (").append(detail).append(")");
+  if (!note.empty()) summary.append(": ").append(note);
+  out["summary"] = summary;
+  if (kind == "escalated" && !detail.empty()) out["previous_severity"] = detail;
+  if (!actor.empty()) out["by"] = actor;
+  if (!note.empty()) out["note"] = note;
+  out["alert"] = std::move(a);
+  return true;
+}
+
+bool Notifications::Current(std::int64_t alert, json& out, std::string& error) {
+  json a;
+  if (!SelectAlert(alert_, alert, a, error, *db_)) return false;
+  a["url"] = SeriesUrl(public_url_, a["series"].get<std::string>());
+  out = json{{"kind", "opened"}, {"alert", std::move(a)}};
+  out["summary"] = "open " + out["alert"]["rule"].get<std::string>() + " on " +
+                   out["alert"]["series"].get<std::string>();
+  return true;
+}
+
 bool AlertBook::Event(std::int64_t alert, std::int64_t group, const std::string& kind,
                       std::int64_t now_ms, const std::string& actor, const std::string& note,
-                      const std::string& body, bool notify) {
+                      const EventFacts& facts, bool notify) {
   insert_event_.Reset();
   if (alert) insert_event_.Bind(1, alert); else insert_event_.BindNull(1);
   if (group) insert_event_.Bind(2, group); else insert_event_.BindNull(2);
   insert_event_.Bind(3, kind).Bind(4, now_ms);
   if (actor.empty()) insert_event_.BindNull(5); else insert_event_.Bind(5, actor);
   if (note.empty()) insert_event_.BindNull(6); else insert_event_.Bind(6, note);
-  insert_event_.Bind(7, body);
+  if (facts.severity) insert_event_.Bind(7, std::string(monitors::SeverityName(*facts.severity)));
+  else insert_event_.BindNull(7);
+  if (facts.value) insert_event_.Bind(8, *facts.value); else insert_event_.BindNull(8);
+  if (facts.detail.empty()) insert_event_.BindNull(9); else insert_event_.Bind(9, facts.detail);
   if (!insert_event_.Run()) return Fail("alert event");
   if (!notify) return true;
   const std::int64_t event = db_->LastInsertId();
@@ -212,34 +386,6 @@ bool AlertBook::Event(std::int64_t alert, std::int64_t group, const std::string&
       return Fail("alert delivery");
   }
   return true;
-}
-
-// The notification text of an alert event: {"kind", "at", "summary", "alert": {...}}.
-static std::string AlertBody(Db& db, std::int64_t id, const std::string& kind, std::int64_t now_ms,
-                             const std::string& url, std::string& error,
-                             const char* previous_severity = nullptr) {
-  std::string alert;
-  if (!AlertJson(db, id, alert, error)) return {};
-  json a = json::parse(alert);
-  a["url"] = url;
-  // One line with the numbers: "opened shift on north/a (stores): warning cusum 9.81 (limit
-  // 9.4) since 2026-03-09".
-  auto number = [](const json& n) {
-    char buf[32];
-    std::snprintf(buf, sizeof buf, "%.4g", n.get<double>());
-    return std::string(buf);
-  };
-  std::string summary = kind + " " + a["rule"].get<std::string>() + " on " +
-                        a["series"].get<std::string>() + " (" + a["policy"].get<std::string>() +
-                        "): " + a["severity"].get<std::string>() + " " +
-                        a["signal"].get<std::string>();
-  // appends piece by piece (GCC 12 warns wrongly about `"literal" + std::string&&`)
-  if (a["value"].is_number()) summary.append(" ").append(number(a["value"]));
-  if (a["limit"].is_number()) summary.append(" (limit ").append(number(a["limit"])).append(")");
-  summary.append(" since ").append(a["opened_period"].get<std::string>());
-  json body{{"kind", kind}, {"at", IsoTime(now_ms)}, {"summary", summary}, {"alert", a}};
-  if (previous_severity) body["previous_severity"] = previous_severity;
-  return body.dump(-1, ' ', false, json::error_handler_t::replace);
 }
 
 bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo& info,
@@ -261,22 +407,8 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
              .Bind(4, static_cast<std::int64_t>(members.size())).Bind(5, now_ms).Run())
       return Fail("alert group");
     const std::int64_t group = db_->LastInsertId();
-    json sample = json::array();
-    for (std::size_t k = 0; k < members.size() && k < 20; ++k)
-      sample.push_back(info(changes[members[k]].series).key);
     for (std::size_t m : members) group_of[m] = group;
-    char summary[400];
-    std::snprintf(summary, sizeof summary,
-                  "%zu series of policy %s opened %s in one batch (a whole-feed problem?)",
-                  members.size(), where.first->name.c_str(), rule.name.c_str());
-    json body{{"kind", "group_opened"},
-              {"at", IsoTime(now_ms)},
-              {"summary", summary},
-              {"group", {{"id", group}, {"policy", where.first->name}, {"rule", rule.name},
-                         {"severity", monitors::SeverityName(rule.severity)},
-                         {"series_count", members.size()}, {"series_sample", sample},
-                         {"url", public_url_ + "/v1/alerts?group=" + std::to_string(group)}}}};
-    if (!Event(0, group, "group_opened", now_ms, "", "", body.dump(-1, ' ', false, json::error_handler_t::replace), true))
+    if (!Event(0, group, "group_opened", now_ms, "", "", EventFacts{rule.severity, std::nullopt, ""}, true))
       return false;
     ++counts.grouped;
     ++counts.notified;
@@ -309,9 +441,8 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
       o.group = group_of[i];
       o.severity = c.severity;
       Set(key, o);
-      const std::string body = AlertBody(*db_, o.id, "opened", now_ms, SeriesUrl(s.key), error);
-      if (body.empty()) return Fail("alert body: " + error);
-      if (!Event(o.id, o.group, "opened", now_ms, "", "", body, o.group == 0)) return false;
+      if (!Event(o.id, o.group, "opened", now_ms, "", "", EventFacts{c.severity, c.value, ""}, o.group == 0))
+        return false;
       ++counts.opened;
       if (!o.group) ++counts.notified;
     } else if (c.kind == AlertChange::Kind::kEscalated) {
@@ -326,10 +457,10 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
       if (c.value) set_severity_.Bind(4, *c.value); else set_severity_.BindNull(4);
       if (!set_severity_.Run()) return Fail("alert escalation");
       Set(key, o);
-      const std::string body = AlertBody(*db_, o.id, "escalated", now_ms, SeriesUrl(s.key), error,
-                                         monitors::SeverityName(previous));
-      if (body.empty()) return Fail("alert body: " + error);
-      if (!Event(o.id, o.group, "escalated", now_ms, "", "", body, true)) return false;
+      // detail: the severity it had (Alertmanager resolves the alert under its old labels)
+      if (!Event(o.id, o.group, "escalated", now_ms, "", "",
+                 EventFacts{c.severity, c.value, monitors::SeverityName(previous)}, true))
+        return false;
       ++counts.escalated;
       ++counts.notified;
     } else {
@@ -339,9 +470,9 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
       resolve_alert_.Bind(1, o.id).Bind(2, now_ms).Bind(3, period).BindNull(4).Bind(5, c.reason).BindNull(6);
       if (!resolve_alert_.Run()) return Fail("alert resolution");
       Set(key, std::nullopt);
-      const std::string body = AlertBody(*db_, o.id, "resolved", now_ms, SeriesUrl(s.key), error);
-      if (body.empty()) return Fail("alert body: " + error);
-      if (!Event(o.id, o.group, "resolved", now_ms, "", "", body, o.group == 0)) return false;
+      if (!Event(o.id, o.group, "resolved", now_ms, "", "", EventFacts{o.severity, c.value, c.reason},
+                 o.group == 0))
+        return false;
       ++counts.resolved;
       if (!o.group) {
         ++counts.notified;
@@ -358,19 +489,9 @@ bool AlertBook::GroupMemberLeft(std::int64_t group, std::int64_t now_ms, AlertCo
   if (!group_left_.Bind(1, group).Bind(2, now_ms).Step() || !group_left_.Row())
     return Fail("alert group member");
   const std::int64_t left = group_left_.Int(0);
-  json g{{"id", group}, {"policy", std::string(group_left_.Text(1))},
-         {"rule", std::string(group_left_.Text(2))}, {"severity", std::string(group_left_.Text(3))},
-         {"series_count", group_left_.Int(4)},
-         {"url", public_url_ + "/v1/alerts?group=" + std::to_string(group)}};
   group_left_.Reset();
   if (left > 0) return true;
-  json body{{"kind", "group_resolved"},
-            {"at", IsoTime(now_ms)},
-            {"summary", "every series of group " + std::to_string(group) + " (" +
-                            g["policy"].get<std::string>() + ", " + g["rule"].get<std::string>() +
-                            ") is clear again"},
-            {"group", g}};
-  if (!Event(0, group, "group_resolved", now_ms, "", "", body.dump(), true)) return false;
+  if (!Event(0, group, "group_resolved", now_ms, "", "", EventFacts{}, true)) return false;
   ++counts.notified;
   return true;
 }
@@ -396,20 +517,10 @@ bool AlertBook::LoadAlert(std::int64_t id, int& status, std::string& error, std:
   return false;
 }
 
-bool AlertBook::Transition(std::int64_t id, const std::string& kind, const std::string& state,
+bool AlertBook::Transition(std::int64_t id, const std::string& kind, const Live& alert,
                            std::int64_t now_ms, const std::string& actor, const std::string& note,
-                           bool notify) {
-  std::string error;
-  std::string key;
-  {
-    Stmt q = db_->Prepare("SELECT series_key FROM alerts WHERE id = ?1");
-    if (!q.valid() || !q.Bind(1, id).Step() || !q.Row()) return Fail("alert");
-    key = std::string(q.Text(0));
-  }
-  const std::string body = AlertBody(*db_, id, kind, now_ms, SeriesUrl(key), error);
-  if (body.empty()) return Fail("alert body: " + error);
-  (void)state;
-  return Event(id, 0, kind, now_ms, actor, note, body, notify);
+                           const std::string& detail) {
+  return Event(id, 0, kind, now_ms, actor, note, EventFacts{alert.severity, std::nullopt, detail}, true);
 }
 
 bool AlertBook::Acknowledge(std::int64_t id, const std::string& by, const std::string& note,
@@ -421,7 +532,7 @@ bool AlertBook::Acknowledge(std::int64_t id, const std::string& by, const std::s
   update_alert_state_.Bind(1, id).Bind(2, std::string("acknowledged")).Bind(3, now_ms).Bind(4, by);
   if (note.empty()) update_alert_state_.BindNull(5); else update_alert_state_.Bind(5, note);
   update_alert_state_.BindNull(6).BindNull(7);
-  if (!update_alert_state_.Run() || !Transition(id, "acknowledged", "acknowledged", now_ms, by, note, true)) {
+  if (!update_alert_state_.Run() || !Transition(id, "acknowledged", o, now_ms, by, note, "")) {
     status = 500;
     error = error_;
     return false;
@@ -444,7 +555,7 @@ bool AlertBook::Snooze(std::int64_t id, std::optional<std::int64_t> until_period
   if (note.empty()) update_alert_state_.BindNull(5); else update_alert_state_.Bind(5, note);
   if (until_period) update_alert_state_.Bind(6, until_period_text); else update_alert_state_.BindNull(6);
   if (until_ms) update_alert_state_.Bind(7, *until_ms); else update_alert_state_.BindNull(7);
-  if (!update_alert_state_.Run() || !Transition(id, "snoozed", "snoozed", now_ms, by, note, true)) {
+  if (!update_alert_state_.Run() || !Transition(id, "snoozed", o, now_ms, by, note, until_ms ? IsoTime(*until_ms) : until_period_text)) {
     status = 500;
     error = error_;
     return false;
@@ -465,7 +576,7 @@ bool AlertBook::ResolveByHand(std::int64_t id, const std::string& by, const std:
   resolve_alert_.Bind(1, id).Bind(2, now_ms).BindNull(3).Bind(4, by).Bind(5, std::string("by hand"));
   if (note.empty()) resolve_alert_.BindNull(6); else resolve_alert_.Bind(6, note);
   AlertCounts ignored;
-  if (!resolve_alert_.Run() || !Transition(id, "resolved", "resolved", now_ms, by, note, true) ||
+  if (!resolve_alert_.Run() || !Transition(id, "resolved", o, now_ms, by, note, "by hand") ||
       (o.group && !GroupMemberLeft(o.group, now_ms, ignored))) {
     status = 500;
     error = error_;
@@ -479,7 +590,7 @@ bool AlertBook::Unsnooze(std::uint64_t key, Live o, std::int64_t now_ms, AlertCo
   update_alert_state_.Reset();
   update_alert_state_.Bind(1, o.id).Bind(2, std::string("open")).Bind(3, now_ms).BindNull(4)
       .BindNull(5).BindNull(6).BindNull(7);
-  if (!update_alert_state_.Run() || !Transition(o.id, "snooze_ended", "open", now_ms, "", "", true))
+  if (!update_alert_state_.Run() || !Transition(o.id, "snooze_ended", o, now_ms, "", "", ""))
     return false;
   o.state = 'o';
   o.snooze_ms = o.snooze_period = INT64_MAX;
@@ -499,6 +610,7 @@ bool AlertBook::WakeSnoozed(std::int64_t now_ms, const SeriesInfo&, AlertCounts&
 
 bool AlertBook::WakeSnoozedAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
                               std::int64_t now_ms, AlertCounts& counts) {
+  if (!AnySnoozed()) return true;  // the common case: no lookups per series
   const AlertSeries s = info(index);
   for (std::size_t r = 0; r < s.policy->spec.rules.size(); ++r) {
     auto it = open_.find(Key(index, r));
@@ -517,7 +629,7 @@ bool AlertBook::ResolveSeries(std::size_t index, const std::string& reason, cons
     const Live o = it->second;
     resolve_alert_.Reset();
     resolve_alert_.Bind(1, o.id).Bind(2, now_ms).BindNull(3).Bind(4, by).Bind(5, reason).BindNull(6);
-    if (!resolve_alert_.Run() || !Transition(o.id, "resolved", "resolved", now_ms, by, "", true) ||
+    if (!resolve_alert_.Run() || !Transition(o.id, "resolved", o, now_ms, by, "", reason) ||
         (o.group && !GroupMemberLeft(o.group, now_ms, counts)))
       return false;
     Set(it->first, std::nullopt);

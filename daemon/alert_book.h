@@ -25,6 +25,8 @@
 #include <unordered_map>
 #include <vector>
 
+#include <nlohmann/json.hpp>
+
 #include "config/settings.h"
 #include "daemon/sqlite.h"
 #include "monitors/rule.h"
@@ -93,6 +95,8 @@ class AlertBook {
   std::optional<std::int64_t> Find(std::size_t index, std::size_t rule) const;
 
   std::size_t Mark() const { return undo_.size(); }
+  // Whether any unresolved alert is snoozed (kept by Set; cheap).
+  bool AnySnoozed() const { return snoozed_ > 0; }
   void RollbackTo(std::size_t mark);
   void Forget() { undo_.clear(); }
 
@@ -112,16 +116,25 @@ class AlertBook {
   static std::uint64_t Key(std::size_t index, std::size_t rule) {
     return (static_cast<std::uint64_t>(index) << 8) | rule;
   }
-  void Set(std::uint64_t key, std::optional<Live> value);
+  void Set(std::uint64_t key, std::optional<Live> value);  // with undo
+  void Put(std::uint64_t key, const std::optional<Live>& value);  // without
+  void IndexReset();
+  // What an event records besides kind, time, actor and note: the alert's severity and signal
+  // value then, and a detail (the previous severity of an escalation, a snooze's end, the
+  // reason of a resolution).
+  struct EventFacts {
+    std::optional<monitors::Severity> severity;
+    std::optional<double> value;
+    std::string detail;
+  };
   bool Event(std::int64_t alert, std::int64_t group, const std::string& kind, std::int64_t now_ms,
-             const std::string& actor, const std::string& note, const std::string& body,
+             const std::string& actor, const std::string& note, const EventFacts& facts,
              bool notify);
   bool Fail(const std::string& what);
-  std::string SeriesUrl(const std::string& key) const;
   bool LoadAlert(std::int64_t id, int& status, std::string& error, std::uint64_t& key, Live& open);
-  bool Transition(std::int64_t id, const std::string& kind, const std::string& state,
+  bool Transition(std::int64_t id, const std::string& kind, const Live& alert,
                   std::int64_t now_ms, const std::string& actor, const std::string& note,
-                  bool notify);
+                  const std::string& detail);
 
   struct Loaded {
     std::int64_t id;
@@ -139,13 +152,39 @@ class AlertBook {
   long storm_threshold_ = 25;
   std::string public_url_;
   std::unordered_map<std::uint64_t, Live> open_;
+  long snoozed_ = 0;  // entries of open_ in state 's'
   std::vector<std::pair<std::uint64_t, std::optional<Live>>> undo_;
   std::string error_;
   Stmt insert_alert_, update_alert_state_, set_severity_, resolve_alert_, insert_event_,
       insert_delivery_, insert_group_, group_left_, select_alert_;
 };
 
-// The JSON text of an alert row for the API and for notifications (alerts.id = `id`).
+// The JSON text of an alert row for the API (alerts.id = `id`).
 bool AlertJson(Db& db, std::int64_t id, std::string& json_text, std::string& error);
+
+// The service's base URL in notifications: alerts.public_url, else http://<server.listen>.
+std::string PublicUrl(const config::Settings& settings);
+// The API URL of a series under `base` (the key percent-encoded).
+std::string SeriesUrl(const std::string& base, const std::string& key);
+
+// Notifications built at delivery time from an event row and its alert's (or group's) row: the
+// outbox stores facts, not message text. Used by the delivery worker on its own connection.
+class Notifications {
+ public:
+  bool Open(Db& db, std::string install_id, std::string public_url, std::string& error);
+  // {"event_id", "idempotency_key", "kind", "at", "summary", "alert": {...} | "group": {...},
+  //  "by"?, "note"?, "previous_severity"?}; the alert as it was at the event (state, severity,
+  //  value), with "url".
+  bool Event(std::int64_t event, nlohmann::json& out, std::string& error);
+  // An unresolved alert as it is now ({"kind": "opened", "summary", "alert"}), for re-sends.
+  bool Current(std::int64_t alert, nlohmann::json& out, std::string& error);
+  // Fills "group" and "summary" of a group event.
+  bool Group(std::int64_t group, const std::string& kind, nlohmann::json& out, std::string& error);
+
+ private:
+  Db* db_ = nullptr;
+  std::string install_id_, public_url_;
+  Stmt event_, alert_, group_, sample_;
+};
 
 }  // namespace forewarden

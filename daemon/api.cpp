@@ -523,7 +523,10 @@ void Api::Alerts(const std::string& path, const Query& query, HttpRequest&& requ
     filter(param("policy"), "policy");
     filter(param("rule"), "rule");
     filter(severity, "severity");
-    filter(param("series"), "series_key");
+    if (!param("series").empty()) {  // through the series' id (indexed), not its key
+      values.push_back(param("series"));
+      sql += " AND series_id = (SELECT id FROM series WHERE key = ?" + std::to_string(values.size() + 1) + ")";
+    }
     filter(group, "CAST(group_id AS TEXT)");
     sql += " ORDER BY id DESC LIMIT " + std::to_string(limit + 1);
     const bool queued = engine_.Post([=, this] {

@@ -14,6 +14,7 @@
 #include <sstream>
 #include <vector>
 
+#include "daemon/alert_book.h"
 #include "daemon/http_client.h"
 #include "daemon/iso_time.h"
 #include "daemon/sqlite.h"
@@ -48,7 +49,6 @@ struct Event {
   int attempts = 0;
   std::int64_t next_ms = 0;
   std::string kind;
-  std::string body;
 };
 
 bool ReadSecret(const config::Sink& s, std::string& secret, std::string& error) {
@@ -121,6 +121,7 @@ struct Delivery::Impl {
   std::vector<SinkConfig> sinks;
   std::string install_id;
   Db db;
+  Notifications notifications;
   Stmt pending, mark_delivered, mark_failed, next_due, backlog_q, open_alerts, open_groups;
   std::thread thread;
   mutable std::mutex mu;
@@ -136,13 +137,8 @@ struct Delivery::Impl {
   void Refresh();
   void Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error, std::int64_t now);
   bool SendWebhook(const SinkConfig& s, const Event& e, std::string& error);
-  bool SendAlertmanager(const SinkConfig& s, const std::vector<Event>& events, std::string& error);
+  bool SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes, std::string& error);
   void Resend(std::int64_t now);
-  std::string Wrapped(const Event& e) const {
-    const std::string key = install_id + "-" + std::to_string(e.id);
-    return "{\"event_id\":" + std::to_string(e.id) + ",\"idempotency_key\":\"" + key + "\"," +
-           e.body.substr(1);
-  }
 };
 
 Delivery::Delivery(std::shared_ptr<const config::Settings> settings, Clock clock)
@@ -173,7 +169,8 @@ bool Delivery::Start(std::string& error) {
   if (!Update(m.settings, error)) return false;
   const std::string path =
       (std::filesystem::path(m.settings->server.data) / "forewarden.db").string();
-  if (!m.db.Open(path) || !m.db.Exec("PRAGMA busy_timeout=5000;")) {
+  // NORMAL: a delivery marked just before a power cut may be sent again (at least once anyway).
+  if (!m.db.Open(path) || !m.db.Exec("PRAGMA synchronous=NORMAL;")) {
     error = "delivery: " + m.db.error();
     return false;
   }
@@ -183,8 +180,13 @@ bool Delivery::Start(std::string& error) {
     return false;
   }
   m.install_id = std::string(id.Text(0));
+  m.db.WaitForLocks(5000);
+  if (!m.notifications.Open(m.db, m.install_id, PublicUrl(*m.settings), error)) {
+    error = "delivery: " + error;
+    return false;
+  }
   m.pending = m.db.Prepare(
-      "SELECT d.event_id, d.attempts, d.next_ms, e.kind, e.body FROM deliveries d "
+      "SELECT d.event_id, d.attempts, d.next_ms, e.kind FROM deliveries d "
       "JOIN alert_events e ON e.id = d.event_id WHERE d.sink = ?1 AND d.state = 'pending' "
       "ORDER BY d.event_id LIMIT ?2");
   m.mark_delivered = m.db.Prepare(
@@ -199,9 +201,7 @@ bool Delivery::Start(std::string& error) {
       "min(CASE WHEN d.state = 'pending' THEN e.at_ms END) FROM deliveries d "
       "JOIN alert_events e ON e.id = d.event_id WHERE d.state != 'delivered'");
   m.open_alerts = m.db.Prepare("SELECT id FROM alerts WHERE state != 'resolved' AND group_id IS NULL");
-  m.open_groups = m.db.Prepare(
-      "SELECT e.body FROM alert_groups g JOIN alert_events e ON e.group_id = g.id AND "
-      "e.kind = 'group_opened' WHERE g.resolved_ms IS NULL");
+  m.open_groups = m.db.Prepare("SELECT id FROM alert_groups WHERE resolved_ms IS NULL");
   for (const Stmt* s : {&m.pending, &m.mark_delivered, &m.mark_failed, &m.next_due, &m.backlog_q,
                         &m.open_alerts, &m.open_groups})
     if (!s->valid()) {
@@ -302,7 +302,9 @@ void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const 
 }
 
 bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::string& error) {
-  const std::string body = Wrapped(e);
+  json note;
+  if (!notifications.Event(e.id, note, error)) return false;
+  const std::string body = note.dump(-1, ' ', false, json::error_handler_t::replace);
   HttpHeaders headers{{"X-Forewarden-Event", e.kind},
                       {"X-Forewarden-Delivery", install_id + "-" + std::to_string(e.id)}};
   if (!s.secret.empty()) headers.push_back({"X-Forewarden-Signature", "sha256=" + HmacSha256Hex(s.secret, body)});
@@ -313,31 +315,30 @@ bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::strin
   return false;
 }
 
-bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<Event>& events,
+bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes,
                                       std::string& error) {
   const std::int64_t now = clock();
   const std::int64_t ends = now + 4 * settings->alerts.resend_seconds * 1000;
   json list = json::array();
-  for (const Event& e : events) {
-    const json body = json::parse(e.body, nullptr, false);
-    if (body.is_discarded()) continue;
+  for (const json& body : notes) {
+    const std::string kind = body.value("kind", "");
     const std::string summary = body.value("summary", "");
     if (body.contains("alert")) {
       json alert = body["alert"];
       const std::string severity = alert.value("severity", "warning");
-      if (e.kind == "opened" || e.kind == "escalated" || e.kind == "snooze_ended") {
+      if (kind == "opened" || kind == "escalated" || kind == "snooze_ended") {
         json a = AmAlert(alert, severity, true, now, ends);
         a["annotations"]["summary"] = summary;
         list.push_back(a);
-        if (e.kind == "escalated" && body.contains("previous_severity"))
+        if (kind == "escalated" && body.contains("previous_severity"))
           list.push_back(AmAlert(alert, body["previous_severity"].get<std::string>(), false, now, ends));
-      } else if (e.kind == "resolved") {
+      } else if (kind == "resolved") {
         json a = AmAlert(alert, severity, false, now, ends);
         a["annotations"]["summary"] = summary;
         list.push_back(a);
       }
     } else if (body.contains("group")) {
-      list.push_back(AmGroup(body["group"], e.kind == "group_opened", now, ends, summary));
+      list.push_back(AmGroup(body["group"], kind == "group_opened", now, ends, summary));
     }
   }
   if (list.empty()) return true;  // acknowledgements and snoozes only
@@ -364,18 +365,21 @@ void Delivery::Impl::Round(std::int64_t now) {
     if (!pending.Step()) continue;
     for (; pending.Row(); pending.Step())
       events.push_back({pending.Int(0), static_cast<int>(pending.Int(1)), pending.Int(2),
-                        std::string(pending.Text(3)), std::string(pending.Text(4))});
+                        std::string(pending.Text(3))});
     pending.Reset();
     if (events.empty() || events.front().next_ms > now) continue;  // strict order per sink
     db.Exec("BEGIN IMMEDIATE;");
     switch (s.sink.kind) {
       case config::Sink::Kind::kLog:
         for (const Event& e : events) {
-          const json body = json::parse(e.body, nullptr, false);
-          std::fprintf(stderr, "forewarden: level=info msg=alert event=%lld kind=%s summary=\"%s\"\n",
-                       static_cast<long long>(e.id), e.kind.c_str(),
-                       body.is_discarded() ? "" : body.value("summary", "").c_str());
-          Finish(s, e, true, "", now);
+          json note;
+          std::string error;
+          const bool ok = notifications.Event(e.id, note, error);
+          if (ok)
+            std::fprintf(stderr, "forewarden: level=info msg=alert event=%lld kind=%s summary=\"%s\"\n",
+                         static_cast<long long>(e.id), e.kind.c_str(),
+                         note.value("summary", "").c_str());
+          Finish(s, e, ok, error, now);
         }
         break;
       case config::Sink::Kind::kWebhook:
@@ -389,10 +393,16 @@ void Delivery::Impl::Round(std::int64_t now) {
         break;
       case config::Sink::Kind::kAlertmanager: {
         std::vector<Event> due;
-        for (const Event& e : events)
-          if (e.next_ms <= now) due.push_back(e);
+        std::vector<json> notes;
         std::string error;
-        const bool ok = SendAlertmanager(s, due, error);
+        bool ok = true;
+        for (const Event& e : events)
+          if (e.next_ms <= now) {
+            due.push_back(e);
+            notes.emplace_back();
+            ok = ok && notifications.Event(e.id, notes.back(), error);
+          }
+        if (ok) ok = SendAlertmanager(s, notes, error);
         for (const Event& e : due) Finish(s, e, ok, error, clock());
         break;
       }
@@ -410,28 +420,26 @@ void Delivery::Impl::Resend(std::int64_t now) {
   }
   if (am.empty() || now - last_resend_ms < settings->alerts.resend_seconds * 1000) return;
   last_resend_ms = now;
-  // Open alerts re-sent as "opened" events would be: build them from the current rows.
-  std::vector<Event> events;
-  std::vector<std::int64_t> ids;
+  // Open alerts re-sent as they are now; open groups as their opening.
+  std::vector<json> events;
+  std::vector<std::int64_t> ids, groups;
   if (open_alerts.Step())
     for (; open_alerts.Row(); open_alerts.Step()) ids.push_back(open_alerts.Int(0));
   open_alerts.Reset();
-  for (std::int64_t id : ids) {
-    std::string text, error;
-    Stmt q = db.Prepare(
-        "SELECT body FROM alert_events WHERE alert_id = ?1 ORDER BY id DESC LIMIT 1");
-    if (!q.valid() || !q.Bind(1, id).Step() || !q.Row()) continue;
-    json body = json::parse(q.Text(0), nullptr, false);
-    if (body.is_discarded() || !body.contains("alert")) continue;
-    events.push_back({0, 0, 0, "opened", body.dump()});
-  }
   if (open_groups.Step())
-    for (; open_groups.Row(); open_groups.Step())
-      events.push_back({0, 0, 0, "group_opened", std::string(open_groups.Text(0))});
+    for (; open_groups.Row(); open_groups.Step()) groups.push_back(open_groups.Int(0));
   open_groups.Reset();
+  std::string error;
+  for (std::int64_t id : ids) {
+    events.emplace_back();
+    if (!notifications.Current(id, events.back(), error)) events.pop_back();
+  }
+  for (std::int64_t g : groups) {
+    json note{{"kind", "group_opened"}};
+    if (notifications.Group(g, "group_opened", note, error)) events.push_back(std::move(note));
+  }
   if (events.empty()) return;
   for (const SinkConfig& s : am) {
-    std::string error;
     if (SendAlertmanager(s, events, error)) {
       std::lock_guard lock(mu);
       counters[s.sink.name].resent += static_cast<long>(events.size());

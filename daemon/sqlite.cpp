@@ -1,5 +1,8 @@
 #include "daemon/sqlite.h"
 
+#include <cstdint>
+#include <ctime>
+
 namespace forewarden {
 
 bool Stmt::Step() {
@@ -39,6 +42,21 @@ bool Db::Open(const std::string& path) {
   if (rc != SQLITE_OK) return Fail("open " + path);
   sqlite3_extended_result_codes(raw, 1);
   return true;
+}
+
+void Db::WaitForLocks(int ms) {
+  // The handler's context is the wait in 100-microsecond steps.
+  static_assert(sizeof(void*) >= sizeof(std::intptr_t));
+  sqlite3_busy_handler(
+      db_.get(),
+      [](void* steps, int count) -> int {
+        if (count >= static_cast<int>(reinterpret_cast<std::intptr_t>(steps))) return 0;
+        sqlite3_sleep(0);  // yield
+        struct timespec t{0, 100000};
+        nanosleep(&t, nullptr);
+        return 1;
+      },
+      reinterpret_cast<void*>(static_cast<std::intptr_t>(ms) * 10));
 }
 
 bool Db::Exec(const std::string& sql) {

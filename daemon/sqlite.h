@@ -77,6 +77,10 @@ class Db {
  public:
   // Opens (creating if needed) the database file.
   bool Open(const std::string& path);
+  // Waits up to `ms` for a lock another connection holds, retrying every 100 microseconds
+  // (SQLite's own busy timeout sleeps in steps of up to 100 ms, far longer than the short
+  // transactions of the delivery worker).
+  void WaitForLocks(int ms);
   // Runs one or more statements without results.
   bool Exec(const std::string& sql);
   // Prepares a statement; an invalid Stmt on error.

@@ -75,8 +75,9 @@ const char* const kMigrations[] = {
     "  resolved_by TEXT,"
     "  resolved_reason TEXT,"
     "  group_id INTEGER);"
-    "CREATE INDEX alerts_state ON alerts(state, id);"
-    "CREATE INDEX alerts_series ON alerts(series_key, id);"
+    // lean indexes: alert changes ride in the ingest transactions
+    "CREATE INDEX alerts_unresolved ON alerts(state) WHERE state != 'resolved';"
+    "CREATE INDEX alerts_series ON alerts(series_id);"
     "CREATE TABLE alert_events("
     "  id INTEGER PRIMARY KEY,"
     "  alert_id INTEGER,"
@@ -85,7 +86,9 @@ const char* const kMigrations[] = {
     "  at_ms INTEGER NOT NULL,"
     "  actor TEXT,"
     "  note TEXT,"
-    "  body TEXT NOT NULL);"
+    "  severity TEXT,"
+    "  value REAL,"
+    "  detail TEXT);"
     "CREATE INDEX alert_events_alert ON alert_events(alert_id, id);"
     "CREATE TABLE deliveries("
     "  event_id INTEGER NOT NULL,"
@@ -111,8 +114,9 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
   if (!db_.Open((std::filesystem::path(dir) / "forewarden.db").string())) return false;
   if (!db_.Exec("PRAGMA journal_mode=WAL;") ||
       !db_.Exec(std::string("PRAGMA synchronous=") + (synchronous_full ? "FULL" : "NORMAL") + ";") ||
-      !db_.Exec("PRAGMA foreign_keys=ON; PRAGMA busy_timeout=5000;"))
+      !db_.Exec("PRAGMA foreign_keys=ON;"))
     return false;
+  db_.WaitForLocks(5000);
   if (!Migrate()) return false;
   if (!db_.Exec("PRAGMA cache_size=-" + std::to_string(std::max(1LL, cache_bytes / 1024)) + ";"))
     return false;
