@@ -346,7 +346,7 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       "name",   "match",      "period",       "method",        "alpha",       "adaptive",
       "trend_beta", "damping", "season_gamma", "season_length", "start",       "signal_beta",
       "warmup", "gaps",       "coverage",     "initial_mad",   "max_gap",     "rules",
-      "history", "stale_after"};
+      "history", "stale_after", "export_top_series"};
   if (!n.IsMap()) {
     r.Add(n, path, "a policy must be a map");
     return;
@@ -501,6 +501,9 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
   long stale = p.stale_after;
   r.Int(n, "stale_after", path, stale, 1, 100000);
   p.stale_after = static_cast<int>(stale);
+  long top = p.export_top_series;
+  r.Int(n, "export_top_series", path, top, 0, 100);
+  p.export_top_series = static_cast<int>(top);
 
   const YAML::Node rules = n["rules"];
   if (rules.IsDefined()) {

@@ -34,6 +34,9 @@ struct Policy {
   monitors::PolicySpec spec;
   int history = 104;        // actuals kept per series for restatements and charts
   int stale_after = 2;      // periods an actual may be overdue before the series is stale
+  // /metrics exports this many series with the largest |Trigg's signal| by key (0: none;
+  // each costs two time series in Prometheus).
+  int export_top_series = 0;
   std::vector<RuleCalibration> calibrations;  // rules with a false_alert_every budget
 };
 

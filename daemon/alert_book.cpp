@@ -203,6 +203,13 @@ void AlertBook::RollbackTo(std::size_t mark) {
   }
 }
 
+void AlertBook::Tally(
+    const std::function<void(std::size_t, std::size_t, const char*, monitors::Severity)>& each) const {
+  for (const auto& [key, live] : open_)
+    each(static_cast<std::size_t>(key >> 8), static_cast<std::size_t>(key & 0xff),
+         live.state == 'a' ? "acknowledged" : live.state == 's' ? "snoozed" : "open", live.severity);
+}
+
 std::optional<std::int64_t> AlertBook::Find(std::size_t index, std::size_t rule) const {
   auto it = open_.find(Key(index, rule));
   if (it == open_.end()) return std::nullopt;

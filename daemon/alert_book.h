@@ -94,6 +94,9 @@ class AlertBook {
   // The open alert of (series, rule), if any: its id.
   std::optional<std::int64_t> Find(std::size_t index, std::size_t rule) const;
 
+  // Calls `each` for every unresolved alert: (series index, rule index, state name, severity).
+  void Tally(const std::function<void(std::size_t, std::size_t, const char*, monitors::Severity)>& each) const;
+
   std::size_t Mark() const { return undo_.size(); }
   // Whether any unresolved alert is snoozed (kept by Set; cheap).
   bool AnySnoozed() const { return snoozed_ > 0; }

@@ -1,12 +1,15 @@
 #include "daemon/api.h"
 
 #include <algorithm>
+#include <chrono>
+#include <cstring>
 #include <cmath>
 #include <ctime>
 #include <nlohmann/json.hpp>
 
 #include "daemon/ingest.h"
 #include "daemon/iso_time.h"
+#include "daemon/metrics.h"
 #include "monitors/interval.h"
 
 namespace forewarden {
@@ -165,8 +168,38 @@ bool ParseDateParam(const monitors::PeriodKind kind, const std::string& text, st
 
 }  // namespace
 
-Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token)
-    : engine_(engine), settings_(std::move(settings)), token_(std::move(token)) {}
+Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
+         Metrics* metrics)
+    : engine_(engine), metrics_(metrics), settings_(std::move(settings)), token_(std::move(token)) {}
+
+namespace {
+
+// The route label of a request path: a fixed set, never a series key or an id.
+const char* RouteOf(const std::string& path) {
+  static const char* kExact[] = {"/v1/actuals", "/v1/series", "/v1/policies", "/v1/alerts",
+                                 "/v1/deliveries", "/v1/deliveries/retry", "/metrics", "/healthz",
+                                 "/readyz"};
+  for (const char* r : kExact)
+    if (path == r) return r;
+  auto ends = [&](const char* suffix) {
+    const std::size_t n = std::strlen(suffix);
+    return path.size() > n && path.compare(path.size() - n, n, suffix) == 0;
+  };
+  if (path.rfind("/v1/series/", 0) == 0) {
+    if (ends("/history")) return "/v1/series/{key}/history";
+    if (ends("/reset")) return "/v1/series/{key}/reset";
+    return "/v1/series/{key}";
+  }
+  if (path.rfind("/v1/alerts/", 0) == 0) {
+    if (ends("/acknowledge")) return "/v1/alerts/{id}/acknowledge";
+    if (ends("/snooze")) return "/v1/alerts/{id}/snooze";
+    if (ends("/resolve")) return "/v1/alerts/{id}/resolve";
+    return "/v1/alerts/{id}";
+  }
+  return "other";
+}
+
+}  // namespace
 
 void Api::Update(std::shared_ptr<const config::Settings> settings, std::string token) {
   std::lock_guard lock(mu_);
@@ -194,6 +227,16 @@ bool Api::Authorized(const HttpRequest& request) {
 }
 
 void Api::Handle(HttpRequest&& request, Respond respond) {
+  if (!metrics_) return Route(std::move(request), std::move(respond));
+  std::string path = request.target.substr(0, request.target.find('?'));
+  const char* route = RouteOf(path);
+  Route(std::move(request), [this, route, respond = std::move(respond)](HttpResponse r) {
+    metrics_->CountRequest(route, r.status);
+    respond(std::move(r));
+  });
+}
+
+void Api::Route(HttpRequest&& request, Respond respond) {
   std::string path;
   std::vector<std::pair<std::string, std::string>> query;
   SplitTarget(request.target, path, query);
@@ -213,6 +256,18 @@ void Api::Handle(HttpRequest&& request, Respond respond) {
     const std::string failure = engine_.failure();
     if (!failure.empty()) return respond(Json(503, {{"ready", false}, {"reason", failure}}));
     return respond(Json(200, {{"ready", true}}));
+  }
+  if (path == "/metrics") {
+    if (!get) return respond(Error(405, "use GET"));
+    if (!metrics_) return respond(Error(404, "metrics are not enabled"));
+    const bool queued = engine_.Post([this, respond] {
+      HttpResponse r;
+      r.content_type = "text/plain; version=0.0.4; charset=utf-8";
+      r.body = metrics_->Render(engine_.Snapshot());
+      respond(std::move(r));
+    });
+    if (!queued) respond(Error(503, "the engine is busy; retry later"));
+    return;
   }
   if (path == "/v1/actuals") {
     if (!post) return respond(Error(405, "use POST"));
@@ -436,9 +491,13 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
     counters_.rejected_bad_input.fetch_add(1);
     return respond(Json(400, problems_json(batch.problems, batch.problem_count)));
   }
-  const bool queued = engine_.Submit(std::move(batch.rows), [this, respond, problems_json](IngestReply r) {
+  const auto received = std::chrono::steady_clock::now();
+  const std::size_t rows = batch.rows.size();
+  const bool queued = engine_.Submit(std::move(batch.rows), [this, respond, problems_json, received, rows](IngestReply r) {
     switch (r.status) {
       case IngestReply::Status::kOk:
+        if (metrics_)
+          metrics_->ObserveBatch(rows, std::chrono::duration<double>(std::chrono::steady_clock::now() - received).count());
         return respond(Json(200, {{"rows", r.counts.rows},
                                   {"applied", r.counts.applied},
                                   {"unchanged", r.counts.unchanged},

@@ -13,6 +13,7 @@
 //   GET  /v1/deliveries                   ?state=dead|pending|delivered &sink=
 //   POST /v1/deliveries/retry             ?sink=  dead deliveries back to pending
 //   GET  /healthz, /readyz
+//   GET  /metrics                         Prometheus text exposition (metrics.h)
 // Write endpoints need "Authorization: Bearer TOKEN" when a token is configured (compared in
 // constant time, never logged). Reads run as jobs on the engine thread.
 #pragma once
@@ -36,9 +37,12 @@ struct ApiCounters {
   std::atomic<long> rejected_unavailable{0};
 };
 
+class Metrics;
+
 class Api {
  public:
-  Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token);
+  Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
+      Metrics* metrics = nullptr);
   void Handle(HttpRequest&& request, Respond respond);
   // Thread-safe: settings and token after a reload.
   void Update(std::shared_ptr<const config::Settings> settings, std::string token);
@@ -53,7 +57,9 @@ class Api {
   bool Authorized(const HttpRequest& request);
   std::shared_ptr<const config::Settings> settings() const;
 
+  void Route(HttpRequest&& request, Respond respond);
   Engine& engine_;
+  Metrics* metrics_;
   mutable std::mutex mu_;
   std::shared_ptr<const config::Settings> settings_;
   std::string token_;

@@ -473,6 +473,7 @@ void Engine::Run() {
     const std::string sticky = failure();
     if (!sticky.empty()) {
       for (Pending& p : pending) {
+        ++counters_.batches_unavailable;
         p.reply.status = IngestReply::Status::kUnavailable;
         p.reply.error = sticky;
         p.job.done(std::move(p.reply));
@@ -488,7 +489,10 @@ void Engine::Run() {
                          (static_cast<long>(dirty_count_) >= srv.state_flush_series ||
                           clock_() - last_flush_ms_ >= srv.state_flush_seconds * 1000);
       if (flush) FlushDirty();
+      const auto commit_start = std::chrono::steady_clock::now();
       if (failure().empty() && !store_.Commit()) Fail("store: commit: " + store_.error());
+      if (on_commit_ && failure().empty())
+        on_commit_(std::chrono::duration<double>(std::chrono::steady_clock::now() - commit_start).count());
       if (flush && failure().empty()) ClearDirty();
     }
     const std::string failed = failure();
@@ -500,13 +504,35 @@ void Engine::Run() {
         if (it->reply.status == IngestReply::Status::kOk) Rewind(*it);
         it->reply.status = IngestReply::Status::kUnavailable;
         it->reply.error = failed;
+        ++counters_.batches_unavailable;
       }
     } else {
       alerts_.Forget();
       const std::int64_t now = clock_();
-      for (const Pending& p : pending)
-        if (p.reply.status == IngestReply::Status::kOk)
+      for (const Pending& p : pending) {
+        if (p.reply.status == IngestReply::Status::kOk) {
           for (const config::Policy* policy : p.policies) last_arrival_[policy->name] = now;
+          for (const auto& [policy, sum] : p.bias) {
+            BiasSum& total = bias_[policy];
+            if (sum.period > total.period) total = BiasSum{sum.period, 0, 0};
+            if (sum.period == total.period) {
+              total.errors += sum.errors;
+              total.actuals += sum.actuals;
+            }
+          }
+          counters_.applied += p.reply.counts.applied;
+          counters_.unchanged += p.reply.counts.unchanged;
+          counters_.restated += p.reply.counts.restated;
+          ++counters_.batches_ok;
+        } else {
+          counters_.rejected_rows += p.reply.counts.rows;
+          ++counters_.batches_rejected;
+        }
+      }
+      counters_.alerts_opened = alert_counts_.opened;
+      counters_.alerts_escalated = alert_counts_.escalated;
+      counters_.alerts_resolved = alert_counts_.resolved;
+      counters_.alerts_grouped = alert_counts_.grouped;
       if (notified_ && on_outbox_) on_outbox_();
     }
     notified_ = 0;
@@ -607,6 +633,7 @@ void Engine::ApplyBatch(Pending& p) {
   if (!store_.RollbackToSavepoint()) Fail("store: rollback: " + store_.error());
   alerts_.RollbackTo(p.alert_mark);
   p.alert_changes.clear();
+  p.bias.clear();
   Rewind(p);
 }
 
@@ -674,6 +701,11 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     ++p.reply.counts.applied;
     p.reply.counts.filled += r.filled;
     CollectChanges(index, r, period.ordinal, p.alert_changes);
+    if (r.has_forecast) {
+      auto it = std::find_if(p.bias.begin(), p.bias.end(), [&](const auto& b) { return b.first == &policy; });
+      if (it == p.bias.end()) it = p.bias.insert(p.bias.end(), {&policy, BiasSum{}});
+      it->second.Add(period.ordinal, r.error, row.value);
+    }
     return true;
   }
   bool found = false;
@@ -905,6 +937,86 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
   alert_counts_.resolved += counts.resolved;
   if (counts.notified && on_outbox_) on_outbox_();
   return true;
+}
+
+EngineSnapshot Engine::Snapshot() const {
+  EngineSnapshot out;
+  const auto& policies = settings_->policies;
+  std::unordered_map<const config::Policy*, std::size_t> at;
+  for (const config::Policy& p : policies) {
+    at[&p] = out.policies.size();
+    PolicyHealth h;
+    h.policy = p.name;
+    h.trigg_at_most.assign(std::size(kTriggBounds) + 1, 0);
+    h.cusum_at_most.assign(std::size(kCusumBounds) + 1, 0);
+    h.last_actual_ms = LastArrival(p.name);
+    auto b = bias_.find(&p);
+    if (b != bias_.end() && b->second.actuals > 0) {
+      h.has_bias = true;
+      h.bias = b->second.errors / b->second.actuals;
+    }
+    out.policies.push_back(std::move(h));
+  }
+  const std::int64_t today = Today();
+  // per policy: the opted-in top series by |T| (a small heap of K)
+  std::vector<std::vector<PolicyHealth::Top>> top(out.policies.size());
+  auto smaller = [](const PolicyHealth::Top& a, const PolicyHealth::Top& b) {
+    return std::fabs(a.trigg) > std::fabs(b.trigg);
+  };
+  for (std::size_t i = 0; i < series_.size(); ++i) {
+    const Series& s = series_[i];
+    auto found = at.find(s.policy);
+    if (found == at.end()) continue;
+    PolicyHealth& h = out.policies[found->second];
+    const monitors::SeriesState& st = s.state;
+    const bool warming = !st.started || st.forecasts <= s.policy->spec.warmup;
+    const int state = st.active ? 1 : IsStale(s, today) ? 2 : warming ? 3 : 0;
+    ++h.series[state];
+    if (warming) continue;
+    const std::optional<double> t = monitors::TriggSignal(st.stats);
+    const std::optional<double> c = monitors::CusumSignal(st.stats);
+    if (t) {
+      const double v = std::fabs(*t);
+      std::size_t k = 0;
+      while (k < std::size(kTriggBounds) && v > kTriggBounds[k]) ++k;
+      ++h.trigg_at_most[k];
+    }
+    if (c) {
+      const double v = std::fabs(*c);
+      std::size_t k = 0;
+      while (k < std::size(kCusumBounds) && v > kCusumBounds[k]) ++k;
+      ++h.cusum_at_most[k];
+    }
+    const std::size_t k_top = static_cast<std::size_t>(s.policy->export_top_series);
+    if (k_top && t) {
+      auto& heap = top[found->second];
+      heap.push_back({std::string(s.key), *t, c.value_or(0.0)});
+      std::push_heap(heap.begin(), heap.end(), smaller);
+      if (heap.size() > k_top) {
+        std::pop_heap(heap.begin(), heap.end(), smaller);
+        heap.pop_back();
+      }
+    }
+  }
+  for (std::size_t p = 0; p < out.policies.size(); ++p) {
+    PolicyHealth& h = out.policies[p];
+    for (std::size_t k = 1; k < h.trigg_at_most.size(); ++k) h.trigg_at_most[k] += h.trigg_at_most[k - 1];
+    for (std::size_t k = 1; k < h.cusum_at_most.size(); ++k) h.cusum_at_most[k] += h.cusum_at_most[k - 1];
+    std::sort_heap(top[p].begin(), top[p].end(), smaller);
+    h.top = std::move(top[p]);
+  }
+  alerts_.Tally([&](std::size_t index, std::size_t rule, const char* state, monitors::Severity severity) {
+    const Series& s = series_[index];
+    const std::string& rule_name = s.policy->spec.rules[rule].name;
+    for (AlertTally& t : out.alerts)
+      if (t.policy == s.policy->name && t.rule == rule_name && t.state == state &&
+          t.severity == monitors::SeverityName(severity)) {
+        ++t.count;
+        return;
+      }
+    out.alerts.push_back({s.policy->name, rule_name, monitors::SeverityName(severity), state, 1});
+  });
+  return out;
 }
 
 std::int64_t Engine::LastArrival(const std::string& policy) const {

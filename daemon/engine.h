@@ -93,6 +93,40 @@ struct HistoryRow {
   monitors::StepResult result;
 };
 
+// What /metrics shows of the portfolio (engine thread, one pass over the series).
+struct PolicyHealth {
+  std::string policy;
+  long series[4] = {0, 0, 0, 0};  // ok, alerting, stale, warming (the API's status)
+  // series with |signal| <= bound, for each bound (cumulative; the last bound is +Inf)
+  std::vector<long> trigg_at_most, cusum_at_most;
+  std::int64_t last_actual_ms = 0;  // 0: none since start
+  bool has_bias = false;
+  double bias = 0.0;  // sum of errors / sum of actuals over the policy's newest period
+  // the opted-in series with the largest |Trigg's signal|: key, trigg, cusum
+  struct Top {
+    std::string key;
+    double trigg = 0, cusum = 0;
+  };
+  std::vector<Top> top;
+};
+struct AlertTally {
+  std::string policy, rule, severity, state;
+  long count = 0;
+};
+struct EngineSnapshot {
+  std::vector<PolicyHealth> policies;
+  std::vector<AlertTally> alerts;  // unresolved alerts by policy, rule, severity and state
+};
+inline constexpr double kTriggBounds[] = {0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0};
+inline constexpr double kCusumBounds[] = {1, 2, 3, 4, 5, 6, 8, 10, 15, 20, 50};
+
+// Engine totals since start (thread-safe reads).
+struct EngineCounters {
+  std::atomic<long> applied{0}, unchanged{0}, restated{0}, rejected_rows{0};
+  std::atomic<long> batches_ok{0}, batches_rejected{0}, batches_unavailable{0};
+  std::atomic<long> alerts_opened{0}, alerts_escalated{0}, alerts_resolved{0}, alerts_grouped{0};
+};
+
 class Engine {
  public:
   using Clock = std::function<std::int64_t()>;  // milliseconds since the Unix epoch
@@ -148,6 +182,11 @@ class Engine {
                    int& status, std::string& error);
 
   const AlertCounts& alert_counts() const { return alert_counts_; }
+  // Engine thread: the portfolio as /metrics shows it.
+  EngineSnapshot Snapshot() const;
+  const EngineCounters& counters() const { return counters_; }
+  // Before Start: called on the engine thread with each commit's duration in seconds.
+  void OnCommit(std::function<void(double)> observer) { on_commit_ = std::move(observer); }
   // Before Start: called (on the engine thread) after each commit that queued notifications.
   void OnOutbox(std::function<void()> listener) { on_outbox_ = std::move(listener); }
 
@@ -159,6 +198,17 @@ class Engine {
     std::int32_t retained = 0;
     const config::Policy* policy = nullptr;
     monitors::SeriesState state;
+  };
+  struct BiasSum {
+    std::int64_t period = INT64_MIN;
+    double errors = 0, actuals = 0;
+    void Add(std::int64_t p, double e, double a) {
+      if (p > period) *this = BiasSum{p, 0, 0};
+      if (p == period) {
+        errors += e;
+        actuals += a;
+      }
+    }
   };
   struct Undo {
     std::size_t index;
@@ -180,6 +230,7 @@ class Engine {
     std::vector<const config::Policy*> policies;  // that received new actuals (a few)
     std::vector<AlertChange> alert_changes;
     std::size_t alert_mark = 0;
+    std::vector<std::pair<const config::Policy*, BiasSum>> bias;  // a few policies
   };
 
   void Run();
@@ -234,6 +285,11 @@ class Engine {
   std::int64_t last_housekeeping_ms_ = 0;
   std::function<void()> on_outbox_;
   long notified_ = 0;  // notifications queued by the batches being committed
+  EngineCounters counters_;
+  std::function<void(double)> on_commit_;
+  // Portfolio bias per policy: errors and actuals of its newest period (batches add theirs
+  // after the commit).
+  std::unordered_map<const config::Policy*, BiasSum> bias_;
 
   mutable std::mutex mu_;
   std::condition_variable wake_;

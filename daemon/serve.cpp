@@ -15,6 +15,7 @@
 #include "daemon/drop_folder.h"
 #include "daemon/delivery.h"
 #include "daemon/engine.h"
+#include "daemon/metrics.h"
 #include "daemon/http_server.h"
 
 namespace forewarden {
@@ -128,7 +129,9 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   };
   Engine engine(settings, wall_clock);
   Delivery delivery(settings, wall_clock);
+  Metrics metrics;
   engine.OnOutbox([&delivery] { delivery.Notify(); });
+  engine.OnCommit([&metrics](double seconds) { metrics.ObserveCommit(seconds); });
   if (!engine.Start(error)) {
     err << "forewarden serve: " << error << '\n';
     return 1;
@@ -139,7 +142,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
     engine.Stop();
     return 1;
   }
-  Api api(engine, settings, token);
+  Api api(engine, settings, token, &metrics);
   HttpOptions http;
   http.host = host;
   http.port = port;
@@ -169,6 +172,9 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
     }
   }
   std::atomic<long> reloads_ok{0}, reloads_failed{0};  // server and engine threads count them
+  metrics.SetSources(MetricSources{&engine, &server.counters(), &api.counters(),
+                                   folder ? &folder->counters() : nullptr, &delivery, &reloads_ok,
+                                   &reloads_failed});
   bool stopping = false;
   const std::chrono::seconds grace(srv.shutdown_grace_seconds);
   server.OnSignals([&](int signo) {
