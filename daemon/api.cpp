@@ -489,6 +489,8 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
   };
   if (batch.problem_count) {
     counters_.rejected_bad_input.fetch_add(1);
+    counters_.rejected_rows.fetch_add(batch.data_rows);
+    counters_.rejected_batches.fetch_add(1);
     return respond(Json(400, problems_json(batch.problems, batch.problem_count)));
   }
   const auto received = std::chrono::steady_clock::now();

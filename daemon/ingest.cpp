@@ -102,6 +102,7 @@ ParsedBatch ParseCsvBatch(std::string_view body, long max_rows) {
       if (static_cast<int>(i) != c_series && static_cast<int>(i) != c_period &&
           static_cast<int>(i) != c_value && !fields[i].empty())
         row.labels.emplace_back(names[i], std::string(fields[i]));
+    ++b.data_rows;
     if (ok) b.rows.push_back(std::move(row));
   }
   if (!in.ok()) Add(b, in.line(), "row", in.error());
@@ -186,6 +187,7 @@ ParsedBatch ParseNdjsonBatch(std::string_view body, long max_rows) {
         }
       }
     }
+    ++b.data_rows;
     if (ok) b.rows.push_back(std::move(row));
   }
   return b;

@@ -141,10 +141,12 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
     actuals.Add({{"result", "applied"}}).Increment(static_cast<double>(c.applied.load()));
     actuals.Add({{"result", "unchanged"}}).Increment(static_cast<double>(c.unchanged.load()));
     actuals.Add({{"result", "restated"}}).Increment(static_cast<double>(c.restated.load()));
-    actuals.Add({{"result", "rejected"}}).Increment(static_cast<double>(c.rejected_rows.load()));
+    const long api_rows = src.api ? src.api->rejected_rows.load() : 0;
+    const long api_batches = src.api ? src.api->rejected_batches.load() : 0;
+    actuals.Add({{"result", "rejected"}}).Increment(static_cast<double>(c.rejected_rows.load() + api_rows));
     auto& batches = BuildCounter().Name("forewarden_batches_total").Help("Ingest batches, by result.").Register(now);
     batches.Add({{"result", "committed"}}).Increment(static_cast<double>(c.batches_ok.load()));
-    batches.Add({{"result", "rejected"}}).Increment(static_cast<double>(c.batches_rejected.load()));
+    batches.Add({{"result", "rejected"}}).Increment(static_cast<double>(c.batches_rejected.load() + api_batches));
     batches.Add({{"result", "unavailable"}}).Increment(static_cast<double>(c.batches_unavailable.load()));
     auto& transitions = BuildCounter().Name("forewarden_alert_transitions_total")
                             .Help("Alert changes recorded with ingest, by kind (hand changes are in the alert history).")
