@@ -10,6 +10,7 @@
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
+#include <iostream>
 #include <nlohmann/json.hpp>
 #include <sstream>
 #include <vector>
@@ -17,6 +18,7 @@
 #include "daemon/alert_book.h"
 #include "daemon/http_client.h"
 #include "daemon/iso_time.h"
+#include "daemon/log.h"
 #include "daemon/sqlite.h"
 
 namespace forewarden {
@@ -376,9 +378,9 @@ void Delivery::Impl::Round(std::int64_t now) {
           std::string error;
           const bool ok = notifications.Event(e.id, note, error);
           if (ok)
-            std::fprintf(stderr, "forewarden: level=info msg=alert event=%lld kind=%s summary=\"%s\"\n",
-                         static_cast<long long>(e.id), e.kind.c_str(),
-                         note.value("summary", "").c_str());
+            WriteLog(std::cerr, LogLine("info", "alert", {{"event", std::to_string(e.id)},
+                                                          {"kind", e.kind},
+                                                          {"summary", note.value("summary", "")}}));
           Finish(s, e, ok, error, now);
         }
         break;

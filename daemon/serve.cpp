@@ -2,7 +2,9 @@
 
 #include <atomic>
 #include <chrono>
+#include <condition_variable>
 #include <csignal>
+#include <thread>
 #include <cstdlib>
 #include <ctime>
 #include <fstream>
@@ -15,7 +17,9 @@
 #include "daemon/drop_folder.h"
 #include "daemon/delivery.h"
 #include "daemon/engine.h"
+#include "daemon/log.h"
 #include "daemon/metrics.h"
+#include "daemon/systemd_notify.h"
 #include "daemon/http_server.h"
 
 namespace forewarden {
@@ -40,16 +44,8 @@ bool IsLoopback(const std::string& host) {
 
 namespace {
 
-std::mutex log_mu;
-
-void Log(std::ostream& err, const std::string& line) {
-  const std::time_t now = std::time(nullptr);
-  std::tm tm{};
-  gmtime_r(&now, &tm);
-  char stamp[32];
-  std::strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%SZ", &tm);
-  std::lock_guard lock(log_mu);
-  err << stamp << " forewarden: " << line << std::endl;
+void Log(std::ostream& err, const std::string& line, const char* level = "info") {
+  WriteLog(err, LogLine(level, line));
 }
 
 // The bearer token from the file or environment variable the settings name ("" = none).
@@ -183,13 +179,13 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
       std::string why;
       if (!LoadSettings(o, next, why)) {
         ++reloads_failed;
-        Log(err, "reload refused, the settings in force stay:\n" + why);
+        Log(err, "reload refused, the settings in force stay:\n" + why, "warn");
         return;
       }
       std::string next_token;
       if (!LoadToken(next->server, next_token, why)) {
         ++reloads_failed;
-        Log(err, "reload refused, the settings in force stay: " + why);
+        Log(err, "reload refused, the settings in force stay: " + why, "warn");
         return;
       }
       // Series keep their policy by name; a policy holding series must stay with the same
@@ -210,30 +206,32 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
         });
         if (!problem.empty()) {
           ++reloads_failed;
-          Log(err, "reload refused, the settings in force stay: " + problem);
+          Log(err, "reload refused, the settings in force stay: " + problem, "warn");
           return;
         }
         if (!delivery.Update(next, problem)) {
           ++reloads_failed;
-          Log(err, "reload refused, the settings in force stay: " + problem);
+          Log(err, "reload refused, the settings in force stay: " + problem, "warn");
           return;
         }
         engine.Reload(next);
         api.Update(next, next_token);
         ++reloads_ok;
+        NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(next->policies.size()) + " policies");
         Log(err, "reloaded " + o.config + " (" + std::to_string(next->policies.size()) + " policies)");
       });
       if (!queued) {
         ++reloads_failed;
-        Log(err, "reload refused: the engine queue is full");
+        Log(err, "reload refused: the engine queue is full", "warn");
       }
       return;
     }
     if (stopping) {
-      Log(err, "second signal: exiting at once");
+      Log(err, "second signal: exiting at once", "warn");
       std::_Exit(1);
     }
     stopping = true;
+    NotifyServiceManager("STOPPING=1");
     Log(err, "stopping: no new connections, finishing requests in flight (grace " +
                  std::to_string(grace.count()) + " s)");
     server.Shutdown(grace);
@@ -245,7 +243,28 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
                  " series by replaying actuals committed after their last saved state");
   Log(err, "serving " + std::to_string(settings->policies.size()) + " policies from " + o.config +
                ", data in " + srv.data);
+  NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(settings->policies.size()) +
+                       " policies");
+  // Watchdog: the ping goes through the engine's queue, so a stuck engine stops the pings and
+  // the service manager restarts the service.
+  std::mutex watchdog_mu;
+  std::condition_variable watchdog_wake;
+  bool watchdog_stop = false;
+  std::thread watchdog;
+  if (const auto interval = WatchdogInterval(); interval.count() > 0) {
+    watchdog = std::thread([&, interval] {
+      std::unique_lock lock(watchdog_mu);
+      while (!watchdog_wake.wait_for(lock, interval / 2, [&] { return watchdog_stop; }))
+        engine.Post([] { NotifyServiceManager("WATCHDOG=1"); });
+    });
+  }
   server.Run();
+  {
+    std::lock_guard lock(watchdog_mu);
+    watchdog_stop = true;
+  }
+  watchdog_wake.notify_all();
+  if (watchdog.joinable()) watchdog.join();
   if (folder) folder->Stop();
   engine.Stop();
   delivery.Stop();
