@@ -108,7 +108,7 @@ json SeriesSummary(const SeriesView& v) {
            {"status", Status(v)},
            {"last_period", s.seen ? json(monitors::FormatPeriod(v.spec->period, s.last_period)) : json(nullptr)}};
   std::optional<double> f;
-  if (s.started) f = monitors::ForecastNext(spec.method, s.constants, s.model, s.next_index);
+  if (s.started) f = monitors::ForecastNext(spec.method, monitors::EffectiveConstants(spec, s), s.model, s.next_index);
   out["forecast"] = Number(f);
   out["trigg_signal"] = Number(Signal(v, true));
   out["cusum_signal"] = Number(Signal(v, false));
@@ -134,7 +134,7 @@ json SeriesDetail(const SeriesView& v) {
   out["upper"] = Number(upper);
   out["coverage"] = spec.coverage;
   out["method"] = monitors::MethodName(spec.method);
-  out["alpha"] = s.constants.alpha;
+  out["alpha"] = s.alpha;
   out["smoothed_error"] = s.stats.smoothed_error;
   out["mad"] = s.stats.mad;
   out["cusum"] = s.stats.cusum;

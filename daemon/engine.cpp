@@ -28,15 +28,14 @@ bool Compatible(const monitors::SeriesState& s, const config::Policy& p) {
   return s.model.season.empty();
 }
 
-// After a reload the policy's constants apply to its series, except where a series owns them:
-// fitted constants (start rule "fitted") and an adaptive alpha (it moves by itself).
+// The policy's constants apply to its series (after a reload and at start-up), except where a
+// series owns them: fitted constants (start rule "fitted") and an adaptive alpha (it moves by
+// itself).
 void FitConstants(monitors::SeriesState& s, const config::Policy& p) {
   const monitors::PolicySpec& spec = p.spec;
-  if (spec.start.kind == monitors::StartKind::kFitted && !monitors::IsIntermittent(spec.method)) return;
-  if (!spec.adaptive.enabled) s.constants.alpha = spec.constants.alpha;
-  s.constants.beta = spec.constants.beta;
-  s.constants.phi = spec.constants.phi;
-  s.constants.gamma = spec.constants.gamma;
+  const bool fitted = spec.start.kind == monitors::StartKind::kFitted && !monitors::IsIntermittent(spec.method);
+  if (!fitted) s.own.reset();
+  if (!fitted && !spec.adaptive.enabled) s.alpha = spec.constants.alpha;
 }
 
 // A re-level (README, reset): the level takes the new value; the smoothed and cumulative errors
@@ -113,6 +112,7 @@ bool Engine::Start(std::string& error) {
     s.policy = policy;
     s.state = std::move(row.state);
     FitRules(s.state, *policy);
+    FitConstants(s.state, *policy);
     s.retained = static_cast<std::int32_t>(row.retained);
     const bool behind = row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
     series_.push_back(std::move(s));

@@ -7,7 +7,8 @@ namespace forewarden {
 namespace {
 
 // 1: the first version (with the series' first period); 2: without it; 3: rule episodes
-// (quiet periods, open, escalated) and the bias/accuracy window.
+// (quiet periods, open, escalated), the bias/accuracy/cusum window, and only alpha unless the
+// series owns its constants (flag 8: fitted).
 constexpr std::uint8_t kVersion = 3;
 
 class Writer {
@@ -53,17 +54,20 @@ class Reader {
 std::string EncodeState(const monitors::SeriesState& s) {
   Writer w;
   w.Put(kVersion);
+  const monitors::Constants* own = s.own.get();
   const std::uint8_t flags = static_cast<std::uint8_t>((s.seen ? 1 : 0) | (s.started ? 2 : 0) |
-                                                       (s.model.has_demand ? 4 : 0));
+                                                       (s.model.has_demand ? 4 : 0) | (own ? 8 : 0));
   w.Put(flags);
   w.Put<std::int64_t>(s.last_period);
   w.Put<std::int64_t>(s.next_index);
   w.Doubles(s.window.values());
-  w.Put(s.constants.alpha);
-  w.Put(s.constants.beta);
-  w.Put(s.constants.phi);
-  w.Put(s.constants.gamma);
-  w.Put<std::int32_t>(s.constants.season_length);
+  w.Put(s.alpha);
+  if (own) {
+    w.Put(own->beta);
+    w.Put(own->phi);
+    w.Put(own->gamma);
+    w.Put<std::int32_t>(own->season_length);
+  }
   w.Put(s.model.level);
   w.Put(s.model.trend);
   w.Doubles(s.model.season);
@@ -98,11 +102,23 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   std::int32_t season_length = 0;
   std::uint32_t nrules = 0;
   std::vector<double> window;
+  monitors::Constants own;
+  bool has_own = false;
   if (!r.Get(version) || version < 1 || version > kVersion || !r.Get(flags) ||
       (version == 1 && !r.Get(first)) || !r.Get(last) || !r.Get(next) || !r.Doubles(window) ||
-      !r.Get(s.constants.alpha) ||
-      !r.Get(s.constants.beta) || !r.Get(s.constants.phi) || !r.Get(s.constants.gamma) ||
-      !r.Get(season_length) || !r.Get(s.model.level) || !r.Get(s.model.trend) ||
+      !r.Get(s.alpha))
+    return false;
+  // Before format 3 every state carried its constants: they become its own, and the engine
+  // drops them again for series whose policy does not fit constants (FitConstants).
+  has_own = version < 3 || (flags & 8);
+  if (has_own) {
+    own.alpha = s.alpha;
+    if (!r.Get(own.beta) || !r.Get(own.phi) || !r.Get(own.gamma) || !r.Get(season_length))
+      return false;
+    own.season_length = season_length;
+    s.own.set(own);
+  }
+  if (!r.Get(s.model.level) || !r.Get(s.model.trend) ||
       !r.Doubles(s.model.season) || !r.Get(s.model.size) || !r.Get(s.model.interval) ||
       !r.Get(since) || !r.Get(s.stats.smoothed_error) || !r.Get(s.stats.mad) ||
       !r.Get(s.stats.cusum) || !r.Get(forecasts) || !r.Get(missing) || !r.Get(nrules) ||
@@ -141,7 +157,6 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
   s.window.assign(std::move(window));
   s.last_period = last;
   s.next_index = static_cast<long>(next);
-  s.constants.season_length = season_length;
   s.model.since_demand = static_cast<std::int32_t>(since);
   s.forecasts = static_cast<std::int32_t>(forecasts);
   s.missing = static_cast<std::int32_t>(missing);

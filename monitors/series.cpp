@@ -55,7 +55,7 @@ void CheckStale(const PolicySpec& p, SeriesState& s, long overdue, StepResult& o
 
 SeriesState NewSeriesState(const PolicySpec& policy) {
   SeriesState s;
-  s.constants = policy.constants;
+  s.alpha = policy.constants.alpha;
   s.stats.mad = policy.initial_mad;
   s.rules.assign(policy.rules.size(), RuleState{});
   if (IsIntermittent(policy.method)) {
@@ -75,10 +75,11 @@ void StartSeries(const PolicySpec& p, SeriesState& s) {
   if (p.start.kind == StartKind::kFitted) {
     const std::vector<double>& window = s.window.values();
     FitResult fit = FitStart(p.method, p.constants, window);
-    s.constants = fit.constants;
+    s.own.set(fit.constants);
+    s.alpha = fit.constants.alpha;
     s.model = fit.start;
     for (std::size_t t = 0; t < window.size(); ++t)
-      UpdateModel(p.method, s.constants, s.model, static_cast<long>(t), window[t]);
+      UpdateModel(p.method, fit.constants, s.model, static_cast<long>(t), window[t]);
   } else {
     s.model = StartFromWindow(p.method, p.constants, p.start, s.window.values());
   }
@@ -114,7 +115,7 @@ void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
   out.at_cap = false;
   out.lower.reset();
   out.upper.reset();
-  out.alpha = s.constants.alpha;
+  out.alpha = s.alpha;
   if (!s.started) {
     s.window.push_back(y);
     if (static_cast<int>(s.window.size()) >= StartWindow(p.method, p.start)) StartSeries(p, s);
@@ -122,9 +123,10 @@ void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
     out.active = s.active;
     return;
   }
-  const std::optional<double> f = ForecastNext(p.method, s.constants, s.model, index);
+  Constants c = EffectiveConstants(p, s);
+  const std::optional<double> f = ForecastNext(p.method, c, s.model, index);
   if (!f) {
-    UpdateModel(p.method, s.constants, s.model, index, y);
+    UpdateModel(p.method, c, s.model, index, y);
     out.stats = s.stats;
     out.active = s.active;
     return;
@@ -140,16 +142,17 @@ void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
     out.upper = *f + hw;
   }
   if (p.adaptive.enabled && p.adaptive.lagged)
-    s.constants.alpha = AdaptiveAlpha(p.adaptive, s.stats, s.constants.alpha);
+    s.alpha = AdaptiveAlpha(p.adaptive, s.stats, s.alpha);
   UpdateErrorStats(s.stats, p.signal_beta, e);
   if (p.adaptive.enabled && !p.adaptive.lagged)
-    s.constants.alpha = AdaptiveAlpha(p.adaptive, s.stats, s.constants.alpha);
-  out.alpha = s.constants.alpha;
-  UpdateModel(p.method, s.constants, s.model, index, y);
+    s.alpha = AdaptiveAlpha(p.adaptive, s.stats, s.alpha);
+  out.alpha = s.alpha;
+  c.alpha = s.alpha;
+  UpdateModel(p.method, c, s.model, index, y);
   out.stats = s.stats;
   s.forecasts += 1;
   if (mad_before > 0.0) out.spike = e / (kSigmaPerMad * mad_before);
-  out.at_cap = p.adaptive.enabled && s.constants.alpha >= p.adaptive.cap;
+  out.at_cap = p.adaptive.enabled && s.alpha >= p.adaptive.cap;
   if (const std::uint16_t cap = RecentCapacity(p)) s.recent.Push(cap, e, y, mad_before);
   if (s.forecasts > p.warmup) {
     out.trigg = TriggSignal(s.stats);
@@ -225,7 +228,7 @@ StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, doubl
       Observe(p, s, 0.0, out);
       collect();
     } else {
-      if (s.started) CoastModel(p.method, s.constants, s.model);
+      if (s.started) CoastModel(p.method, EffectiveConstants(p, s), s.model);
       s.next_index += 1;
       s.missing += 1;
     }

@@ -173,6 +173,25 @@ class RecentWindow {
   std::unique_ptr<float[]> buf_;
 };
 
+// Smoothing constants a series owns (fitted start rule only); 8 bytes when it has none.
+class OwnConstants {
+ public:
+  OwnConstants() = default;
+  OwnConstants(const OwnConstants& o) { *this = o; }
+  OwnConstants& operator=(const OwnConstants& o) {
+    if (this != &o) c_ = o.c_ ? std::make_unique<Constants>(*o.c_) : nullptr;
+    return *this;
+  }
+  OwnConstants(OwnConstants&&) noexcept = default;
+  OwnConstants& operator=(OwnConstants&&) noexcept = default;
+  const Constants* get() const { return c_.get(); }
+  void set(const Constants& c) { c_ = std::make_unique<Constants>(c); }
+  void reset() { c_.reset(); }
+
+ private:
+  std::unique_ptr<Constants> c_;
+};
+
 // The window a policy's bias, accuracy and windowed cusum rules need (0: none).
 std::uint16_t RecentCapacity(const PolicySpec& policy);
 
@@ -183,7 +202,8 @@ struct SeriesState {
   PeriodOrdinal last_period = 0;
   long next_index = 0;          // index of the next period (0 = the first period)
   WindowValues window;          // start-window actuals (empty once started)
-  Constants constants;          // in force; alpha changes under adaptive policies
+  double alpha = 0.0;           // in force; changes under adaptive policies
+  OwnConstants own;             // fitted constants; else the policy's apply (with `alpha`)
   ModelState model;
   ErrorStats stats;
   std::int32_t missing = 0;     // periods skipped under gap rule "skip"
@@ -191,6 +211,13 @@ struct SeriesState {
   std::uint64_t active = 0;     // bit i: rule i holds
   RecentWindow recent;          // bias/accuracy rules only
 };
+
+// The constants in force for a series: its own (fitted) or the policy's, with its alpha.
+inline Constants EffectiveConstants(const PolicySpec& policy, const SeriesState& s) {
+  Constants c = s.own.get() ? *s.own.get() : policy.constants;
+  c.alpha = s.alpha;
+  return c;
+}
 
 // A fresh state for a series of this policy.
 SeriesState NewSeriesState(const PolicySpec& policy);

@@ -74,6 +74,11 @@ TEST_CASE("states written in formats 1 and 2 still decode", "[unit]") {
   s.rules.resize(1);
   s.rules[0].active = true;
   s.rules[0].open = true;  // formats 1 and 2: a holding rule is an open episode
+  // Formats 1 and 2 always carried the constants: decoded, they are the series' own.
+  monitors::Constants own;
+  own.alpha = s.alpha;
+  own.beta = 0.05;
+  s.own.set(own);
   const std::string v3 = forewarden::EncodeState(s);
   // Format 2: no quiet count after the rule's run and flags, no window at the end.
   std::string v2 = v3.substr(0, v3.size() - 6);  // window capacity (2) and length (4)
@@ -87,4 +92,33 @@ TEST_CASE("states written in formats 1 and 2 still decode", "[unit]") {
     REQUIRE(forewarden::DecodeState(old, out));
     CHECK(forewarden::EncodeState(out) == v3);
   }
+}
+
+TEST_CASE("a series with fitted constants keeps them through encoding", "[unit]") {
+  PolicySpec p;
+  p.method = monitors::Method::kHolt;
+  p.start.kind = monitors::StartKind::kFitted;
+  p.start.count = 8;
+  monitors::SeriesState a = monitors::NewSeriesState(p);
+  monitors::StepResult r;
+  const double y[] = {10, 12, 13, 15, 16, 18, 21, 22, 24, 25};
+  for (int t = 0; t < 10; ++t) REQUIRE(monitors::Step(p, a, 50 + t, y[t], r) == monitors::StepStatus::kOk);
+  REQUIRE(a.own.get() != nullptr);  // the fit chose them
+  monitors::SeriesState b;
+  REQUIRE(forewarden::DecodeState(forewarden::EncodeState(a), b));
+  REQUIRE(b.own.get() != nullptr);
+  CHECK(b.own.get()->beta == a.own.get()->beta);
+  CHECK(b.alpha == a.alpha);
+  monitors::StepResult ra, rb;
+  REQUIRE(monitors::Step(p, a, 60, 27, ra) == monitors::StepStatus::kOk);
+  REQUIRE(monitors::Step(p, b, 60, 27, rb) == monitors::StepStatus::kOk);
+  CHECK(ra.forecast == rb.forecast);
+  // a series of a policy without a fitted start stores no constants of its own
+  PolicySpec plain;
+  monitors::SeriesState c = monitors::NewSeriesState(plain);
+  REQUIRE(monitors::Step(plain, c, 1, 5, r) == monitors::StepStatus::kOk);
+  monitors::SeriesState d;
+  REQUIRE(forewarden::DecodeState(forewarden::EncodeState(c), d));
+  CHECK(d.own.get() == nullptr);
+  CHECK(forewarden::EncodeState(c).size() < forewarden::EncodeState(a).size());
 }

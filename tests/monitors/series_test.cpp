@@ -50,7 +50,7 @@ TEST_CASE("Trigg-Leach immediate adaptive alpha on a step", "[reference]") {
   const double next[] = {10, 19.5882, 19.9838, 19.9994, 20.0000, 20.0000, 20.0000};
   for (int k = 0; k < 7; ++k) {
     CHECK(r[9 + k].alpha == Approx(alpha[k]).margin(1e-4));
-    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, s.constants, s.model, 16);
+    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16);
     CHECK(f_next == Approx(next[k]).margin(1e-4));
   }
   CHECK(r[10].alpha == Approx(0.958819).margin(1e-6));
@@ -65,7 +65,7 @@ TEST_CASE("Trigg-Leach lagged adaptive alpha on a step", "[reference]") {
   const double next[] = {10, 10, 19.5882, 19.9923, 19.9999, 20.0000, 20.0000};
   for (int k = 0; k < 7; ++k) {
     CHECK(r[9 + k].alpha == Approx(alpha[k]).margin(1e-4));
-    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, s.constants, s.model, 16);
+    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16);
     CHECK(f_next == Approx(next[k]).margin(1e-4));
   }
 }
@@ -79,7 +79,7 @@ TEST_CASE("Trigg-Leach alpha clamped to a floor and a cap", "[reference]") {
   for (int k = 10; k < 16; ++k) CHECK(r[k].alpha == 0.5);
   const double next[] = {15, 17.5, 18.75, 19.375, 19.6875};
   for (int k = 0; k < 5; ++k) CHECK(r[11 + k].forecast == Approx(next[k]).margin(1e-9));
-  CHECK(*monitors::ForecastNext(p.method, s.constants, s.model, 16) == Approx(19.84375).margin(1e-9));
+  CHECK(*monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16) == Approx(19.84375).margin(1e-9));
 }
 
 TEST_CASE("first-actual: period 1 has no forecast and period 2's forecast is actual 1", "[unit]") {
@@ -225,7 +225,7 @@ TEST_CASE("through Step, the cumulative error of fixed-alpha ses is (F(n+1) - F(
     std::vector<double> y(300);
     for (double& v : y) v = u(gen);
     auto r = Feed(p, s, y);
-    const double f_next = *monitors::ForecastNext(p.method, s.constants, s.model, 300);
+    const double f_next = *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 300);
     CHECK(r.back().stats.cusum == Approx((f_next - r[1].forecast) / alpha).epsilon(1e-9));
   }
 }
