@@ -109,6 +109,23 @@ def test_exposition_is_clean_and_matches_the_readme():
     assert 'forewarden_alerts{policy="lines",rule="shift"' in text
 
 
+def test_exposition_size_does_not_follow_the_series_count():
+    # Loose by design (figures live in tests/bench/metrics_bench.sh): ten times the series,
+    # the same families and label sets, so nearly the same size, and far under 100 KB.
+    sizes = []
+    for n in (8, 80):
+        srv = Server(SETTINGS)
+        try:
+            rows = "".join(csv_rows("north/s%03d" % i, BASE) + csv_rows("south/s%03d" % i, BASE) for i in range(n))
+            status, body, _ = srv.post_csv("series,period,value\n" + rows)
+            assert status == 200, body
+            sizes.append(len(scrape(srv)))
+        finally:
+            srv.stop()
+    assert sizes[1] < 100 * 1024, sizes
+    assert abs(sizes[1] - sizes[0]) < 0.1 * sizes[0], sizes
+
+
 def test_dashboard_queries_name_exported_metrics():
     srv = ingested_server()
     try:
@@ -192,5 +209,6 @@ scrape_configs:
 
 
 if __name__ == "__main__":
-    sys.exit(run([test_exposition_is_clean_and_matches_the_readme, test_dashboard_queries_name_exported_metrics,
+    sys.exit(run([test_exposition_is_clean_and_matches_the_readme, test_exposition_size_does_not_follow_the_series_count,
+                  test_dashboard_queries_name_exported_metrics,
                   test_deploy_prometheus_files_pass_promtool, test_prometheus_scrapes_the_service]))
