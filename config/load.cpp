@@ -25,6 +25,31 @@ namespace {
 
 using monitors::Method;
 
+// The keys each map of the settings file takes (also the README's settings reference, which a
+// test compares with these).
+const std::set<std::string> kTopKeys = {"policies", "server", "fallback_policy", "alerts"};
+const std::set<std::string> kServerKeys = {
+    "listen", "data", "token_file", "token_env", "synchronous", "max_body_bytes",
+    "max_rows_per_batch", "max_connections", "header_timeout_seconds", "idle_timeout_seconds",
+    "queue_depth", "shutdown_grace_seconds", "folder", "folder_poll_ms", "max_database_bytes",
+    "cache_bytes", "state_flush_seconds", "state_flush_series"};
+const std::set<std::string> kPolicyKeys = {
+    "name", "match", "period", "method", "alpha", "adaptive", "trend_beta", "damping",
+    "season_gamma", "season_length", "start", "signal_beta", "warmup", "gaps", "coverage",
+    "initial_mad", "max_gap", "rules", "history", "stale_after", "export_top_series"};
+const std::set<std::string> kMatchKeys = {"key", "labels"};
+const std::set<std::string> kAdaptiveKeys = {"floor", "cap", "lag"};
+const std::set<std::string> kStartKeys = {"mean_of_first", "fitted", "level", "trend", "season"};
+const std::set<std::string> kExplicitStartKeys = {"level", "trend", "season"};
+const std::set<std::string> kRuleKeys = {
+    "name", "signal", "limit", "false_alert_every", "clear", "clear_fraction", "persistence",
+    "direction", "severity", "periods", "escalate_limit", "escalate_severity", "resolve_after"};
+const std::set<std::string> kAlertsKeys = {
+    "storm_threshold", "sinks", "max_attempts", "initial_backoff_seconds", "max_backoff_seconds",
+    "batch", "resend_seconds", "public_url", "check_seconds"};
+const std::set<std::string> kSinkKeys = {"name", "type", "url", "secret_file", "secret_env",
+                                         "timeout_seconds"};
+
 class Reader {
  public:
   explicit Reader(std::string file) : file_(std::move(file)) {}
@@ -137,7 +162,7 @@ void ReadMatch(Reader& r, const YAML::Node& n, const std::string& path, Match& m
   if (n.IsScalar()) {
     m.key = n.Scalar();
   } else if (n.IsMap()) {
-    r.CheckKeys(n, path, {"key", "labels"});
+    r.CheckKeys(n, path, kMatchKeys);
     if (n["key"].IsDefined()) r.String(n["key"], path + ".key", m.key);
     const YAML::Node labels = n["labels"];
     if (labels.IsDefined()) {
@@ -186,7 +211,7 @@ void ReadStart(Reader& r, const YAML::Node& n, const std::string& path,
     if (k > 0) start.count = static_cast<int>(k);
     return;
   }
-  r.CheckKeys(n, path, {"level", "trend", "season"});
+  r.CheckKeys(n, path, kExplicitStartKeys);
   start.kind = StartKind::kExplicit;
   if (!n["level"].IsDefined()) {
     r.Add(n, path, "an explicit start needs 'level'");
@@ -221,10 +246,7 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
     return;
   }
   const std::size_t before = r.problems().size();
-  r.CheckKeys(n, path,
-              {"name", "signal", "limit", "false_alert_every", "clear", "clear_fraction",
-               "persistence", "direction", "severity", "periods", "escalate_limit",
-               "escalate_severity", "resolve_after"});
+  r.CheckKeys(n, path, kRuleKeys);
   if (!n["name"].IsDefined())
     r.Add(n, path, "a rule needs a 'name'");
   else
@@ -342,16 +364,12 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
 
 void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy& p) {
   using monitors::StartKind;
-  static const std::set<std::string> kKeys = {
-      "name",   "match",      "period",       "method",        "alpha",       "adaptive",
-      "trend_beta", "damping", "season_gamma", "season_length", "start",       "signal_beta",
-      "warmup", "gaps",       "coverage",     "initial_mad",   "max_gap",     "rules",
-      "history", "stale_after", "export_top_series"};
+
   if (!n.IsMap()) {
     r.Add(n, path, "a policy must be a map");
     return;
   }
-  r.CheckKeys(n, path, kKeys);
+  r.CheckKeys(n, path, kPolicyKeys);
   monitors::PolicySpec& s = p.spec;
   std::string text;
 
@@ -421,7 +439,7 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
     if (!adaptive.IsMap()) {
       r.Add(adaptive, path + ".adaptive", "must be a map {floor, cap, lag}");
     } else {
-      r.CheckKeys(adaptive, path + ".adaptive", {"floor", "cap", "lag"});
+      r.CheckKeys(adaptive, path + ".adaptive", kAdaptiveKeys);
       s.adaptive.enabled = true;
       s.adaptive.floor = 0.05;
       s.adaptive.cap = 0.8;
@@ -567,9 +585,7 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
     r.Add(n, path, "must be a map");
     return;
   }
-  r.CheckKeys(n, path,
-              {"storm_threshold", "sinks", "max_attempts", "initial_backoff_seconds",
-               "max_backoff_seconds", "batch", "resend_seconds", "public_url", "check_seconds"});
+  r.CheckKeys(n, path, kAlertsKeys);
   r.Int(n, "check_seconds", path, a.check_seconds, 1, 86400);
   r.Int(n, "storm_threshold", path, a.storm_threshold, 0, 10000000);
   r.Int(n, "max_attempts", path, a.max_attempts, 1, 1000000);
@@ -596,7 +612,7 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
       r.Add(k, sp, "a sink must be a map with name and type");
       continue;
     }
-    r.CheckKeys(k, sp, {"name", "type", "url", "secret_file", "secret_env", "timeout_seconds"});
+    r.CheckKeys(k, sp, kSinkKeys);
     Sink sink;
     std::string type;
     if (!k["name"].IsDefined()) r.Add(k, sp, "a sink needs a 'name'");
@@ -636,12 +652,7 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
     r.Add(n, path, "must be a map");
     return;
   }
-  r.CheckKeys(n, path,
-              {"listen", "data", "token_file", "token_env", "synchronous", "max_body_bytes",
-               "max_rows_per_batch", "max_connections", "header_timeout_seconds",
-               "idle_timeout_seconds", "queue_depth", "shutdown_grace_seconds", "folder",
-               "folder_poll_ms", "max_database_bytes", "cache_bytes", "state_flush_seconds",
-               "state_flush_series"});
+  r.CheckKeys(n, path, kServerKeys);
   for (auto [key, out] : {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
                           std::pair{"token_file", &s.token_file}, std::pair{"token_env", &s.token_env},
                           std::pair{"folder", &s.folder}})
@@ -701,7 +712,7 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
     result.problems = std::move(r.problems());
     return result;
   }
-  r.CheckKeys(root, "", {"policies", "server", "fallback_policy", "alerts"});
+  r.CheckKeys(root, "", kTopKeys);
   if (root["server"].IsDefined()) ReadServer(r, root["server"], result.settings.server);
   result.settings.alerts.sinks = {Sink{"log", Sink::Kind::kLog, "", "", "", 10}};
   if (root["alerts"].IsDefined()) ReadAlerts(r, root["alerts"], result.settings.alerts);
@@ -731,6 +742,23 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
   }
   result.problems = std::move(r.problems());
   return result;
+}
+
+std::vector<std::string> SettingsKeys() {
+  std::vector<std::string> out;
+  const std::pair<const char*, const std::set<std::string>*> sections[] = {
+      {"", &kTopKeys},
+      {"server.", &kServerKeys},
+      {"policies[].", &kPolicyKeys},
+      {"policies[].match.", &kMatchKeys},
+      {"policies[].adaptive.", &kAdaptiveKeys},
+      {"policies[].start.", &kStartKeys},
+      {"policies[].rules[].", &kRuleKeys},
+      {"alerts.", &kAlertsKeys},
+      {"alerts.sinks[].", &kSinkKeys}};
+  for (const auto& [prefix, keys] : sections)
+    for (const std::string& k : *keys) out.push_back(prefix + k);
+  return out;
 }
 
 LoadResult LoadSettingsFile(const std::string& path) {

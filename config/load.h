@@ -26,6 +26,9 @@ struct LoadResult {
 };
 
 LoadResult LoadSettingsFile(const std::string& path);
+
+// Every key the loader takes, as paths: "server.listen", "policies[].rules[].limit", ...
+std::vector<std::string> SettingsKeys();
 // `name` stands for the file in messages.
 LoadResult LoadSettingsText(const std::string& text, const std::string& name);
 

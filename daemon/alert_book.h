@@ -175,6 +175,7 @@ std::string SeriesUrl(const std::string& base, const std::string& key);
 class Notifications {
  public:
   bool Open(Db& db, std::string install_id, std::string public_url, std::string& error);
+  void SetPublicUrl(std::string url) { public_url_ = std::move(url); }
   // {"event_id", "idempotency_key", "kind", "at", "summary", "alert": {...} | "group": {...},
   //  "by"?, "note"?, "previous_severity"?}; the alert as it was at the event (state, severity,
   //  value), with "url".

@@ -133,6 +133,7 @@ struct Delivery::Impl {
   std::map<std::string, SinkCounters> counters;
   Backlog backlog;
   std::int64_t last_resend_ms = 0;
+  std::string public_url;  // from the settings (guarded by mu), handed to `notifications` per round
 
   void Run();
   void Round(std::int64_t now);
@@ -161,6 +162,7 @@ bool Delivery::Update(std::shared_ptr<const config::Settings> settings, std::str
   std::lock_guard lock(impl_->mu);
   impl_->settings = std::move(settings);
   impl_->sinks = std::move(sinks);
+  impl_->public_url = PublicUrl(*impl_->settings);
   impl_->notified = true;
   impl_->wake.notify_all();
   return true;
@@ -183,7 +185,7 @@ bool Delivery::Start(std::string& error) {
   }
   m.install_id = std::string(id.Text(0));
   m.db.WaitForLocks(5000);
-  if (!m.notifications.Open(m.db, m.install_id, PublicUrl(*m.settings), error)) {
+  if (!m.notifications.Open(m.db, m.install_id, m.public_url, error)) {
     error = "delivery: " + error;
     return false;
   }
@@ -358,6 +360,7 @@ void Delivery::Impl::Round(std::int64_t now) {
   {
     std::lock_guard lock(mu);
     current = sinks;
+    notifications.SetPublicUrl(public_url);
   }
   const long batch = settings->alerts.batch;
   for (const SinkConfig& s : current) {

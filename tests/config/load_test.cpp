@@ -1,6 +1,8 @@
 #include "config/load.h"
 
 #include <catch2/catch.hpp>
+#include <fstream>
+#include <set>
 
 using config::LoadSettingsFile;
 using config::LoadSettingsText;
@@ -202,4 +204,29 @@ TEST_CASE("a false-alarm budget becomes a derived limit, shown with its expected
   // no alerts section: one log sink
   REQUIRE(r.settings.alerts.sinks.size() == 1);
   CHECK(r.settings.alerts.sinks[0].kind == config::Sink::Kind::kLog);
+}
+
+TEST_CASE("the README's settings reference lists exactly the keys the loader takes", "[unit]") {
+  std::ifstream in(std::string(FOREWARDEN_SOURCE_DIR) + "/README.md");
+  REQUIRE(in);
+  std::string line;
+  bool inside = false;
+  std::set<std::string> documented;
+  while (std::getline(in, line)) {
+    if (line.rfind("#### ", 0) == 0) inside = line == "#### Settings reference";
+    if (!inside || line.rfind("| `", 0) != 0) continue;
+    const std::size_t end = line.find('`', 3);
+    REQUIRE(end != std::string::npos);
+    documented.insert(line.substr(3, end - 3));
+  }
+  const std::vector<std::string> keys = config::SettingsKeys();
+  const std::set<std::string> loaded(keys.begin(), keys.end());
+  for (const std::string& k : loaded) {
+    INFO("missing from the README: " << k);
+    CHECK(documented.count(k) == 1);
+  }
+  for (const std::string& k : documented) {
+    INFO("in the README, unknown to the loader: " << k);
+    CHECK(loaded.count(k) == 1);
+  }
 }
