@@ -348,7 +348,8 @@ bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<jso
   if (list.empty()) return true;  // acknowledgements and snoozes only
   std::string url = s.sink.url;
   while (!url.empty() && url.back() == '/') url.pop_back();
-  const HttpResult r = HttpPost(url + "/api/v2/alerts", "application/json", list.dump(), "",
+  const HttpResult r = HttpPost(url + "/api/v2/alerts", "application/json",
+                                list.dump(-1, ' ', false, json::error_handler_t::replace), "",
                                 std::chrono::seconds(s.sink.timeout_seconds));
   if (r.status >= 200 && r.status < 300) return true;
   error = r.status ? "HTTP " + std::to_string(r.status) + ": " + r.body.substr(0, 200) : r.error;

@@ -422,18 +422,49 @@ def test_full_store_is_sticky_and_loses_nothing_acknowledged():
         status, body, _ = s.post_csv(feed(["w/other"], 1))
         assert status == 503 and "full" in body["error"], body
         assert s.request("GET", "/v1/series/w/b0-0")[0] == 200  # reads still work
+        status, metrics, _ = s.request("GET", "/metrics")  # visible to monitoring
+        assert status == 200 and "forewarden_store_failed 1" in metrics, metrics
+        assert 'forewarden_http_rejections_total{reason="unavailable"} 2' in metrics, metrics
     finally:
         s.stop()
+    # nothing is corrupted: SQLite's own check of the file the failure left behind
+    import sqlite3
+    con = sqlite3.connect(os.path.join(s.data, "forewarden.db"))
+    assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    con.close()
     with open(s.config, "w") as f:
         f.write(SETTINGS)
     s.start()
     try:
         assert s.request("GET", "/readyz")[0] == 200
+        assert "forewarden_store_failed 0" in s.request("GET", "/metrics")[1]
         assert s.request("GET", "/v1/series?limit=1")[1]["total"] == 200 * len(acked)
         ack_text = "series,period,value\n" + "".join(a.split("\n", 1)[1] for a in acked)
         for key in ("w/b0-0", "w/b0-199", "w/b%d-7" % (len(acked) - 1)):
             assert_matches_replay(s, key, ack_text)
         assert history(s, "w/b0-0")[-1]["period"] == week(len(acked) - 1)
+    finally:
+        s.stop()
+
+
+def test_invalid_utf8_in_the_path_is_answered():
+    """Regression (HTTP fuzz target, tests/fuzz/regressions/http-invalid-utf8-path): a path that
+    is not UTF-8 was echoed into a JSON error whose serialisation threw and ended the process."""
+    s = Server(SETTINGS)
+    try:
+        sock = socket.create_connection(("127.0.0.1", s.port), timeout=harness.DEADLINE)
+        sock.sendall(b"DELETE /\xff\xfe HTTP/1.1\r\nHost: t\r\nConnection: close\r\n\r\n")
+        reply = b""
+        while True:
+            chunk = sock.recv(65536)
+            if not chunk:
+                break
+            reply += chunk
+        sock.close()
+        head, _, body = reply.partition(b"\r\n\r\n")
+        assert head.startswith(b"HTTP/1.1 404"), head
+        assert b"no such endpoint" in body, body
+        assert s.request("GET", "/healthz")[0] == 200  # still up
     finally:
         s.stop()
 
@@ -473,4 +504,5 @@ if __name__ == "__main__":
         test_bad_requests_are_refused_with_line_and_field_and_change_nothing,
         test_push_sends_batches_and_names_file_lines,
         test_full_store_is_sticky_and_loses_nothing_acknowledged,
+        test_invalid_utf8_in_the_path_is_answered,
     ]))
