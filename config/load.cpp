@@ -32,7 +32,8 @@ const std::set<std::string> kServerKeys = {
     "listen", "data", "token_file", "token_env", "synchronous", "max_body_bytes",
     "max_rows_per_batch", "max_connections", "header_timeout_seconds", "idle_timeout_seconds",
     "queue_depth", "shutdown_grace_seconds", "folder", "folder_poll_ms", "max_database_bytes",
-    "cache_bytes", "state_flush_seconds", "state_flush_series"};
+    "cache_bytes", "state_flush_seconds", "state_flush_series", "max_key_bytes", "max_labels",
+    "max_label_bytes"};
 const std::set<std::string> kPolicyKeys = {
     "name", "match", "period", "method", "alpha", "adaptive", "trend_beta", "damping",
     "season_gamma", "season_length", "start", "signal_beta", "warmup", "gaps", "coverage",
@@ -672,6 +673,9 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   }
   r.Int(n, "max_body_bytes", path, s.max_body_bytes, 1024, 1L << 31);
   r.Int(n, "max_rows_per_batch", path, s.max_rows_per_batch, 1, 10000000);
+  r.Int(n, "max_key_bytes", path, s.max_key_bytes, 1, 65536);
+  r.Int(n, "max_labels", path, s.max_labels, 0, 1000);
+  r.Int(n, "max_label_bytes", path, s.max_label_bytes, 1, 65536);
   r.Int(n, "max_connections", path, s.max_connections, 1, 100000);
   r.Int(n, "header_timeout_seconds", path, s.header_timeout_seconds, 1, 3600);
   r.Int(n, "idle_timeout_seconds", path, s.idle_timeout_seconds, 1, 86400);

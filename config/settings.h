@@ -78,6 +78,9 @@ struct Server {
   Synchronous synchronous = Synchronous::kFull;
   long max_body_bytes = 16 << 20;
   long max_rows_per_batch = 200000;
+  long max_key_bytes = 256;     // a series key
+  long max_labels = 16;         // labels on one row
+  long max_label_bytes = 256;   // a label's name and its value, each
   long max_connections = 256;
   long header_timeout_seconds = 10;
   long idle_timeout_seconds = 60;

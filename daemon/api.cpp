@@ -468,10 +468,14 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
   const auto s = settings();
   const std::string type = request.content_type.substr(0, request.content_type.find(';'));
   ParsedBatch batch;
+  const IngestLimits limits{s->server.max_rows_per_batch,
+                            static_cast<std::size_t>(s->server.max_key_bytes),
+                            static_cast<std::size_t>(s->server.max_labels),
+                            static_cast<std::size_t>(s->server.max_label_bytes)};
   if (type == "text/csv") {
-    batch = ParseCsvBatch(request.body, s->server.max_rows_per_batch);
+    batch = ParseCsvBatch(request.body, limits);
   } else if (type == "application/x-ndjson") {
-    batch = ParseNdjsonBatch(request.body, s->server.max_rows_per_batch);
+    batch = ParseNdjsonBatch(request.body, limits);
   } else {
     counters_.rejected_media_type.fetch_add(1);
     return respond(Error(415, "send text/csv (series,period,value) or application/x-ndjson"));

@@ -12,13 +12,13 @@ namespace forewarden {
 
 namespace fs = std::filesystem;
 
-DropFolder::DropFolder(Engine& engine, std::string incoming, long max_rows,
+DropFolder::DropFolder(Engine& engine, std::string incoming, IngestLimits limits,
                        std::chrono::milliseconds poll, Log log)
     : engine_(engine),
       incoming_(std::move(incoming)),
       done_((fs::path(incoming_) / "done").string()),
       rejected_((fs::path(incoming_) / "rejected").string()),
-      max_rows_(max_rows),
+      limits_(limits),
       poll_(poll),
       log_(std::move(log)) {}
 
@@ -80,7 +80,7 @@ void DropFolder::ProcessFile(const std::string& name) {
   if (!in) return;  // vanished or unreadable: try again on the next scan
   std::ostringstream text;
   text << in.rdbuf();
-  ParsedBatch batch = ParseCsvBatch(text.str(), max_rows_);
+  ParsedBatch batch = ParseCsvBatch(text.str(), limits_);
   auto reject = [&](const std::vector<RowProblem>& problems, long count, const std::string& headline) {
     std::ofstream report(fs::path(rejected_) / (name + ".problems"), std::ios::trunc);
     report << name << ": " << headline << "; nothing was applied\n";
@@ -95,7 +95,7 @@ void DropFolder::ProcessFile(const std::string& name) {
     log_("drop folder: rejected " + name + ": " + headline);
   };
   if (batch.too_many_rows) {
-    reject({}, 0, "more than max_rows_per_batch (" + std::to_string(max_rows_) + ") rows");
+    reject({}, 0, "more than max_rows_per_batch (" + std::to_string(limits_.max_rows) + ") rows");
     return;
   }
   if (batch.problem_count) {

@@ -16,6 +16,7 @@
 #include <thread>
 
 #include "daemon/engine.h"
+#include "daemon/ingest.h"
 
 namespace forewarden {
 
@@ -28,7 +29,7 @@ struct DropFolderCounters {
 class DropFolder {
  public:
   using Log = std::function<void(const std::string&)>;
-  DropFolder(Engine& engine, std::string incoming, long max_rows, std::chrono::milliseconds poll,
+  DropFolder(Engine& engine, std::string incoming, IngestLimits limits, std::chrono::milliseconds poll,
              Log log);
   ~DropFolder();
   // Creates incoming/, done/ and rejected/ and starts polling; false with a reason.
@@ -42,7 +43,7 @@ class DropFolder {
   void ProcessFile(const std::string& name);
   Engine& engine_;
   std::string incoming_, done_, rejected_;
-  long max_rows_;
+  IngestLimits limits_;
   std::chrono::milliseconds poll_;
   Log log_;
   DropFolderCounters counters_;

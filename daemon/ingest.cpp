@@ -40,7 +40,31 @@ bool ParseNumber(std::string_view text, double& out) {
   return r.ec == std::errc() && r.ptr == text.data() + text.size() && std::isfinite(out);
 }
 
-ParsedBatch ParseCsvBatch(std::string_view body, long max_rows) {
+// The per-row bounds; false (with a problem) when the row breaks one.
+bool WithinLimits(ParsedBatch& b, long line, const IngestRow& row, const IngestLimits& limits) {
+  bool ok = true;
+  if (row.series.size() > limits.max_key_bytes) {
+    Add(b, line, "series", "the series key is " + std::to_string(row.series.size()) +
+                               " bytes; server.max_key_bytes is " + std::to_string(limits.max_key_bytes));
+    ok = false;
+  }
+  if (row.labels.size() > limits.max_labels) {
+    Add(b, line, "labels", std::to_string(row.labels.size()) + " labels; server.max_labels is " +
+                               std::to_string(limits.max_labels));
+    ok = false;
+  }
+  for (const auto& [name, value] : row.labels)
+    if (name.size() > limits.max_label_bytes || value.size() > limits.max_label_bytes) {
+      Add(b, line, "labels", "label '" + name.substr(0, 40) + "' is longer than server.max_label_bytes (" +
+                                 std::to_string(limits.max_label_bytes) + ")");
+      ok = false;
+      break;
+    }
+  return ok;
+}
+
+ParsedBatch ParseCsvBatch(std::string_view body, const IngestLimits& limits) {
+  const long max_rows = limits.max_rows;
   ParsedBatch b;
   CsvReader in(CsvReader::FromText{}, body);
   std::vector<std::string_view> fields;
@@ -103,13 +127,15 @@ ParsedBatch ParseCsvBatch(std::string_view body, long max_rows) {
           static_cast<int>(i) != c_value && !fields[i].empty())
         row.labels.emplace_back(names[i], std::string(fields[i]));
     ++b.data_rows;
+    if (ok) ok = WithinLimits(b, line, row, limits);
     if (ok) b.rows.push_back(std::move(row));
   }
   if (!in.ok()) Add(b, in.line(), "row", in.error());
   return b;
 }
 
-ParsedBatch ParseNdjsonBatch(std::string_view body, long max_rows) {
+ParsedBatch ParseNdjsonBatch(std::string_view body, const IngestLimits& limits) {
+  const long max_rows = limits.max_rows;
   ParsedBatch b;
   long line = 0;
   std::size_t pos = 0;
@@ -188,6 +214,7 @@ ParsedBatch ParseNdjsonBatch(std::string_view body, long max_rows) {
       }
     }
     ++b.data_rows;
+    if (ok) ok = WithinLimits(b, line, row, limits);
     if (ok) b.rows.push_back(std::move(row));
   }
   return b;

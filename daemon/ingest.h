@@ -22,8 +22,17 @@ struct ParsedBatch {
   bool too_many_rows = false;        // more than max_rows: parsing stopped
 };
 
-ParsedBatch ParseCsvBatch(std::string_view body, long max_rows);
-ParsedBatch ParseNdjsonBatch(std::string_view body, long max_rows);
+// Bounds on what one row may bring (server settings); a row beyond them is a problem naming
+// its line and field, like any bad row.
+struct IngestLimits {
+  long max_rows = 200000;
+  std::size_t max_key_bytes = 256;
+  std::size_t max_labels = 16;
+  std::size_t max_label_bytes = 256;  // a label's name and its value, each
+};
+
+ParsedBatch ParseCsvBatch(std::string_view body, const IngestLimits& limits);
+ParsedBatch ParseNdjsonBatch(std::string_view body, const IngestLimits& limits);
 
 // Shared value check: a finite number in plain decimal or exponent notation.
 bool ParseNumber(std::string_view text, double& out);

@@ -155,7 +155,10 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   }
   std::unique_ptr<DropFolder> folder;
   if (!srv.folder.empty()) {
-    folder = std::make_unique<DropFolder>(engine, srv.folder, srv.max_rows_per_batch,
+    folder = std::make_unique<DropFolder>(engine, srv.folder,
+                                          IngestLimits{srv.max_rows_per_batch, static_cast<std::size_t>(srv.max_key_bytes),
+                                                       static_cast<std::size_t>(srv.max_labels),
+                                                       static_cast<std::size_t>(srv.max_label_bytes)},
                                           std::chrono::milliseconds(srv.folder_poll_ms),
                                           [&err](const std::string& line) { Log(err, line); });
     if (!folder->Start(error)) {

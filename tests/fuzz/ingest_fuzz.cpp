@@ -13,7 +13,8 @@
 extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {
   const std::string_view text(reinterpret_cast<const char*>(data), size);
   for (const forewarden::ParsedBatch& b :
-       {forewarden::ParseCsvBatch(text, 1000), forewarden::ParseNdjsonBatch(text, 1000)}) {
+       {forewarden::ParseCsvBatch(text, forewarden::IngestLimits{1000, 64, 4, 64}),
+        forewarden::ParseNdjsonBatch(text, forewarden::IngestLimits{1000, 64, 4, 64})}) {
     for (const auto& row : b.rows)
       if (row.series.empty() || !std::isfinite(row.value) || row.line < 1) std::abort();
     for (const auto& p : b.problems)
