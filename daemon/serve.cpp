@@ -2,6 +2,8 @@
 
 #include <atomic>
 #include <chrono>
+#include <sys/stat.h>
+
 #include <condition_variable>
 #include <csignal>
 #include <thread>
@@ -246,6 +248,14 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
                  " series by replaying actuals committed after their last saved state");
   Log(err, "serving " + std::to_string(settings->policies.size()) + " policies from " + o.config +
                ", data in " + srv.data);
+  if (!srv.token_file.empty()) {
+    struct stat st {};
+    if (stat(srv.token_file.c_str(), &st) == 0 && (st.st_mode & (S_IROTH | S_IWOTH)))
+      Log(err,
+          "the token file " + srv.token_file +
+              " is readable or writable by other users; chmod o-rw it (the token itself is never logged)",
+          "warn");
+  }
   NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(settings->policies.size()) +
                        " policies");
   // Watchdog: the ping goes through the engine's queue, so a stuck engine stops the pings and
