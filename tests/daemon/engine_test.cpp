@@ -1,5 +1,6 @@
 #include "daemon/engine.h"
 
+#include <atomic>
 #include <catch2/catch.hpp>
 #include <future>
 
@@ -212,8 +213,8 @@ TEST_CASE("history is recomputed by the same step, and a reset re-levels and is 
 TEST_CASE("a series is stale once stale_after whole periods have ended without an actual", "[integration]") {
   TempDir dir;
   auto settings = Settings(dir.File("data"));  // policy "zero": weekly, stale_after 2 (default)
-  std::int64_t now_ms = 0;
-  Engine e(settings, [&] { return now_ms; });
+  std::atomic<std::int64_t> now_ms{0};  // the engine thread reads the clock too
+  Engine e(settings, [&] { return now_ms.load(); });
   std::string error;
   REQUIRE(e.Start(error));
   REQUIRE(SubmitAndWait(e, {Row("z/a", 3000, 5)}).status == IngestReply::Status::kOk);
