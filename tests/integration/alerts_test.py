@@ -144,9 +144,14 @@ def webhook_sink(receiver, extra=""):
 def notified_events(server, sink):
     """Event ids that have a delivery row for `sink`, over every alert (via the API)."""
     ids = set()
-    status, body, _ = server.request("GET", "/v1/alerts?limit=1000")
-    assert status == 200, body
-    for a in body["alerts"]:
+    alerts = []
+    path = "/v1/alerts?limit=1000"
+    while path:
+        status, body, _ = server.request("GET", path)
+        assert status == 200, body
+        alerts += body["alerts"]
+        path = "/v1/alerts?limit=1000&before=%d" % body["next_before"] if body["next_before"] else None
+    for a in alerts:
         _, detail, _ = server.request("GET", "/v1/alerts/%d" % a["id"])
         for h in detail["history"]:
             if any(d["sink"] == sink for d in h["deliveries"]):
