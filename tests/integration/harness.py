@@ -120,6 +120,23 @@ class Server:
         except ValueError:
             return status, raw, hdrs
 
+    def raw_exchange(self, data):
+        """Sends raw bytes on a new connection and reads until the server closes it; returns
+        (status line and headers, body) as bytes."""
+        sock = socket.create_connection(("127.0.0.1", self.port), timeout=DEADLINE)
+        try:
+            sock.sendall(data)
+            reply = b""
+            while True:
+                chunk = sock.recv(65536)
+                if not chunk:
+                    break
+                reply += chunk
+        finally:
+            sock.close()
+        head, _, body = reply.partition(b"\r\n\r\n")
+        return head, body
+
     def raw_request(self, method, path, body, content_type):
         """Sends a request the way curl does for large bodies: headers with "Expect:
         100-continue", then the body only after "100 Continue". Returns (status, text)."""

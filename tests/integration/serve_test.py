@@ -452,16 +452,7 @@ def test_invalid_utf8_in_the_path_is_answered():
     is not UTF-8 was echoed into a JSON error whose serialisation threw and ended the process."""
     s = Server(SETTINGS)
     try:
-        sock = socket.create_connection(("127.0.0.1", s.port), timeout=harness.DEADLINE)
-        sock.sendall(b"DELETE /\xff\xfe HTTP/1.1\r\nHost: t\r\nConnection: close\r\n\r\n")
-        reply = b""
-        while True:
-            chunk = sock.recv(65536)
-            if not chunk:
-                break
-            reply += chunk
-        sock.close()
-        head, _, body = reply.partition(b"\r\n\r\n")
+        head, body = s.raw_exchange(b"DELETE /\xff\xfe HTTP/1.1\r\nHost: t\r\nConnection: close\r\n\r\n")
         assert head.startswith(b"HTTP/1.1 404"), head
         assert b"no such endpoint" in body, body
         assert s.request("GET", "/healthz")[0] == 200  # still up
