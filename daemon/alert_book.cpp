@@ -148,7 +148,6 @@ void AlertBook::Configure(const config::Settings& settings) {
   sinks_.clear();
   for (const auto& s : settings.alerts.sinks) sinks_.push_back(s.name);
   storm_threshold_ = settings.alerts.storm_threshold;
-  public_url_ = PublicUrl(settings);
 }
 
 void AlertBook::IndexReset() {
@@ -208,12 +207,6 @@ void AlertBook::Tally(
   for (const auto& [key, live] : open_)
     each(static_cast<std::size_t>(key >> 8), static_cast<std::size_t>(key & 0xff),
          live.state == 'a' ? "acknowledged" : live.state == 's' ? "snoozed" : "open", live.severity);
-}
-
-std::optional<std::int64_t> AlertBook::Find(std::size_t index, std::size_t rule) const {
-  auto it = open_.find(Key(index, rule));
-  if (it == open_.end()) return std::nullopt;
-  return it->second.id;
 }
 
 bool AlertBook::Fail(const std::string& what) {
@@ -574,22 +567,33 @@ bool AlertBook::Snooze(std::int64_t id, std::optional<std::int64_t> until_period
   return true;
 }
 
+bool AlertBook::Resolve(std::uint64_t key, const Live& o, const std::string& by,
+                        const std::string& reason, const std::string& note, std::int64_t now_ms,
+                        AlertCounts& counts) {
+  resolve_alert_.Reset();
+  resolve_alert_.Bind(1, o.id).Bind(2, now_ms).BindNull(3).Bind(4, by).Bind(5, reason);
+  if (note.empty()) resolve_alert_.BindNull(6); else resolve_alert_.Bind(6, note);
+  if (!resolve_alert_.Run()) return Fail("alert resolution");
+  if (!Transition(o.id, "resolved", o, now_ms, by, note, reason) ||
+      (o.group && !GroupMemberLeft(o.group, now_ms, counts)))
+    return false;
+  Set(key, std::nullopt);
+  ++counts.resolved;
+  ++counts.notified;
+  return true;
+}
+
 bool AlertBook::ResolveByHand(std::int64_t id, const std::string& by, const std::string& note,
                               std::int64_t now_ms, int& status, std::string& error) {
   std::uint64_t key = 0;
   Live o;
   if (!LoadAlert(id, status, error, key, o)) return false;
-  resolve_alert_.Reset();
-  resolve_alert_.Bind(1, id).Bind(2, now_ms).BindNull(3).Bind(4, by).Bind(5, std::string("by hand"));
-  if (note.empty()) resolve_alert_.BindNull(6); else resolve_alert_.Bind(6, note);
   AlertCounts ignored;
-  if (!resolve_alert_.Run() || !Transition(id, "resolved", o, now_ms, by, note, "by hand") ||
-      (o.group && !GroupMemberLeft(o.group, now_ms, ignored))) {
+  if (!Resolve(key, o, by, "by hand", note, now_ms, ignored)) {
     status = 500;
     error = error_;
     return false;
   }
-  Set(key, std::nullopt);
   return true;
 }
 
@@ -606,7 +610,7 @@ bool AlertBook::Unsnooze(std::uint64_t key, Live o, std::int64_t now_ms, AlertCo
   return true;
 }
 
-bool AlertBook::WakeSnoozed(std::int64_t now_ms, const SeriesInfo&, AlertCounts& counts) {
+bool AlertBook::WakeSnoozed(std::int64_t now_ms, AlertCounts& counts) {
   std::vector<std::pair<std::uint64_t, Live>> due;
   for (const auto& [k, o] : open_)
     if (o.state == 's' && o.snooze_ms <= now_ms) due.push_back({k, o});
@@ -634,14 +638,7 @@ bool AlertBook::ResolveSeries(std::size_t index, const std::string& reason, cons
     auto it = open_.find(Key(index, r));
     if (it == open_.end()) continue;
     const Live o = it->second;
-    resolve_alert_.Reset();
-    resolve_alert_.Bind(1, o.id).Bind(2, now_ms).BindNull(3).Bind(4, by).Bind(5, reason).BindNull(6);
-    if (!resolve_alert_.Run() || !Transition(o.id, "resolved", o, now_ms, by, "", reason) ||
-        (o.group && !GroupMemberLeft(o.group, now_ms, counts)))
-      return false;
-    Set(it->first, std::nullopt);
-    ++counts.resolved;
-    ++counts.notified;
+    if (!Resolve(it->first, o, by, reason, "", now_ms, counts)) return false;
   }
   return true;
 }

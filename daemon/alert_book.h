@@ -63,7 +63,7 @@ class AlertBook {
   // Prepares statements on the store's connection and loads the unresolved alerts;
   // `index_of` maps a series id to the engine's index (-1 when unknown).
   bool Open(Db& db, const std::function<long(std::int64_t)>& index_of, std::string& error);
-  void Configure(const config::Settings& settings);  // sinks, storm threshold, public URL
+  void Configure(const config::Settings& settings);  // sinks, storm threshold
   // After Open and Configure: places the loaded alerts under (index, rule) by rule name through
   // `locate` (nullopt: the rule is gone; the alert is left as stored) and parses snooze periods.
   void Index(const std::function<std::optional<std::pair<std::size_t, std::size_t>>(
@@ -85,14 +85,12 @@ class AlertBook {
   bool ResolveByHand(std::int64_t id, const std::string& by, const std::string& note,
                      std::int64_t now_ms, int& status, std::string& error);
   // Snoozes that ended: by time (now_ms) or because series `index` reached `period`.
-  bool WakeSnoozed(std::int64_t now_ms, const SeriesInfo& info, AlertCounts& counts);
+  bool WakeSnoozed(std::int64_t now_ms, AlertCounts& counts);
   bool WakeSnoozedAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
                      std::int64_t now_ms, AlertCounts& counts);
   // Every unresolved alert of a series, resolved with `reason` (a reset).
   bool ResolveSeries(std::size_t index, const std::string& reason, const std::string& by,
                      const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts);
-  // The open alert of (series, rule), if any: its id.
-  std::optional<std::int64_t> Find(std::size_t index, std::size_t rule) const;
 
   // Calls `each` for every unresolved alert: (series index, rule index, state name, severity).
   void Tally(const std::function<void(std::size_t, std::size_t, const char*, monitors::Severity)>& each) const;
@@ -104,8 +102,6 @@ class AlertBook {
   void Forget() { undo_.clear(); }
 
   const std::string& error() const { return error_; }
-  // Unresolved alerts by state, for listings without a query.
-  std::size_t unresolved() const { return open_.size(); }
 
  private:
   struct Live {
@@ -147,13 +143,15 @@ class AlertBook {
     std::string snooze_period;
   };
   bool GroupMemberLeft(std::int64_t group, std::int64_t now_ms, AlertCounts& counts);
+  // Resolves an unresolved alert (row, event, group) by hand or by a reset.
+  bool Resolve(std::uint64_t key, const Live& o, const std::string& by, const std::string& reason,
+               const std::string& note, std::int64_t now_ms, AlertCounts& counts);
   bool Unsnooze(std::uint64_t key, Live o, std::int64_t now_ms, AlertCounts& counts);
 
   std::vector<Loaded> loaded_;
   Db* db_ = nullptr;
   std::vector<std::string> sinks_;
   long storm_threshold_ = 25;
-  std::string public_url_;
   std::unordered_map<std::uint64_t, Live> open_;
   long snoozed_ = 0;  // entries of open_ in state 's'
   std::vector<std::pair<std::uint64_t, std::optional<Live>>> undo_;

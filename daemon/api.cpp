@@ -80,15 +80,10 @@ void SplitTarget(const std::string& target, std::string& path,
   }
 }
 
-std::string Status(const SeriesView& v) {
-  if (v.state->active) return "alerting";
-  if (v.stale) return "stale";
-  if (!v.state->started || v.state->forecasts <= v.spec->spec.warmup) return "warming";
-  return "ok";
-}
+std::string Status(const SeriesView& v) { return StatusName(StatusOf(*v.state, *v.spec, v.stale)); }
 
 std::optional<double> Signal(const SeriesView& v, bool trigg) {
-  if (v.state->forecasts <= v.spec->spec.warmup) return std::nullopt;
+  if (Warming(*v.state, *v.spec)) return std::nullopt;
   return trigg ? monitors::TriggSignal(v.state->stats) : monitors::CusumSignal(v.state->stats);
 }
 

@@ -83,7 +83,6 @@ bool Engine::Start(std::string& error) {
   std::string problem;
   std::vector<std::size_t> stale_states;
   std::int64_t count = 0;
-  notified_ = 0;
   if (!store_.CountSeries(count)) {
     error = "store: " + store_.error();
     return false;
@@ -281,24 +280,32 @@ void Engine::Housekeeping() {
   if (now - last_housekeeping_ms_ < settings_->alerts.check_seconds * 1000) return;
   last_housekeeping_ms_ = now;
   if (!failure().empty()) return;
-  // Stale rules: series whose actuals are overdue (policies with stale rules only).
-  std::vector<AlertChange> changes;
+  // Stale rules: series whose actuals are overdue (policies with stale rules only; their
+  // current period is worked out once per policy).
+  std::unordered_map<const config::Policy*, monitors::PeriodOrdinal> current;
   const std::int64_t today = Today();
-  std::vector<std::pair<std::size_t, monitors::SeriesState>> before;
-  for (std::size_t i = 0; i < series_.size(); ++i) {
+  for (const config::Policy& p : settings_->policies)
+    for (const monitors::RuleSpec& r : p.spec.rules)
+      if (r.signal == monitors::SignalKind::kStale) current[&p] = monitors::PeriodOfDay(p.period, today);
+  if (current.empty() && !alerts_.AnySnoozed()) return;  // nothing to check: no transaction
+  std::vector<AlertChange> changes;
+  struct Saved {
+    std::size_t index;
+    monitors::RuleStates rules;  // CheckStale changes only the rule states
+    std::uint64_t active;
+  };
+  std::vector<Saved> before;
+  for (std::size_t i = 0; !current.empty() && i < series_.size(); ++i) {
     Series& s = series_[i];
-    const auto& rules = s.policy->spec.rules;
-    if (!s.state.seen ||
-        std::none_of(rules.begin(), rules.end(),
-                     [](const monitors::RuleSpec& r) { return r.signal == monitors::SignalKind::kStale; }))
-      continue;
-    const std::int64_t overdue = monitors::PeriodOfDay(s.policy->period, today) - s.state.last_period - 1;
+    auto it = current.find(s.policy);
+    if (it == current.end() || !s.state.seen) continue;
+    const std::int64_t overdue = it->second - s.state.last_period - 1;
     if (overdue <= 0) continue;
     monitors::StepResult r;
-    monitors::SeriesState saved = s.state;
+    Saved saved{i, s.state.rules, s.state.active};
     monitors::CheckStale(s.policy->spec, s.state, static_cast<long>(overdue), r);
     if (r.episodes_opened) {
-      before.push_back({i, std::move(saved)});
+      before.push_back(std::move(saved));
       CollectChanges(i, r, s.state.last_period + overdue, changes);
       MarkDirty(i);
     }
@@ -306,19 +313,20 @@ void Engine::Housekeeping() {
   const std::size_t mark = alerts_.Mark();
   AlertCounts counts;
   const bool ok = store_.Begin() && alerts_.Apply(changes, [this](std::size_t i) { return Info(i); }, now, counts) &&
-                  alerts_.WakeSnoozed(now, [this](std::size_t i) { return Info(i); }, counts) &&
+                  alerts_.WakeSnoozed(now, counts) &&
                   store_.Commit();
   if (!ok) {
     Fail("store: alerts: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
     store_.Rollback();
     alerts_.RollbackTo(mark);
-    for (auto& [i, state] : before) series_[i].state = std::move(state);
+    for (Saved& b : before) {
+      series_[b.index].state.rules = std::move(b.rules);
+      series_[b.index].state.active = b.active;
+    }
     return;
   }
   alerts_.Forget();
-  alert_counts_.opened += counts.opened;
-  alert_counts_.notified += counts.notified;
-  if (counts.notified && on_outbox_) on_outbox_();
+  Committed(counts);
 }
 
 void Engine::Stop() {
@@ -508,18 +516,17 @@ void Engine::Run() {
       }
     } else {
       alerts_.Forget();
+      AlertCounts committed;
       const std::int64_t now = clock_();
       for (const Pending& p : pending) {
         if (p.reply.status == IngestReply::Status::kOk) {
           for (const config::Policy* policy : p.policies) last_arrival_[policy->name] = now;
-          for (const auto& [policy, sum] : p.bias) {
-            BiasSum& total = bias_[policy];
-            if (sum.period > total.period) total = BiasSum{sum.period, 0, 0};
-            if (sum.period == total.period) {
-              total.errors += sum.errors;
-              total.actuals += sum.actuals;
-            }
-          }
+          for (const auto& [policy, sum] : p.bias) bias_[policy].Add(sum.period, sum.errors, sum.actuals);
+          committed.opened += p.alert_counts.opened;
+          committed.escalated += p.alert_counts.escalated;
+          committed.resolved += p.alert_counts.resolved;
+          committed.grouped += p.alert_counts.grouped;
+          committed.notified += p.alert_counts.notified;
           counters_.applied += p.reply.counts.applied;
           counters_.unchanged += p.reply.counts.unchanged;
           counters_.restated += p.reply.counts.restated;
@@ -529,13 +536,8 @@ void Engine::Run() {
           ++counters_.batches_rejected;
         }
       }
-      counters_.alerts_opened = alert_counts_.opened;
-      counters_.alerts_escalated = alert_counts_.escalated;
-      counters_.alerts_resolved = alert_counts_.resolved;
-      counters_.alerts_grouped = alert_counts_.grouped;
-      if (notified_ && on_outbox_) on_outbox_();
+      Committed(committed);
     }
-    notified_ = 0;
     for (Pending& p : pending) p.job.done(std::move(p.reply));
     Housekeeping();
   }
@@ -618,12 +620,7 @@ void Engine::ApplyBatch(Pending& p) {
     }
     p.reply.counts.alerts_opened = counts.opened;
     p.reply.counts.alerts_resolved = counts.resolved;
-    alert_counts_.opened += counts.opened;
-    alert_counts_.escalated += counts.escalated;
-    alert_counts_.resolved += counts.resolved;
-    alert_counts_.grouped += counts.grouped;
-    alert_counts_.notified += counts.notified;
-    notified_ += counts.notified;
+    p.alert_counts = counts;  // counted once the group commits
     if (!store_.ReleaseSavepoint()) Fail("store: release: " + store_.error());
     return;
   }
@@ -934,9 +931,16 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
   }
   alerts_.Forget();
   s.state = std::move(next);
-  alert_counts_.resolved += counts.resolved;
-  if (counts.notified && on_outbox_) on_outbox_();
+  Committed(counts);
   return true;
+}
+
+void Engine::Committed(const AlertCounts& c) {
+  counters_.alerts_opened += c.opened;
+  counters_.alerts_escalated += c.escalated;
+  counters_.alerts_resolved += c.resolved;
+  counters_.alerts_grouped += c.grouped;
+  if (c.notified && on_outbox_) on_outbox_();
 }
 
 EngineSnapshot Engine::Snapshot() const {
@@ -969,10 +973,9 @@ EngineSnapshot Engine::Snapshot() const {
     if (found == at.end()) continue;
     PolicyHealth& h = out.policies[found->second];
     const monitors::SeriesState& st = s.state;
-    const bool warming = !st.started || st.forecasts <= s.policy->spec.warmup;
-    const int state = st.active ? 1 : IsStale(s, today) ? 2 : warming ? 3 : 0;
-    ++h.series[state];
-    if (warming) continue;
+    const SeriesStatus status = StatusOf(st, *s.policy, IsStale(s, today));
+    ++h.series[static_cast<int>(status)];
+    if (Warming(st, *s.policy)) continue;
     const std::optional<double> t = monitors::TriggSignal(st.stats);
     const std::optional<double> c = monitors::CusumSignal(st.stats);
     if (t) {

@@ -93,10 +93,26 @@ struct HistoryRow {
   monitors::StepResult result;
 };
 
+// A series' status as the API lists it and /metrics counts it: alerting (a rule holds) before
+// stale (actuals overdue) before warming (start window or warm-up) before ok.
+enum class SeriesStatus { kOk = 0, kAlerting = 1, kStale = 2, kWarming = 3 };
+inline bool Warming(const monitors::SeriesState& s, const config::Policy& p) {
+  return !s.started || s.forecasts <= p.spec.warmup;
+}
+inline SeriesStatus StatusOf(const monitors::SeriesState& s, const config::Policy& p, bool stale) {
+  if (s.active) return SeriesStatus::kAlerting;
+  if (stale) return SeriesStatus::kStale;
+  return Warming(s, p) ? SeriesStatus::kWarming : SeriesStatus::kOk;
+}
+inline const char* StatusName(SeriesStatus s) {
+  static const char* kNames[] = {"ok", "alerting", "stale", "warming"};
+  return kNames[static_cast<int>(s)];
+}
+
 // What /metrics shows of the portfolio (engine thread, one pass over the series).
 struct PolicyHealth {
   std::string policy;
-  long series[4] = {0, 0, 0, 0};  // ok, alerting, stale, warming (the API's status)
+  long series[4] = {0, 0, 0, 0};  // by SeriesStatus
   // series with |signal| <= bound, for each bound (cumulative; the last bound is +Inf)
   std::vector<long> trigg_at_most, cusum_at_most;
   std::int64_t last_actual_ms = 0;  // 0: none since start
@@ -181,7 +197,6 @@ class Engine {
                                             std::string& error)>& action,
                    int& status, std::string& error);
 
-  const AlertCounts& alert_counts() const { return alert_counts_; }
   // Engine thread: the portfolio as /metrics shows it.
   EngineSnapshot Snapshot() const;
   const EngineCounters& counters() const { return counters_; }
@@ -230,6 +245,7 @@ class Engine {
     std::vector<const config::Policy*> policies;  // that received new actuals (a few)
     std::vector<AlertChange> alert_changes;
     std::size_t alert_mark = 0;
+    AlertCounts alert_counts;  // what the batch recorded, counted after the commit
     std::vector<std::pair<const config::Policy*, BiasSum>> bias;  // a few policies
   };
 
@@ -245,6 +261,8 @@ class Engine {
   void Rewind(Pending& p);
   void Fail(const std::string& why);
   AlertSeries Info(std::size_t index) const;
+  // After a commit: alert changes into the counters; wakes the delivery worker if they notify.
+  void Committed(const AlertCounts& counts);
   bool OpenAlerts(std::string& error);
   // Snoozes that ran out and stale rules, every alerts.check_seconds.
   void Housekeeping();
@@ -281,10 +299,8 @@ class Engine {
   std::int64_t last_flush_ms_ = 0;
   long recovered_ = 0;
   AlertBook alerts_;
-  AlertCounts alert_counts_;  // since start (engine thread)
   std::int64_t last_housekeeping_ms_ = 0;
   std::function<void()> on_outbox_;
-  long notified_ = 0;  // notifications queued by the batches being committed
   EngineCounters counters_;
   std::function<void(double)> on_commit_;
   // Portfolio bias per policy: errors and actuals of its newest period (batches add theirs

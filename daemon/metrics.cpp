@@ -173,9 +173,10 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
   auto& last = BuildGauge().Name("forewarden_last_actual_timestamp_seconds")
                    .Help("When the policy's last actual was committed (since the Unix epoch; absent until one arrives).").Register(now);
   prometheus::Family<prometheus::Gauge>* top = nullptr;
-  static const char* kStates[4] = {"ok", "alerting", "stale", "warming"};
   for (const PolicyHealth& h : snap.policies) {
-    for (int k = 0; k < 4; ++k) series.Add({{"policy", h.policy}, {"state", kStates[k]}}).Set(static_cast<double>(h.series[k]));
+    for (int k = 0; k < 4; ++k)
+      series.Add({{"policy", h.policy}, {"state", StatusName(static_cast<SeriesStatus>(k))}})
+          .Set(static_cast<double>(h.series[k]));
     for (std::size_t k = 0; k < h.trigg_at_most.size(); ++k)
       trigg.Add({{"policy", h.policy}, {"at_most", k < std::size(kTriggBounds) ? Bound(kTriggBounds[k]) : "+Inf"}})
           .Set(static_cast<double>(h.trigg_at_most[k]));

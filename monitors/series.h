@@ -143,7 +143,6 @@ class RecentWindow {
   }
   void Clear() { buf_.reset(); }
   std::uint16_t capacity() const { return header().cap; }
-  std::uint16_t count() const { return header().count; }
   // Oldest first, kFields values a period, for serialisation.
   std::vector<float> Values() const {
     const Header h = header();

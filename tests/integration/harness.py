@@ -35,6 +35,15 @@ def _remove_temp_dirs():
         shutil.rmtree(path, ignore_errors=True)
 
 
+def _read_until_closed(sock):
+    reply = b""
+    while True:
+        chunk = sock.recv(65536)
+        if not chunk:
+            return reply
+        reply += chunk
+
+
 class Server:
     """forewarden serve on 127.0.0.1:<free port> with settings text `yaml`."""
 
@@ -126,12 +135,7 @@ class Server:
         sock = socket.create_connection(("127.0.0.1", self.port), timeout=DEADLINE)
         try:
             sock.sendall(data)
-            reply = b""
-            while True:
-                chunk = sock.recv(65536)
-                if not chunk:
-                    break
-                reply += chunk
+            reply = _read_until_closed(sock)
         finally:
             sock.close()
         head, _, body = reply.partition(b"\r\n\r\n")
@@ -150,11 +154,7 @@ class Server:
             if reply.startswith(b"HTTP/1.1 100"):
                 sock.sendall(data)
                 reply = b""
-            while True:
-                chunk = sock.recv(65536)
-                if not chunk:
-                    break
-                reply += chunk
+            reply += _read_until_closed(sock)
         finally:
             sock.close()
         head, _, text = reply.decode(errors="replace").partition("\r\n\r\n")
