@@ -4,7 +4,7 @@
 #include <string>
 #include <vector>
 
-#include "daemon/csv.h"
+#include "daemon/common/csv.h"
 
 int main(int argc, char** argv) {
   if (argc != 2) {

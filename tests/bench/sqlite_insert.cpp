@@ -10,7 +10,7 @@
 #include <unordered_map>
 #include <vector>
 
-#include "daemon/csv.h"
+#include "daemon/common/csv.h"
 
 int main(int argc, char** argv) {
   if (argc != 4) {

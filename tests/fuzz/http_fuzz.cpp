@@ -13,9 +13,9 @@
 #include <string>
 
 #include "config/load.h"
-#include "daemon/api.h"
-#include "daemon/engine.h"
-#include "daemon/metrics.h"
+#include "daemon/api/api.h"
+#include "daemon/engine/engine.h"
+#include "daemon/observe/metrics.h"
 
 namespace {
 

@@ -7,7 +7,7 @@
 #include <cstdlib>
 #include <string_view>
 
-#include "daemon/ingest.h"
+#include "daemon/batch/parse.h"
 #include "monitors/period.h"
 
 extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {

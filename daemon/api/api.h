@@ -1,0 +1,63 @@
+// The HTTP API of `forewarden serve` (shapes documented in the README, "HTTP API"):
+//   POST /v1/actuals                      CSV or NDJSON batch, all or nothing
+//   GET  /v1/series                       list: ?policy= &label=name:value &status= &sort= &limit= &offset=
+//   GET  /v1/series/{key}                 next forecast, interval, statistics, signals, alerts
+//   GET  /v1/series/{key}/history         ?from=&to= (ISO dates): what a chart needs
+//   POST /v1/series/{key}/reset           {"to": "value"|"last"|"mean", "value", "k", "who", "note"}
+//   GET  /v1/policies                     with derived limits and expected false alerts
+//   GET  /v1/alerts                       ?state= &policy= &rule= &severity= &series= &group= &limit= &before=
+//   GET  /v1/alerts/{id}                  with its history and deliveries
+//   POST /v1/alerts/{id}/acknowledge      {"by", "note"}
+//   POST /v1/alerts/{id}/snooze           {"until": period or ISO time, "by", "note"}
+//   POST /v1/alerts/{id}/resolve          {"by", "note"}
+//   GET  /v1/deliveries                   ?state=dead|pending|delivered &sink=
+//   POST /v1/deliveries/retry             ?sink=  dead deliveries back to pending
+//   GET  /healthz, /readyz
+//   GET  /metrics                         Prometheus text exposition (metrics.h)
+// Write endpoints need "Authorization: Bearer TOKEN" when a token is configured (compared in
+// constant time, never logged). Reads run as jobs on the engine thread.
+#pragma once
+
+#include <memory>
+#include <mutex>
+#include <string>
+
+#include "config/settings.h"
+#include "daemon/engine/engine.h"
+#include "daemon/http/http_server.h"
+#include "daemon/observe/metrics.h"
+
+namespace forewarden {
+
+
+class Api {
+ public:
+  Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
+      Metrics* metrics = nullptr);
+  void Handle(HttpRequest&& request, Respond respond);
+  // Thread-safe: settings and token after a reload.
+  void Update(std::shared_ptr<const config::Settings> settings, std::string token);
+  const ApiCounters& counters() const { return counters_; }
+
+ private:
+  void Ingest(HttpRequest&& request, Respond respond);
+  using Query = std::vector<std::pair<std::string, std::string>>;
+  void Reset(const std::string& key, HttpRequest&& request, Respond respond);
+  void Alerts(const std::string& path, const Query& query, HttpRequest&& request, Respond respond);
+  void Deliveries(const std::string& path, const Query& query, HttpRequest&& request, Respond respond);
+  bool Authorized(const HttpRequest& request);
+  std::shared_ptr<const config::Settings> settings() const;
+
+  void Route(HttpRequest&& request, Respond respond);
+  Engine& engine_;
+  Metrics* metrics_;
+  mutable std::mutex mu_;
+  std::shared_ptr<const config::Settings> settings_;
+  std::string token_;
+  ApiCounters counters_;
+};
+
+// Percent-decoding of a URL path or query component ('+' is a space in queries only).
+std::string UrlDecode(std::string_view text, bool query);
+
+}  // namespace forewarden

@@ -1,0 +1,550 @@
+#include "daemon/cli/replay.h"
+
+#include <atomic>
+#include <chrono>
+#include <condition_variable>
+#include <deque>
+#include <algorithm>
+#include <mutex>
+#include <thread>
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <memory>
+#include <sstream>
+#include <unordered_map>
+
+#include "daemon/common/csv.h"
+#include "daemon/common/key_arena.h"
+#include "daemon/cli/text_out.h"
+#include "monitors/series.h"
+
+namespace forewarden {
+
+std::string FormatNumber(double v) {
+  char tmp[32];
+  if (v == 0.0) v = 0.0;
+  auto r = std::to_chars(tmp, tmp + sizeof tmp, v);
+  return std::string(tmp, r.ptr);
+}
+
+namespace {
+
+struct StringHash {
+  using is_transparent = void;
+  std::size_t operator()(std::string_view s) const { return std::hash<std::string_view>{}(s); }
+};
+
+struct SeriesSlot {
+  std::string_view key;  // in the KeyArena
+  const config::Policy* policy;
+  SeriesSlot* next_seen = nullptr;  // the series whose row followed this one's last time
+  monitors::SeriesState state;
+  std::vector<std::pair<std::size_t, std::size_t>> open;  // (rule, episode row) with --alerts
+};
+
+// One alert episode for the --alerts file.
+struct EpisodeRow {
+  std::string_view key;
+  const config::Policy* policy;
+  std::size_t rule;
+  monitors::Severity severity;
+  std::string opened, escalated, resolved;
+};
+
+// A parsed period with its normalised text.
+struct ParsedPeriod {
+  monitors::PeriodParse parse;
+  char text[10];
+};
+
+// Parses a period string of one kind, remembering answers (feeds repeat few periods; the
+// cache stops growing at 100,000 distinct strings).
+class PeriodCache {
+ public:
+  const ParsedPeriod& Parse(monitors::PeriodKind kind, std::string_view text) {
+    auto& cache = caches_[static_cast<int>(kind)];
+    auto it = cache.find(text);
+    if (it != cache.end()) return it->second;
+    scratch_.parse = monitors::ParsePeriod(kind, text);
+    if (scratch_.parse.ok()) monitors::FormatPeriodTo(kind, scratch_.parse.ordinal, scratch_.text);
+    if (scratch_.parse.ok() && cache.size() < 100000)
+      return cache.emplace(std::string(text), scratch_).first->second;
+    return scratch_;
+  }
+
+ private:
+  std::unordered_map<std::string, ParsedPeriod, StringHash, std::equal_to<>> caches_[3];
+  ParsedPeriod scratch_;
+};
+
+bool ParseValue(std::string_view text, double& out) {
+  if (text.empty()) return false;
+  const char* first = text.data();
+  if (*first == '+') ++first;
+  auto r = std::from_chars(first, text.data() + text.size(), out);
+  return r.ec == std::errc() && r.ptr == text.data() + text.size();
+}
+
+std::string Where(long line, const char* field) {
+  return "line " + std::to_string(line) + ", field " + field + ": ";
+}
+
+struct OutputFile {
+  std::string final_path, temp_path;
+  std::FILE* file = nullptr;
+  bool owned = false;
+  ~OutputFile() {
+    if (owned && file) {
+      std::fclose(file);
+      std::remove(temp_path.c_str());
+    }
+  }
+};
+
+// One output row, computed by the engine thread and formatted by the writer thread.
+struct Row {
+  std::string_view key;  // points into the KeyArena
+  const char* period;    // 10 chars, owned by the period cache (stable: node-based map)
+  const config::Policy* policy;
+  double actual;
+  monitors::StepResult result;
+};
+
+// Formats rows on two threads and writes them in order, so that number formatting (the
+// largest cost: ~45 ns per shortest round-trip double here) and the write system calls
+// overlap with parsing and the engine. Block i goes to formatter i % 2; a formatter writes
+// its text when its block's turn comes. Each formatter holds at most kMaxBlocks waiting
+// blocks, so memory stays flat whatever the input size.
+class RowWriter {
+ public:
+  explicit RowWriter(std::FILE* file) : file_(file) {
+    current_.reserve(kBlockRows);
+    const std::string header =
+        "series,period,actual,forecast,error,alpha,smoothed_error,mad,cusum,trigg_signal,"
+        "cusum_signal,lower,upper,alerts\n";
+    if (std::fwrite(header.data(), 1, header.size(), file_) != header.size()) failed_ = true;
+    for (auto& f : formatters_) f.thread = std::thread([this, &f] { Work(f); });
+  }
+  ~RowWriter() { Finish(); }
+
+  Row& Next() {
+    if (current_.size() == kBlockRows) Hand();
+    current_.emplace_back();
+    return current_.back();
+  }
+  // Forgets the row Next() returned last.
+  void DropLast() { current_.pop_back(); }
+
+  // Stops without formatting or writing what is still queued (the input was bad: the
+  // output is thrown away).
+  void Abandon() {
+    abandoned_ = true;
+    {
+      std::lock_guard lock(turn_mu_);  // wakes a formatter waiting for its turn
+    }
+    turn_cv_.notify_all();
+    current_.clear();
+    Finish();
+  }
+
+  // Writes everything handed over; false if a write failed.
+  bool Finish() {
+    if (finished_) return !failed_;
+    finished_ = true;
+    Hand();
+    for (auto& f : formatters_) {
+      {
+        std::lock_guard lock(f.mu);
+        f.done = true;
+      }
+      f.ready.notify_all();
+    }
+    for (auto& f : formatters_) f.thread.join();
+    return !failed_;
+  }
+
+ private:
+  static constexpr std::size_t kBlockRows = 8192, kMaxBlocks = 3, kFormatters = 2;
+
+  struct Block {
+    long seq = 0;
+    std::vector<Row> rows;
+  };
+  struct Formatter {
+    std::mutex mu;
+    std::condition_variable ready, room;
+    std::deque<Block> queue;
+    bool done = false;
+    std::thread thread;
+  };
+
+  void Hand() {
+    if (current_.empty()) return;
+    Formatter& f = formatters_[static_cast<std::size_t>(handed_ % kFormatters)];
+    {
+      std::unique_lock lock(f.mu);
+      f.room.wait(lock, [&] { return f.queue.size() < kMaxBlocks; });
+      f.queue.push_back(Block{handed_++, std::move(current_)});
+    }
+    f.ready.notify_one();
+    current_ = std::vector<Row>();
+    current_.reserve(kBlockRows);
+  }
+
+  void Work(Formatter& f) {
+    TextOut text(nullptr);
+    for (;;) {
+      Block block;
+      {
+        std::unique_lock lock(f.mu);
+        f.ready.wait(lock, [&] { return f.done || !f.queue.empty(); });
+        if (f.queue.empty()) return;
+        block = std::move(f.queue.front());
+        f.queue.pop_front();
+      }
+      f.room.notify_one();
+      if (abandoned_) continue;
+      for (const Row& row : block.rows) Format(text, row);
+      std::unique_lock lock(turn_mu_);
+      turn_cv_.wait(lock, [&] { return turn_ == block.seq || abandoned_; });
+      const std::string_view bytes = text.View();
+      if (!failed_ && !abandoned_ &&
+          std::fwrite(bytes.data(), 1, bytes.size(), file_) != bytes.size())
+        failed_ = true;
+      text.Clear();
+      ++turn_;
+      lock.unlock();
+      turn_cv_.notify_all();
+    }
+  }
+
+  static void Format(TextOut& out, const Row& row) {
+    const monitors::StepResult& r = row.result;
+    out.Field(row.key);
+    out.Put(',');
+    out.Put(std::string_view(row.period, 10));
+    out.Put(',');
+    out.Number(row.actual);
+    out.Put(',');
+    if (r.has_forecast) {
+      out.Number(r.forecast);
+      out.Put(',');
+      out.Number(r.error);
+    } else {
+      out.Put(',');
+    }
+    out.Put(',');
+    out.RepeatedNumber(r.alpha);
+    out.Put(',');
+    out.Number(r.stats.smoothed_error);
+    out.Put(',');
+    out.Number(r.stats.mad);
+    out.Put(',');
+    out.Number(r.stats.cusum);
+    out.Put(',');
+    if (r.trigg) out.Number(*r.trigg);
+    out.Put(',');
+    if (r.cusum) out.Number(*r.cusum);
+    out.Put(',');
+    if (r.lower) out.Number(*r.lower);
+    out.Put(',');
+    if (r.upper) out.Number(*r.upper);
+    out.Put(',');
+    if (r.active) {
+      bool first = true;
+      const auto& rules = row.policy->spec.rules;
+      for (std::size_t i = 0; i < rules.size(); ++i) {
+        if (!(r.active >> i & 1)) continue;
+        if (!first) out.Put(';');
+        out.Put(rules[i].name);
+        first = false;
+      }
+    }
+    out.Put('\n');
+  }
+
+  std::FILE* file_;
+  std::vector<Row> current_;
+  long handed_ = 0;
+  bool finished_ = false;
+  std::atomic<bool> abandoned_{false};
+  std::mutex turn_mu_;
+  std::condition_variable turn_cv_;
+  long turn_ = 0;        // sequence number of the next block to write (guarded by turn_mu_)
+  bool failed_ = false;  // guarded by turn_mu_ while formatters run
+  Formatter formatters_[kFormatters];
+};
+
+// The --alerts file: one row per episode in the order they opened (written under a temporary
+// name and renamed into place).
+bool WriteEpisodes(const std::string& path, const std::vector<EpisodeRow>& episodes,
+                   std::string& error) {
+  const std::string temp = path + ".partial";
+  std::FILE* f = std::fopen(temp.c_str(), "wb");
+  if (!f) {
+    error = temp + ": cannot create: " + std::strerror(errno);
+    return false;
+  }
+  TextOut out(f);
+  out.Put("series,policy,rule,severity,opened,escalated,resolved\n");
+  for (const EpisodeRow& e : episodes) {
+    out.Field(e.key);
+    out.Put(',');
+    out.Field(e.policy->name);
+    out.Put(',');
+    out.Field(e.policy->spec.rules[e.rule].name);
+    out.Put(',');
+    out.Put(monitors::SeverityName(e.severity));
+    for (const std::string* t : {&e.opened, &e.escalated, &e.resolved}) {
+      out.Put(',');
+      out.Put(*t);
+    }
+    out.Put('\n');
+  }
+  const bool ok = out.Flush() && std::fclose(f) == 0;
+  if (!ok || std::rename(temp.c_str(), path.c_str()) != 0) {
+    error = path + ": cannot write: " + std::strerror(errno);
+    std::remove(temp.c_str());
+    return false;
+  }
+  return true;
+}
+
+}  // namespace
+
+int RunReplay(const config::Settings& settings, const ReplayOptions& options,
+              ReplaySummary& summary, std::string& error) {
+  const auto t0 = std::chrono::steady_clock::now();
+  CsvReader in(options.input);
+  if (!in.ok()) {
+    error = in.error();
+    return 1;
+  }
+  OutputFile out_file;
+  if (options.output.empty() || options.output == "-") {
+    out_file.file = stdout;
+  } else {
+    out_file.final_path = options.output;
+    out_file.temp_path = options.output + ".partial";
+    out_file.file = std::fopen(out_file.temp_path.c_str(), "wb");
+    if (!out_file.file) {
+      error = out_file.temp_path + ": cannot create: " + std::strerror(errno);
+      return 1;
+    }
+    out_file.owned = true;
+  }
+
+  std::vector<std::string_view> fields;
+  if (!in.Next(fields)) {
+    error = in.ok() ? options.input + ": empty input: expected the header series,period,value"
+                    : in.error();
+    return in.ok() ? 2 : 1;
+  }
+  int col_series = -1, col_period = -1, col_value = -1;
+  std::vector<std::string> label_names(fields.size());  // other columns are labels
+  for (std::size_t i = 0; i < fields.size(); ++i) {
+    std::string_view f = fields[i];
+    int* slot = f == "series" ? &col_series : f == "period" ? &col_period : f == "value" ? &col_value : nullptr;
+    if (!slot) {
+      if (f.empty()) {
+        error = "line " + std::to_string(in.line()) + ": column " + std::to_string(i + 1) +
+                " of the header has no name";
+        return 2;
+      }
+      label_names[i] = std::string(f);
+      continue;
+    }
+    if (*slot >= 0) {
+      error = "line " + std::to_string(in.line()) + ": column '" + std::string(f) + "' appears twice";
+      return 2;
+    }
+    *slot = static_cast<int>(i);
+  }
+  for (const char* name : {"series", "period", "value"}) {
+    const int col = std::strcmp(name, "series") == 0   ? col_series
+                    : std::strcmp(name, "period") == 0 ? col_period
+                                                       : col_value;
+    if (col < 0) {
+      error = "line " + std::to_string(in.line()) + ": the header has no '" + name +
+              "' column; expected series,period,value";
+      return 2;
+    }
+  }
+  const std::size_t ncols = fields.size();
+
+  // Series state lives in first-seen order; feeds usually repeat the same order every period,
+  // so each slot remembers which series came next and the hash lookup is skipped when that
+  // guess is right (the memory walk is then sequential too).
+  std::deque<SeriesSlot> slots;
+  KeyArena keys;
+  std::unordered_map<std::string_view, SeriesSlot*, StringHash, std::equal_to<>> series;
+  SeriesSlot* previous = nullptr;
+  PeriodCache periods;
+  // Declared after the keys, slots and period cache that queued rows point into, so that it
+  // is destroyed (and its threads joined) first.
+  const bool want_episodes = !options.alerts.empty();
+  std::vector<EpisodeRow> episodes;
+  RowWriter writer(out_file.file);
+  struct AbandonOnError {
+    RowWriter& writer;
+    bool done = false;
+    ~AbandonOnError() {
+      if (!done) writer.Abandon();
+    }
+  } abandon_on_error{writer};
+  std::unordered_map<const config::Policy*, std::vector<long>> opened_counts;
+  std::string problem;
+  long rows = 0;
+
+  while (in.Next(fields)) {
+    const long line = in.line();
+    if (fields.size() != ncols) {
+      error = "line " + std::to_string(line) + ": expected " + std::to_string(ncols) +
+              " fields, found " + std::to_string(fields.size());
+      return 2;
+    }
+    const std::string_view key = fields[col_series];
+    if (key.empty()) {
+      error = Where(line, "series") + "the series key is empty";
+      return 2;
+    }
+    SeriesSlot* found = previous ? previous->next_seen : nullptr;
+    if (!found || found->key != key) {
+      auto it = series.find(key);
+      if (it != series.end()) {
+        found = it->second;
+      } else {
+        std::vector<std::pair<std::string, std::string>> labels;
+        for (std::size_t i = 0; i < ncols; ++i)
+          if (!label_names[i].empty() && !fields[i].empty())
+            labels.emplace_back(label_names[i], std::string(fields[i]));
+        const config::Policy* policy = config::FindPolicy(settings, key, labels);
+        if (!policy) {
+          error = Where(line, "series") + "no policy matches the series '" + std::string(key) + "'";
+          return 2;
+        }
+        slots.push_back(SeriesSlot{keys.Add(key), policy, nullptr, monitors::NewSeriesState(policy->spec), {}});
+        found = &slots.back();
+        series.emplace(found->key, found);
+      }
+      if (previous) previous->next_seen = found;
+    }
+    previous = found;
+    SeriesSlot& slot = *found;
+    const config::Policy& policy = *slot.policy;
+    const ParsedPeriod& parsed = periods.Parse(policy.period, fields[col_period]);
+    const monitors::PeriodParse& period = parsed.parse;
+    if (!period.ok()) {
+      error = Where(line, "period") + period.error;
+      return 2;
+    }
+    double value = 0.0;
+    if (!ParseValue(fields[col_value], value)) {
+      error = Where(line, "value") + "'" + std::string(fields[col_value]) + "' is not a number";
+      return 2;
+    }
+    Row& row = writer.Next();
+    const monitors::StepStatus status =
+        monitors::Step(policy.spec, slot.state, period.ordinal, value, row.result, &problem);
+    const monitors::StepResult& r = row.result;
+    if (status != monitors::StepStatus::kOk) {
+      writer.DropLast();
+      const char* field = status == monitors::StepStatus::kBadValue ? "value" : "period";
+      if (status == monitors::StepStatus::kNotLater)
+        problem = "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
+                  " is not after the series' last period " +
+                  monitors::FormatPeriod(policy.period, slot.state.last_period) +
+                  " (periods must increase within a series)";
+      error = Where(line, field) + problem + " (series '" + std::string(key) + "')";
+      return 2;
+    }
+    ++rows;
+    row.key = slot.key;
+    row.period = parsed.text;
+    row.policy = &policy;
+    row.actual = value;
+    if (r.episodes_opened) {
+      auto& counts = opened_counts[&policy];
+      counts.resize(policy.spec.rules.size(), 0);
+      for (std::size_t i = 0; i < policy.spec.rules.size(); ++i)
+        if (r.episodes_opened >> i & 1) ++counts[i];
+    }
+    if (want_episodes && (r.episodes_opened | r.episodes_escalated | r.episodes_resolved)) {
+      const auto& rules = policy.spec.rules;
+      for (std::size_t i = 0; i < rules.size(); ++i) {
+        const std::uint64_t bit = std::uint64_t{1} << i;
+        auto it = std::find_if(slot.open.begin(), slot.open.end(),
+                               [i](const auto& o) { return o.first == i; });
+        if ((r.episodes_resolved & bit) && it != slot.open.end()) {
+          episodes[it->second].resolved.assign(parsed.text, sizeof parsed.text);
+          slot.open.erase(it);
+          it = slot.open.end();
+        }
+        if (r.episodes_opened & bit) {
+          slot.open.push_back({i, episodes.size()});
+          episodes.push_back({slot.key, &policy, i, rules[i].severity, std::string(parsed.text, sizeof parsed.text), "", ""});
+          it = slot.open.end() - 1;
+          if (slot.state.rules[i].escalated && slot.state.rules[i].open) {
+            episodes.back().severity = rules[i].escalate_severity;
+            episodes.back().escalated.assign(parsed.text, sizeof parsed.text);
+          }
+          if (r.episodes_resolved & bit) {  // opened and ended in one step (a stale gap)
+            episodes.back().resolved.assign(parsed.text, sizeof parsed.text);
+            slot.open.pop_back();
+            it = slot.open.end();
+          }
+        }
+        if ((r.episodes_escalated & bit) && it != slot.open.end()) {
+          episodes[it->second].severity = rules[i].escalate_severity;
+          episodes[it->second].escalated.assign(parsed.text, sizeof parsed.text);
+        }
+      }
+    }
+  }
+  if (!in.ok()) {
+    error = options.input + ": " + in.error();
+    return in.error().rfind("read error", 0) == 0 ? 1 : 2;
+  }
+  abandon_on_error.done = true;
+  if (!writer.Finish() || std::fflush(out_file.file) != 0) {
+    error = "cannot write the output: " + std::string(std::strerror(errno));
+    return 1;
+  }
+  if (out_file.owned) {
+    const int rc = std::fclose(out_file.file);
+    out_file.file = nullptr;
+    if (rc != 0 || std::rename(out_file.temp_path.c_str(), out_file.final_path.c_str()) != 0) {
+      error = out_file.final_path + ": cannot write: " + std::strerror(errno);
+      std::remove(out_file.temp_path.c_str());
+      return 1;
+    }
+    out_file.owned = false;
+  }
+  if (want_episodes && !WriteEpisodes(options.alerts, episodes, error)) return 1;
+  summary.series = static_cast<long>(series.size());
+  summary.actuals = rows;
+  for (const config::Policy& p : settings.policies)
+    for (const auto& rule : p.spec.rules) summary.alerts_opened[p.name + "/" + rule.name] = 0;
+  for (const auto& [policy, counts] : opened_counts)
+    for (std::size_t i = 0; i < counts.size(); ++i)
+      summary.alerts_opened[policy->name + "/" + policy->spec.rules[i].name] += counts[i];
+  summary.seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  return 0;
+}
+
+std::string FormatReplaySummary(const ReplaySummary& s) {
+  std::ostringstream out;
+  char rate[64];
+  std::snprintf(rate, sizeof rate, "%.3f s, %.0f actuals/s", s.seconds,
+                s.seconds > 0 ? static_cast<double>(s.actuals) / s.seconds : 0.0);
+  out << "replay: " << s.series << " series, " << s.actuals << " actuals, " << rate << '\n';
+  out << "alerts opened by rule:";
+  if (s.alerts_opened.empty()) out << " (no rules)";
+  out << '\n';
+  for (const auto& [rule, count] : s.alerts_opened) out << "  " << rule << ": " << count << '\n';
+  return out.str();
+}
+
+}  // namespace forewarden

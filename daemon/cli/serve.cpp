@@ -1,0 +1,288 @@
+#include "daemon/cli/serve.h"
+
+#include <atomic>
+#include <chrono>
+#include <sys/stat.h>
+
+#include <condition_variable>
+#include <csignal>
+#include <thread>
+#include <cstdlib>
+#include <ctime>
+#include <fstream>
+#include <iostream>
+#include <mutex>
+#include <sstream>
+
+#include "config/load.h"
+#include "daemon/api/api.h"
+#include "daemon/feeds/drop_folder.h"
+#include "daemon/notify/delivery.h"
+#include "daemon/engine/engine.h"
+#include "daemon/common/log.h"
+#include "daemon/observe/metrics.h"
+#include "daemon/observe/systemd_notify.h"
+#include "daemon/http/http_server.h"
+
+namespace forewarden {
+
+bool SplitListen(const std::string& listen, std::string& host, std::uint16_t& port) {
+  const std::size_t colon = listen.rfind(':');
+  if (colon == std::string::npos || colon + 1 >= listen.size()) return false;
+  host = listen.substr(0, colon);
+  if (host.size() >= 2 && host.front() == '[' && host.back() == ']') host = host.substr(1, host.size() - 2);
+  if (host.empty()) return false;
+  const std::string digits = listen.substr(colon + 1);
+  if (digits.find_first_not_of("0123456789") != std::string::npos || digits.size() > 5) return false;
+  const long p = std::stol(digits);
+  if (p > 65535) return false;
+  port = static_cast<std::uint16_t>(p);
+  return true;
+}
+
+bool IsLoopback(const std::string& host) {
+  return host == "localhost" || host == "::1" || host.rfind("127.", 0) == 0;
+}
+
+namespace {
+
+void Log(std::ostream& err, const std::string& line, const char* level = "info") {
+  WriteLog(err, LogLine(level, line));
+}
+
+// The bearer token from the file or environment variable the settings name ("" = none).
+bool LoadToken(const config::Server& s, std::string& token, std::string& error) {
+  token.clear();
+  if (!s.token_file.empty()) {
+    std::ifstream in(s.token_file);
+    if (!in) {
+      error = "server.token_file: cannot read " + s.token_file;
+      return false;
+    }
+    std::getline(in, token);
+  } else if (!s.token_env.empty()) {
+    const char* v = std::getenv(s.token_env.c_str());
+    if (!v) {
+      error = "server.token_env: the environment variable " + s.token_env + " is not set";
+      return false;
+    }
+    token = v;
+  }
+  while (!token.empty() && (token.back() == '\r' || token.back() == ' ' || token.back() == '\n'))
+    token.pop_back();
+  if ((!s.token_file.empty() || !s.token_env.empty()) && token.size() < 16) {
+    error = "the bearer token must be at least 16 characters";
+    return false;
+  }
+  return true;
+}
+
+bool LoadSettings(const ServeOptions& o, std::shared_ptr<const config::Settings>& out, std::string& error) {
+  config::LoadResult r = config::LoadSettingsFile(o.config);
+  if (!r.ok()) {
+    std::ostringstream msg;
+    for (const auto& p : r.problems) msg << p.ToString() << "\n";
+    msg << r.problems.size() << (r.problems.size() == 1 ? " problem" : " problems") << " in " << o.config;
+    error = msg.str();
+    return false;
+  }
+  if (!o.listen.empty()) r.settings.server.listen = o.listen;
+  if (!o.data.empty()) r.settings.server.data = o.data;
+  out = std::make_shared<const config::Settings>(std::move(r.settings));
+  return true;
+}
+
+}  // namespace
+
+int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
+  std::shared_ptr<const config::Settings> settings;
+  std::string error;
+  if (!LoadSettings(o, settings, error)) {
+    err << error << '\n';
+    return 2;
+  }
+  const config::Server& srv = settings->server;
+  std::string host;
+  std::uint16_t port = 0;
+  if (!SplitListen(srv.listen, host, port)) {
+    err << "forewarden serve: listen address '" << srv.listen << "' is not HOST:PORT\n";
+    return 2;
+  }
+  std::string token;
+  if (!LoadToken(srv, token, error)) {
+    err << "forewarden serve: " << error << '\n';
+    return 2;
+  }
+  if (!IsLoopback(host) && token.empty()) {
+    err << "forewarden serve: refusing to listen on " << host
+        << " without a bearer token: set server.token_file or server.token_env, or listen on "
+           "127.0.0.1\n";
+    return 2;
+  }
+
+  const auto wall_clock = [] {
+    return std::chrono::duration_cast<std::chrono::milliseconds>(
+               std::chrono::system_clock::now().time_since_epoch())
+        .count();
+  };
+  Engine engine(settings, wall_clock);
+  Delivery delivery(settings, wall_clock);
+  Metrics metrics;
+  engine.OnOutbox([&delivery] { delivery.Notify(); });
+  engine.OnCommit([&metrics](double seconds) { metrics.ObserveCommit(seconds); });
+  if (!engine.Start(error)) {
+    err << "forewarden serve: " << error << '\n';
+    return 1;
+  }
+  // Undelivered events from before a stop or a crash go out first.
+  if (!delivery.Start(error)) {
+    err << "forewarden serve: " << error << '\n';
+    engine.Stop();
+    return 1;
+  }
+  Api api(engine, settings, token, &metrics);
+  HttpOptions http;
+  http.host = host;
+  http.port = port;
+  http.max_body_bytes = static_cast<std::size_t>(srv.max_body_bytes);
+  http.max_connections = static_cast<std::size_t>(srv.max_connections);
+  http.header_timeout = std::chrono::seconds(srv.header_timeout_seconds);
+  http.idle_timeout = std::chrono::seconds(srv.idle_timeout_seconds);
+  HttpServer server(http, [&api](HttpRequest&& r, Respond respond) { api.Handle(std::move(r), std::move(respond)); });
+  if (!server.Start(error)) {
+    err << "forewarden serve: " << error << '\n';
+    engine.Stop();
+    delivery.Stop();
+    return 1;
+  }
+  std::unique_ptr<DropFolder> folder;
+  if (!srv.folder.empty()) {
+    folder = std::make_unique<DropFolder>(engine, srv.folder,
+                                          IngestLimits{srv.max_rows_per_batch, static_cast<std::size_t>(srv.max_key_bytes),
+                                                       static_cast<std::size_t>(srv.max_labels),
+                                                       static_cast<std::size_t>(srv.max_label_bytes)},
+                                          std::chrono::milliseconds(srv.folder_poll_ms),
+                                          [&err](const std::string& line) { Log(err, line); });
+    if (!folder->Start(error)) {
+      err << "forewarden serve: " << error << '\n';
+      server.Shutdown(std::chrono::seconds(0));
+      server.Run();
+      engine.Stop();
+      delivery.Stop();
+      return 1;
+    }
+  }
+  std::atomic<long> reloads_ok{0}, reloads_failed{0};  // server and engine threads count them
+  metrics.SetSources(MetricSources{&engine, &server.counters(), &api.counters(),
+                                   folder ? &folder->counters() : nullptr, &delivery, &reloads_ok,
+                                   &reloads_failed});
+  bool stopping = false;
+  const std::chrono::seconds grace(srv.shutdown_grace_seconds);
+  server.OnSignals([&](int signo) {
+    if (signo == SIGHUP) {
+      std::shared_ptr<const config::Settings> next;
+      std::string why;
+      if (!LoadSettings(o, next, why)) {
+        ++reloads_failed;
+        Log(err, "reload refused, the settings in force stay:\n" + why, "warn");
+        return;
+      }
+      std::string next_token;
+      if (!LoadToken(next->server, next_token, why)) {
+        ++reloads_failed;
+        Log(err, "reload refused, the settings in force stay: " + why, "warn");
+        return;
+      }
+      // Series keep their policy by name; a policy holding series must stay with the same
+      // period, method and season length. Checked on the engine thread, then swapped there.
+      const bool queued = engine.Post([&, next, next_token] {
+        std::string problem;
+        engine.ForEachSeries([&](const SeriesView& v) {
+          if (!problem.empty()) return;
+          const config::Policy* np = nullptr;
+          for (const auto& p : next->policies)
+            if (p.name == v.policy) np = &p;
+          if (!np)
+            problem = "policy '" + v.policy + "' holds series (e.g. '" + std::string(v.key) + "') but is gone";
+          else if (np->period != v.spec->period || np->spec.method != v.spec->spec.method ||
+                   np->spec.constants.season_length != v.spec->spec.constants.season_length)
+            problem = "policy '" + v.policy + "' changed its period, method or season length; "
+                      "that needs a new policy name";
+        });
+        if (!problem.empty()) {
+          ++reloads_failed;
+          Log(err, "reload refused, the settings in force stay: " + problem, "warn");
+          return;
+        }
+        if (!delivery.Update(next, problem)) {
+          ++reloads_failed;
+          Log(err, "reload refused, the settings in force stay: " + problem, "warn");
+          return;
+        }
+        engine.Reload(next);
+        api.Update(next, next_token);
+        ++reloads_ok;
+        NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(next->policies.size()) + " policies");
+        Log(err, "reloaded " + o.config + " (" + std::to_string(next->policies.size()) + " policies)");
+      });
+      if (!queued) {
+        ++reloads_failed;
+        Log(err, "reload refused: the engine queue is full", "warn");
+      }
+      return;
+    }
+    if (stopping) {
+      Log(err, "second signal: exiting at once", "warn");
+      std::_Exit(1);
+    }
+    stopping = true;
+    NotifyServiceManager("STOPPING=1");
+    Log(err, "stopping: no new connections, finishing requests in flight (grace " +
+                 std::to_string(grace.count()) + " s)");
+    server.Shutdown(grace);
+  });
+  out << "forewarden: listening on " << (host.find(':') != std::string::npos ? "[" + host + "]" : host)
+      << ":" << server.port() << std::endl;
+  if (engine.recovered_series())
+    Log(err, "recovered " + std::to_string(engine.recovered_series()) +
+                 " series by replaying actuals committed after their last saved state");
+  Log(err, "serving " + std::to_string(settings->policies.size()) + " policies from " + o.config +
+               ", data in " + srv.data);
+  if (!srv.token_file.empty()) {
+    struct stat st {};
+    if (stat(srv.token_file.c_str(), &st) == 0 && (st.st_mode & (S_IROTH | S_IWOTH)))
+      Log(err,
+          "the token file " + srv.token_file +
+              " is readable or writable by other users; chmod o-rw it (the token itself is never logged)",
+          "warn");
+  }
+  NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(settings->policies.size()) +
+                       " policies");
+  // Watchdog: the ping goes through the engine's queue, so a stuck engine stops the pings and
+  // the service manager restarts the service.
+  std::mutex watchdog_mu;
+  std::condition_variable watchdog_wake;
+  bool watchdog_stop = false;
+  std::thread watchdog;
+  if (const auto interval = WatchdogInterval(); interval.count() > 0) {
+    watchdog = std::thread([&, interval] {
+      std::unique_lock lock(watchdog_mu);
+      while (!watchdog_wake.wait_for(lock, interval / 2, [&] { return watchdog_stop; }))
+        engine.Post([] { NotifyServiceManager("WATCHDOG=1"); });
+    });
+  }
+  server.Run();
+  {
+    std::lock_guard lock(watchdog_mu);
+    watchdog_stop = true;
+  }
+  watchdog_wake.notify_all();
+  if (watchdog.joinable()) watchdog.join();
+  if (folder) folder->Stop();
+  engine.Stop();
+  delivery.Stop();
+  Log(err, "stopped");
+  return 0;
+}
+
+}  // namespace forewarden

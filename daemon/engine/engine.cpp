@@ -1,0 +1,1021 @@
+#include "daemon/engine/engine.h"
+
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+
+namespace forewarden {
+namespace {
+
+constexpr std::size_t kMaxProblems = 100;
+constexpr std::size_t kMaxGroup = 64;  // batches committed together at most
+
+// Whether a stored state can run under a policy (reloads and restarts must not change a
+// series' method or season length under it).
+bool Compatible(const monitors::SeriesState& s, const config::Policy& p) {
+  if (!s.started) return true;
+  if (monitors::IsSeasonal(p.spec.method))
+    return s.model.season.size() == static_cast<std::size_t>(p.spec.constants.season_length);
+  return s.model.season.empty();
+}
+
+// The policy's constants apply to its series (after a reload and at start-up), except where a
+// series owns them: fitted constants (start rule "fitted") and an adaptive alpha (it moves by
+// itself).
+void FitConstants(monitors::SeriesState& s, const config::Policy& p) {
+  const monitors::PolicySpec& spec = p.spec;
+  const bool fitted = spec.start.kind == monitors::StartKind::kFitted && !monitors::IsIntermittent(spec.method);
+  if (!fitted) s.own.reset();
+  if (!fitted && !spec.adaptive.enabled) s.alpha = spec.constants.alpha;
+}
+
+// A re-level (README, reset): the level takes the new value; the smoothed and cumulative errors
+// start again from zero.
+// Rules start again too: a reset ends every episode (its alerts resolve with reason "reset").
+void Relevel(monitors::SeriesState& s, double level) {
+  s.model.level = level;
+  s.stats.smoothed_error = 0.0;
+  s.stats.cusum = 0.0;
+  for (auto& r : s.rules) r = monitors::RuleState{};
+  s.active = 0;
+}
+
+// Applies the re-levels recorded right after the actual of `period` (adjustments in period
+// order; `next` walks through them).
+void ApplyAdjustments(monitors::SeriesState& s, const std::vector<Adjustment>& adjustments,
+                      std::size_t& next, std::int64_t period) {
+  for (; next < adjustments.size() && adjustments[next].period <= period; ++next)
+    if (adjustments[next].period == period) Relevel(s, adjustments[next].level);
+}
+
+void FitRules(monitors::SeriesState& s, const config::Policy& p) {
+  if (s.rules.size() != p.spec.rules.size()) {
+    s.rules.resize(p.spec.rules.size());
+    s.active &= p.spec.rules.size() >= 64 ? ~0ULL : ((1ULL << p.spec.rules.size()) - 1);
+  }
+}
+
+}  // namespace
+
+Engine::Engine(std::shared_ptr<const config::Settings> settings, Clock clock)
+    : settings_(std::move(settings)),
+      queue_depth_(static_cast<std::size_t>(settings_->server.queue_depth)),
+      clock_(std::move(clock)) {}
+
+Engine::~Engine() { Stop(); }
+
+bool Engine::Start(std::string& error) {
+  const config::Server& srv = settings_->server;
+  if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull, srv.max_database_bytes,
+                   srv.cache_bytes)) {
+    error = "store: " + store_.error();
+    return false;
+  }
+  std::string problem;
+  std::vector<std::size_t> stale_states;
+  std::int64_t count = 0;
+  if (!store_.CountSeries(count)) {
+    error = "store: " + store_.error();
+    return false;
+  }
+  index_.Reserve(static_cast<std::size_t>(count) + 1024);
+  const bool loaded = store_.LoadSeries([&](StoredSeries&& row) {
+    const config::Policy* policy = nullptr;
+    for (const auto& p : settings_->policies)
+      if (p.name == row.policy) policy = &p;
+    if (!policy) {
+      if (problem.empty())
+        problem = "series '" + row.key + "' belongs to policy '" + row.policy +
+                  "', which the settings no longer have";
+      return;
+    }
+    if (!Compatible(row.state, *policy)) {
+      if (problem.empty())
+        problem = "series '" + row.key + "': policy '" + row.policy +
+                  "' changed its method or season length; the stored state does not fit it";
+      return;
+    }
+    Series s;
+    s.id = row.id;
+    s.key = keys_.Add(row.key);
+    s.labels = InternLabels(row.labels);
+    s.policy = policy;
+    s.state = std::move(row.state);
+    FitRules(s.state, *policy);
+    FitConstants(s.state, *policy);
+    s.retained = static_cast<std::int32_t>(row.retained);
+    const bool behind = row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
+    series_.push_back(std::move(s));
+    if (behind) stale_states.push_back(series_.size() - 1);
+    index_.Insert(series_.back().key, series_.size() - 1);
+  });
+  if (!loaded) {
+    error = "store: " + store_.error();
+    return false;
+  }
+  if (!problem.empty()) {
+    error = problem;
+    return false;
+  }
+  // States are written lazily (README, "Durability"): after a crash some lag their actuals.
+  // Replaying the newer actuals with the same step brings them to where they were.
+  if (!stale_states.empty()) {
+    if (!store_.Begin()) {
+      error = "store: " + store_.error();
+      return false;
+    }
+    for (std::size_t i : stale_states) {
+      Series& s = series_[i];
+      std::vector<StoredActual> newer;
+      const std::int64_t from = s.state.seen ? s.state.last_period + 1 : INT64_MIN;
+      if (!store_.Actuals(s.id, from, INT64_MAX, newer)) {
+        error = "store: " + store_.error();
+        return false;
+      }
+      monitors::StepResult r;
+      for (const StoredActual& a : newer)
+        if (monitors::Step(s.policy->spec, s.state, a.period, a.value, r) != monitors::StepStatus::kOk) {
+          error = "series '" + std::string(s.key) + "': its stored actuals cannot be replayed";
+          return false;
+        }
+      if (!store_.UpdateState(s.id, s.state)) {
+        error = "store: " + store_.error();
+        return false;
+      }
+    }
+    if (!store_.Commit()) {
+      error = "store: " + store_.error();
+      return false;
+    }
+    recovered_ = static_cast<long>(stale_states.size());
+  }
+  if (!OpenAlerts(error)) return false;
+  dirty_.assign(series_.size(), 0);
+  last_flush_ms_ = last_housekeeping_ms_ = clock_();
+  thread_ = std::thread([this] { Run(); });
+  return true;
+}
+
+bool Engine::OpenAlerts(std::string& error) {
+  // Series ids increase with the index (loaded in id order, created in order): binary search,
+  // no map of a million entries at start-up.
+  const auto index_of = [this](std::int64_t id) -> long {
+    std::size_t lo = 0, hi = series_.size();
+    while (lo < hi) {
+      const std::size_t mid = lo + (hi - lo) / 2;
+      if (series_[mid].id < id)
+        lo = mid + 1;
+      else
+        hi = mid;
+    }
+    return lo < series_.size() && series_[lo].id == id ? static_cast<long>(lo) : -1L;
+  };
+  if (!alerts_.Open(store_.db(), index_of, error)) {
+    error = "store: alerts: " + error;
+    return false;
+  }
+  alerts_.Configure(*settings_);
+  alerts_.Index(
+      [&](long index, const std::string& rule) -> std::optional<std::pair<std::size_t, std::size_t>> {
+        const auto& rules = series_[static_cast<std::size_t>(index)].policy->spec.rules;
+        for (std::size_t r = 0; r < rules.size(); ++r)
+          if (rules[r].name == rule) return std::pair{static_cast<std::size_t>(index), r};
+        return std::nullopt;
+      },
+      [&](long index, const std::string& text) -> std::int64_t {
+        const auto parsed = monitors::ParsePeriod(series_[static_cast<std::size_t>(index)].policy->period, text);
+        return parsed.ok() ? parsed.ordinal : INT64_MAX;
+      });
+  return true;
+}
+
+AlertSeries Engine::Info(std::size_t index) const {
+  const Series& s = series_[index];
+  return AlertSeries{s.id, std::string(s.key), s.policy};
+}
+
+void Engine::CollectChanges(std::size_t index, const monitors::StepResult& r, std::int64_t period,
+                            std::vector<AlertChange>& out) const {
+  const std::uint64_t any = r.episodes_opened | r.episodes_escalated | r.episodes_resolved;
+  if (!any) return;
+  const Series& s = series_[index];
+  const auto& rules = s.policy->spec.rules;
+  for (std::size_t i = 0; i < rules.size(); ++i) {
+    const std::uint64_t bit = std::uint64_t{1} << i;
+    if (!(any & bit)) continue;
+    AlertChange c;
+    c.series = index;
+    c.rule = i;
+    c.period = period;
+    if (monitors::StepSignal(rules[i].signal)) c.value = monitors::RuleValue(rules[i], r, s.state);
+    c.severity = monitors::EpisodeSeverity(rules[i], s.state.rules[i]);
+    // an episode that ended in this step (a stale gap) opened in it too: both are recorded
+    if (r.episodes_opened & bit) {
+      c.kind = AlertChange::Kind::kOpened;
+      if (r.episodes_resolved & bit) c.severity = rules[i].severity;
+      out.push_back(c);
+    }
+    if (r.episodes_escalated & bit) {
+      c.kind = AlertChange::Kind::kEscalated;
+      out.push_back(c);
+    }
+    if (r.episodes_resolved & bit) {
+      c.kind = AlertChange::Kind::kResolved;
+      c.reason = "clear";
+      out.push_back(c);
+    }
+  }
+}
+
+bool Engine::AlertAction(const std::function<bool(AlertBook&, std::int64_t, int&, std::string&)>& action,
+                         int& status, std::string& error) {
+  const std::string sticky = failure();
+  if (!sticky.empty()) {
+    status = 503;
+    error = sticky;
+    return false;
+  }
+  if (!store_.Begin()) {
+    Fail("store: " + store_.error());
+    status = 503;
+    error = failure();
+    return false;
+  }
+  const std::size_t mark = alerts_.Mark();
+  status = 200;
+  if (!action(alerts_, clock_(), status, error)) {
+    store_.Rollback();
+    alerts_.RollbackTo(mark);
+    if (status == 500) {
+      Fail("store: alerts: " + error);
+      status = 503;
+      error = failure();
+    }
+    return false;
+  }
+  if (!store_.Commit()) {
+    Fail("store: commit: " + store_.error());
+    store_.Rollback();
+    alerts_.RollbackTo(mark);
+    status = 503;
+    error = failure();
+    return false;
+  }
+  alerts_.Forget();
+  if (on_outbox_) on_outbox_();
+  return true;
+}
+
+void Engine::Housekeeping() {
+  const std::int64_t now = clock_();
+  if (now - last_housekeeping_ms_ < settings_->alerts.check_seconds * 1000) return;
+  last_housekeeping_ms_ = now;
+  if (!failure().empty()) return;
+  // Stale rules: series whose actuals are overdue (policies with stale rules only; their
+  // current period is worked out once per policy).
+  std::unordered_map<const config::Policy*, monitors::PeriodOrdinal> current;
+  const std::int64_t today = Today();
+  for (const config::Policy& p : settings_->policies)
+    for (const monitors::RuleSpec& r : p.spec.rules)
+      if (r.signal == monitors::SignalKind::kStale) current[&p] = monitors::PeriodOfDay(p.period, today);
+  if (current.empty() && !alerts_.AnySnoozed()) return;  // nothing to check: no transaction
+  std::vector<AlertChange> changes;
+  struct Saved {
+    std::size_t index;
+    monitors::RuleStates rules;  // CheckStale changes only the rule states
+    std::uint64_t active;
+  };
+  std::vector<Saved> before;
+  for (std::size_t i = 0; !current.empty() && i < series_.size(); ++i) {
+    Series& s = series_[i];
+    auto it = current.find(s.policy);
+    if (it == current.end() || !s.state.seen) continue;
+    const std::int64_t overdue = it->second - s.state.last_period - 1;
+    if (overdue <= 0) continue;
+    monitors::StepResult r;
+    Saved saved{i, s.state.rules, s.state.active};
+    monitors::CheckStale(s.policy->spec, s.state, static_cast<long>(overdue), r);
+    if (r.episodes_opened) {
+      before.push_back(std::move(saved));
+      CollectChanges(i, r, s.state.last_period + overdue, changes);
+      MarkDirty(i);
+    }
+  }
+  const std::size_t mark = alerts_.Mark();
+  AlertCounts counts;
+  const bool ok = store_.Begin() && alerts_.Apply(changes, [this](std::size_t i) { return Info(i); }, now, counts) &&
+                  alerts_.WakeSnoozed(now, counts) &&
+                  store_.Commit();
+  if (!ok) {
+    Fail("store: alerts: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
+    store_.Rollback();
+    alerts_.RollbackTo(mark);
+    for (Saved& b : before) {
+      series_[b.index].state.rules = std::move(b.rules);
+      series_[b.index].state.active = b.active;
+    }
+    return;
+  }
+  alerts_.Forget();
+  Committed(counts);
+}
+
+void Engine::Stop() {
+  {
+    std::lock_guard lock(mu_);
+    stopping_ = true;
+  }
+  wake_.notify_all();
+  if (thread_.joinable()) {
+    thread_.join();
+    if (dirty_count_ && failure().empty()) {
+      if (store_.Begin() && FlushDirty() && store_.Commit())
+        ClearDirty();
+      else
+        store_.Rollback();  // the actuals are committed: the next start replays them
+    }
+  }
+}
+
+std::uint32_t Engine::InternLabels(const std::string& json) {
+  auto it = label_ids_.find(json);
+  if (it != label_ids_.end()) return it->second;
+  label_sets_.push_back(json);
+  const auto id = static_cast<std::uint32_t>(label_sets_.size() - 1);
+  label_ids_.emplace(json, id);
+  return id;
+}
+
+void Engine::MarkDirty(std::size_t index) {
+  if (dirty_.size() < series_.size()) dirty_.resize(series_.size(), 0);
+  if (!dirty_[index]) {
+    dirty_[index] = 1;
+    ++dirty_count_;
+  }
+}
+
+bool Engine::FlushDirty() {
+  // A flag scan (a byte a series) rather than a list: no memory per dirty series.
+  const std::size_t n = std::min(dirty_.size(), series_.size());  // rolled-back series are gone
+  for (std::size_t i = 0; i < n; ++i) {
+    if (!dirty_[i]) continue;
+    if (!store_.UpdateState(series_[i].id, series_[i].state)) {
+      Fail("store: " + store_.error());
+      return false;
+    }
+  }
+  return true;
+}
+
+void Engine::ClearDirty() {
+  std::fill(dirty_.begin(), dirty_.end(), 0);
+  dirty_count_ = 0;
+  last_flush_ms_ = clock_();
+}
+
+bool Engine::Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)> done) {
+  {
+    std::lock_guard lock(mu_);
+    if (stopping_ || queue_.size() >= queue_depth_) return false;
+    Job job;
+    job.rows = std::move(rows);
+    job.done = std::move(done);
+    queue_.push_back(std::move(job));
+  }
+  wake_.notify_one();
+  return true;
+}
+
+bool Engine::Post(std::function<void()> read) {
+  {
+    std::lock_guard lock(mu_);
+    if (stopping_ || queue_.size() >= queue_depth_) return false;
+    Job job;
+    job.read = std::move(read);
+    queue_.push_back(std::move(job));
+  }
+  wake_.notify_one();
+  return true;
+}
+
+bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
+  return Post([this, settings] {
+    // Series move to the policy of the same name; the checks in serve's reload path make sure
+    // that such a policy exists and keeps its method and season length.
+    for (std::size_t i = 0; i < series_.size(); ++i) {
+      Series& s = series_[i];
+      for (const auto& p : settings->policies)
+        if (p.name == s.policy->name) {
+          s.policy = &p;
+          FitRules(s.state, p);
+          FitConstants(s.state, p);
+        }
+    }
+    settings_ = settings;
+    std::string error;
+    if (!OpenAlerts(error)) Fail(error);  // rule indexes may have moved: place alerts again
+  });
+}
+
+std::string Engine::failure() const {
+  std::lock_guard lock(mu_);
+  return failure_;
+}
+
+std::size_t Engine::queue_depth() const {
+  std::lock_guard lock(mu_);
+  return queue_.size();
+}
+
+void Engine::Fail(const std::string& why) {
+  std::lock_guard lock(mu_);
+  if (failure_.empty()) failure_ = why;
+}
+
+void Engine::Run() {
+  for (;;) {
+    std::vector<Job> group;
+    {
+      std::unique_lock lock(mu_);
+      const auto flush_every = std::chrono::seconds(std::max<long>(1, settings_->server.state_flush_seconds));
+      if (!wake_.wait_for(lock, flush_every, [this] { return stopping_ || !queue_.empty(); })) {
+        lock.unlock();
+        Housekeeping();
+        // idle: write the states that are waiting
+        if (dirty_count_ && failure().empty()) {
+          if (store_.Begin() && FlushDirty() && store_.Commit()) {
+            ClearDirty();
+          } else {
+            Fail("store: " + store_.error());
+            store_.Rollback();
+          }
+        }
+        continue;
+      }
+      if (queue_.empty()) return;  // stopping and drained
+      // A run of batches commits together; a read job or a reload ends the run.
+      while (!queue_.empty() && group.size() < kMaxGroup) {
+        const bool is_batch = static_cast<bool>(queue_.front().done);
+        if (!is_batch && !group.empty()) break;
+        group.push_back(std::move(queue_.front()));
+        queue_.pop_front();
+        if (!is_batch) break;
+      }
+    }
+    if (!group.front().done) {
+      if (group.front().read) group.front().read();
+      continue;
+    }
+    const std::size_t group_mark = alerts_.Mark();
+    std::vector<Pending> pending(group.size());
+    for (std::size_t i = 0; i < group.size(); ++i) pending[i].job = std::move(group[i]);
+    const std::string sticky = failure();
+    if (!sticky.empty()) {
+      for (Pending& p : pending) {
+        ++counters_.batches_unavailable;
+        p.reply.status = IngestReply::Status::kUnavailable;
+        p.reply.error = sticky;
+        p.job.done(std::move(p.reply));
+      }
+      continue;
+    }
+    if (!store_.Begin()) {
+      Fail("store: begin: " + store_.error());
+    } else {
+      for (Pending& p : pending) ApplyBatch(p);
+      const config::Server& srv = settings_->server;
+      const bool flush = failure().empty() &&
+                         (static_cast<long>(dirty_count_) >= srv.state_flush_series ||
+                          clock_() - last_flush_ms_ >= srv.state_flush_seconds * 1000);
+      if (flush) FlushDirty();
+      const auto commit_start = std::chrono::steady_clock::now();
+      if (failure().empty() && !store_.Commit()) Fail("store: commit: " + store_.error());
+      if (on_commit_ && failure().empty())
+        on_commit_(std::chrono::duration<double>(std::chrono::steady_clock::now() - commit_start).count());
+      if (flush && failure().empty()) ClearDirty();
+    }
+    const std::string failed = failure();
+    if (!failed.empty()) {
+      store_.Rollback();
+      alerts_.RollbackTo(group_mark);
+      // Undo in reverse order: later batches saw the earlier ones' states.
+      for (auto it = pending.rbegin(); it != pending.rend(); ++it) {
+        if (it->reply.status == IngestReply::Status::kOk) Rewind(*it);
+        it->reply.status = IngestReply::Status::kUnavailable;
+        it->reply.error = failed;
+        ++counters_.batches_unavailable;
+      }
+    } else {
+      alerts_.Forget();
+      AlertCounts committed;
+      const std::int64_t now = clock_();
+      for (const Pending& p : pending) {
+        if (p.reply.status == IngestReply::Status::kOk) {
+          for (const config::Policy* policy : p.policies) last_arrival_[policy->name] = now;
+          for (const auto& [policy, sum] : p.bias) bias_[policy].Add(sum.period, sum.errors, sum.actuals);
+          committed.opened += p.alert_counts.opened;
+          committed.escalated += p.alert_counts.escalated;
+          committed.resolved += p.alert_counts.resolved;
+          committed.grouped += p.alert_counts.grouped;
+          committed.notified += p.alert_counts.notified;
+          counters_.applied += p.reply.counts.applied;
+          counters_.unchanged += p.reply.counts.unchanged;
+          counters_.restated += p.reply.counts.restated;
+          ++counters_.batches_ok;
+        } else {
+          counters_.rejected_rows += p.reply.counts.rows;
+          ++counters_.batches_rejected;
+        }
+      }
+      Committed(committed);
+    }
+    for (Pending& p : pending) p.job.done(std::move(p.reply));
+    Housekeeping();
+  }
+}
+
+void Engine::Rewind(Pending& p) {
+  for (auto it = p.undo.rbegin(); it != p.undo.rend(); ++it) {
+    if (it->index >= p.series_before) continue;
+    Series& s = series_[it->index];
+    s.state = std::move(it->state);
+    s.retained = it->retained;
+  }
+  while (series_.size() > p.series_before) {
+    index_.Erase(series_.back().key);
+    series_.pop_back();
+  }
+  p.undo.clear();
+}
+
+void Engine::ApplyBatch(Pending& p) {
+  p.series_before = series_.size();
+  p.alert_mark = alerts_.Mark();
+  p.reply.counts.rows = static_cast<long>(p.job.rows.size());
+  if (!store_.Savepoint()) {
+    Fail("store: savepoint: " + store_.error());
+    return;
+  }
+  // Per-series "touched in this batch" flags live across batches (no allocation per batch);
+  // they are cleared through the list when the batch is done.
+  std::vector<char>& touched = touched_;
+  if (touched.size() < series_.size()) touched.resize(series_.size(), 0);
+  std::vector<std::size_t> touched_list;
+  struct ClearTouched {
+    std::vector<char>& flags;
+    std::vector<std::size_t>& list;
+    ~ClearTouched() {
+      for (std::size_t i : list)
+        if (i < flags.size()) flags[i] = 0;
+    }
+  } clear_touched{touched, touched_list};
+  std::unordered_map<std::string, bool> bad_series;
+  bool store_failed = false;
+  for (const IngestRow& row : p.job.rows) {
+    if (bad_series.count(row.series)) continue;  // one problem per series is enough
+    if (!ApplyRow(row, p, touched, touched_list, store_failed)) bad_series[row.series] = true;
+    if (store_failed) break;
+  }
+  if (store_failed) return;  // Run() rolls everything back
+  if (p.reply.problem_count == 0) {
+    for (std::size_t i : touched_list) {
+      Series& s = series_[i];
+      bool trimmed = false;
+      if (!Trim(s, trimmed)) {
+        Fail("store: " + store_.error());
+        return;
+      }
+      // A restated or trimmed series is written now: replaying newer actuals at start could
+      // not reproduce it. Others wait for the next flush.
+      if (trimmed || p.must_write.count(i)) {
+        if (!store_.UpdateState(s.id, s.state)) {
+          Fail("store: " + store_.error());
+          return;
+        }
+      } else {
+        MarkDirty(i);
+      }
+    }
+    // Alert changes go into the same transaction as the actuals that caused them.
+    const auto info = [this](std::size_t i) { return Info(i); };
+    const std::int64_t now = clock_();
+    AlertCounts counts;
+    bool ok = alerts_.Apply(p.alert_changes, info, now, counts);
+    for (std::size_t k = 0; ok && k < touched_list.size(); ++k) {
+      const std::size_t i = touched_list[k];
+      ok = alerts_.WakeSnoozedAt(i, series_[i].state.last_period, info, now, counts);
+    }
+    if (!ok) {
+      Fail("store: alerts: " + alerts_.error());
+      return;
+    }
+    p.reply.counts.alerts_opened = counts.opened;
+    p.reply.counts.alerts_resolved = counts.resolved;
+    p.alert_counts = counts;  // counted once the group commits
+    if (!store_.ReleaseSavepoint()) Fail("store: release: " + store_.error());
+    return;
+  }
+  p.reply.status = IngestReply::Status::kRejected;
+  p.reply.counts = IngestCounts{};
+  p.reply.counts.rows = static_cast<long>(p.job.rows.size());
+  if (!store_.RollbackToSavepoint()) Fail("store: rollback: " + store_.error());
+  alerts_.RollbackTo(p.alert_mark);
+  p.alert_changes.clear();
+  p.bias.clear();
+  Rewind(p);
+}
+
+bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched,
+                      std::vector<std::size_t>& touched_list, bool& store_failed) {
+  auto problem = [&](const char* field, std::string message) {
+    ++p.reply.problem_count;
+    if (p.reply.problems.size() < kMaxProblems)
+      p.reply.problems.push_back({row.line, field, std::move(message)});
+    return false;
+  };
+  auto store_error = [&]() {
+    Fail("store: " + store_.error());
+    store_failed = true;
+    return false;
+  };
+  if (row.series.empty()) return problem("series", "the series key is empty");
+  std::size_t index;
+  const long found_at = index_.Find(row.series);
+  if (found_at < 0) {
+    const config::Policy* policy = config::FindPolicy(*settings_, row.series, row.labels);
+    if (!policy) return problem("series", "no policy matches the series '" + row.series + "'");
+    Series s;
+    s.key = keys_.Add(row.series);
+    const std::string labels = LabelsJson(row.labels);
+    s.labels = InternLabels(labels);
+    s.policy = policy;
+    s.state = monitors::NewSeriesState(policy->spec);
+    if (!store_.InsertSeries(std::string(s.key), policy->name, labels, s.state, s.id))
+      return store_error();
+    index = series_.size();
+    series_.push_back(std::move(s));
+    index_.Insert(series_.back().key, index);
+    if (touched.size() <= index) touched.resize(index + 1, 0);
+    touched[index] = 1;
+    touched_list.push_back(index);
+    ++p.reply.counts.new_series;
+  } else {
+    index = static_cast<std::size_t>(found_at);
+    if (index < touched.size() && !touched[index]) {
+      const Series& s = series_[index];
+      p.undo.push_back({index, s.state, s.retained});
+      touched[index] = 1;
+      touched_list.push_back(index);
+    }
+  }
+  Series& s = series_[index];
+  const config::Policy& policy = *s.policy;
+  const monitors::PeriodParse period = monitors::ParsePeriod(policy.period, row.period);
+  if (!period.ok()) return problem("period", period.error);
+  if (!std::isfinite(row.value)) return problem("value", "the value is not a finite number");
+  // an actual for the policy arrived (new, duplicate or restated): the feed is alive
+  if (std::find(p.policies.begin(), p.policies.end(), &policy) == p.policies.end())
+    p.policies.push_back(&policy);
+
+  if (!s.state.seen || period.ordinal > s.state.last_period) {
+    monitors::StepResult r;
+    std::string why;
+    const monitors::StepStatus st =
+        monitors::Step(policy.spec, s.state, period.ordinal, row.value, r, &why);
+    if (st != monitors::StepStatus::kOk)
+      return problem(st == monitors::StepStatus::kBadValue ? "value" : "period", why);
+    if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
+    ++s.retained;
+    ++p.reply.counts.applied;
+    p.reply.counts.filled += r.filled;
+    CollectChanges(index, r, period.ordinal, p.alert_changes);
+    if (r.has_forecast) {
+      auto it = std::find_if(p.bias.begin(), p.bias.end(), [&](const auto& b) { return b.first == &policy; });
+      if (it == p.bias.end()) it = p.bias.insert(p.bias.end(), {&policy, BiasSum{}});
+      it->second.Add(period.ordinal, r.error, row.value);
+    }
+    return true;
+  }
+  bool found = false;
+  double stored = 0.0;
+  if (!store_.GetActual(s.id, period.ordinal, found, stored)) return store_error();
+  if (found && stored == row.value) {
+    ++p.reply.counts.unchanged;
+    return true;
+  }
+  // The oldest retained period is read only here (restatements are rare): not kept in memory.
+  std::int64_t oldest = 0;
+  bool any = false;
+  if (!store_.OldestActual(s.id, any, oldest)) return store_error();
+  if (!any || period.ordinal < oldest)
+    return problem("period", "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
+                                 " is older than the retained history of '" + std::string(s.key) +
+                                 "' (oldest kept: " +
+                                 (any ? monitors::FormatPeriod(policy.period, oldest)
+                                             : std::string("none")) +
+                                 "); raise the policy's history to restate it");
+  if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
+  if (!found) ++s.retained;
+  monitors::SeriesState recomputed;
+  if (!Recompute(s, nullptr, recomputed)) {
+    if (!failure().empty()) {
+      store_failed = true;
+      return false;
+    }
+    return problem("value", "the restated history cannot be recomputed");
+  }
+  // Episodes the restated history no longer has (or now has) resolve (open) as of the newest
+  // period.
+  monitors::StepResult diff;
+  for (std::size_t i = 0; i < recomputed.rules.size() && i < s.state.rules.size(); ++i) {
+    const std::uint64_t bit = std::uint64_t{1} << i;
+    const monitors::RuleState& was = s.state.rules[i];
+    const monitors::RuleState& now = recomputed.rules[i];
+    if (was.open && !now.open) diff.episodes_resolved |= bit;
+    if (!was.open && now.open) diff.episodes_opened |= bit;
+    if (was.open && now.open && now.escalated && !was.escalated) diff.episodes_escalated |= bit;
+  }
+  s.state = std::move(recomputed);
+  p.must_write.insert(index);
+  const std::size_t first_change = p.alert_changes.size();
+  CollectChanges(index, diff, s.state.last_period, p.alert_changes);
+  for (std::size_t k = first_change; k < p.alert_changes.size(); ++k)
+    if (p.alert_changes[k].kind == AlertChange::Kind::kResolved) p.alert_changes[k].reason = "restated";
+  ++p.reply.counts.restated;
+  return true;
+}
+
+bool Engine::ReplayCheckpoint(const Series& s, std::size_t leave_last,
+                              std::vector<StoredActual>& actuals, monitors::SeriesState& state,
+                              std::vector<HistoryRow>* rows) {
+  std::vector<Adjustment> adjustments;
+  if (!store_.LoadCheckpoint(s.id, state) ||
+      !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) ||
+      !store_.Adjustments(s.id, adjustments)) {
+    Fail("store: " + store_.error());
+    return false;
+  }
+  FitRules(state, *s.policy);
+  FitConstants(state, *s.policy);
+  const std::size_t count = actuals.size() > leave_last ? actuals.size() - leave_last : 0;
+  std::size_t next_adj = 0;
+  for (std::size_t i = 0; i < count; ++i) {
+    const StoredActual& a = actuals[i];
+    monitors::StepResult r;
+    if (rows && state.seen) {
+      // report the gap periods this step will fill, as the chart shows them
+      for (std::int64_t g = state.last_period + 1; g < a.period; ++g)
+        rows->push_back({g, 0.0, false, {}});
+    }
+    if (monitors::Step(s.policy->spec, state, a.period, a.value, r) != monitors::StepStatus::kOk)
+      return false;
+    if (rows) rows->push_back({a.period, a.value, true, r});
+    ApplyAdjustments(state, adjustments, next_adj, a.period);
+  }
+  return true;
+}
+
+bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out) {
+  std::vector<StoredActual> actuals;
+  monitors::SeriesState state;
+  if (!ReplayCheckpoint(s, 0, actuals, state, rows)) return false;
+  out = std::move(state);
+  return true;
+}
+
+bool Engine::Trim(Series& s, bool& trimmed) {
+  trimmed = false;
+  const std::int64_t keep = s.policy->history;
+  const std::int64_t slack = std::max<std::int64_t>(8, keep / 4);
+  if (s.retained <= keep + slack) return true;
+  trimmed = true;
+  // The checkpoint moves past all but the newest `keep` actuals, which are then dropped.
+  std::vector<StoredActual> actuals;
+  monitors::SeriesState checkpoint;
+  if (!ReplayCheckpoint(s, static_cast<std::size_t>(keep), actuals, checkpoint, nullptr)) {
+    Fail("series '" + std::string(s.key) + "': its retained actuals cannot be replayed into the checkpoint");
+    return false;
+  }
+  const std::size_t first_kept = actuals.size() - static_cast<std::size_t>(keep);
+  if (!store_.UpdateCheckpoint(s.id, checkpoint) ||
+      !store_.DropBefore(s.id, actuals[first_kept].period))
+    return false;
+  s.retained = static_cast<std::int32_t>(keep);
+  return true;
+}
+
+std::int64_t Engine::Today() const {
+  const std::int64_t ms = clock_();
+  return ms >= 0 ? ms / 86400000 : -((-ms + 86399999) / 86400000);
+}
+
+bool Engine::IsStale(const Series& s, std::int64_t today) const {
+  if (!s.state.seen) return false;
+  // Periods that have ended since the last actual without one of their own.
+  const monitors::PeriodOrdinal now = monitors::PeriodOfDay(s.policy->period, today);
+  return now - s.state.last_period - 1 >= s.policy->stale_after;
+}
+
+SeriesView Engine::View(const Series& s, std::int64_t today) const {
+  return SeriesView{s.key, s.policy->name, label_sets_[s.labels], &s.state, s.policy,
+                    IsStale(s, today)};
+}
+
+void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {
+  const std::int64_t today = Today();
+  for (std::size_t i = 0; i < series_.size(); ++i) each(View(series_[i], today));
+}
+
+std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {
+  const long pos = index_.Find(key);
+  if (pos < 0) return std::nullopt;
+  return View(series_[static_cast<std::size_t>(pos)], Today());
+}
+
+bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,
+                     std::vector<HistoryRow>& rows, std::string& error) {
+  const long pos = index_.Find(key);
+  if (pos < 0) {
+    error = "no series '" + key + "'";
+    return false;
+  }
+  std::vector<HistoryRow> all;
+  monitors::SeriesState ignored;
+  if (!Recompute(series_[static_cast<std::size_t>(pos)], &all, ignored)) {
+    error = failure().empty() ? "the history cannot be recomputed" : failure();
+    return false;
+  }
+  rows.clear();
+  for (HistoryRow& r : all)
+    if (r.period >= from && r.period <= to) rows.push_back(std::move(r));
+  return true;
+}
+
+bool Engine::Reset(const std::string& key, const std::string& how, double value, int k,
+                   const std::string& who, const std::string& note, double& new_level,
+                   bool& not_found, std::string& error) {
+  not_found = false;
+  const long pos = index_.Find(key);
+  if (pos < 0) {
+    not_found = true;
+    error = "no series '" + key + "'";
+    return false;
+  }
+  Series& s = series_[static_cast<std::size_t>(pos)];
+  if (!s.state.started || !s.state.seen) {
+    error = "the series has no forecast yet; nothing to re-level";
+    return false;
+  }
+  if (monitors::IsIntermittent(s.policy->spec.method)) {
+    error = "croston and sba series cannot be re-leveled";
+    return false;
+  }
+  if (!failure().empty()) {
+    error = failure();
+    return false;
+  }
+  if (how == "value") {
+    new_level = value;
+  } else {
+    std::vector<StoredActual> actuals;
+    if (!store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals)) {
+      Fail("store: " + store_.error());
+      error = failure();
+      return false;
+    }
+    const std::size_t n = how == "last" ? 1 : static_cast<std::size_t>(k);
+    if (actuals.size() < n) {
+      error = "only " + std::to_string(actuals.size()) + " retained actuals, " + std::to_string(n) +
+              " needed";
+      return false;
+    }
+    double sum = 0;
+    for (std::size_t i = actuals.size() - n; i < actuals.size(); ++i) sum += actuals[i].value;
+    new_level = sum / static_cast<double>(n);
+  }
+  if (!std::isfinite(new_level)) {
+    error = "the new level is not a finite number";
+    return false;
+  }
+  const Adjustment adj{s.state.last_period, new_level};
+  const std::string detail = "level " + std::to_string(new_level) + " (" + how + ")" +
+                             (note.empty() ? "" : ": " + note);
+  if (!store_.Begin() || !store_.PutAdjustment(s.id, adj) ||
+      !store_.Audit(clock_(), who, "reset", std::string(s.key), detail)) {
+    Fail("store: " + store_.error());
+    store_.Rollback();
+    error = failure();
+    return false;
+  }
+  monitors::SeriesState next = s.state;
+  Relevel(next, new_level);
+  const std::size_t mark = alerts_.Mark();
+  AlertCounts counts;
+  if (!alerts_.ResolveSeries(static_cast<std::size_t>(pos), "reset", who,
+                             [this](std::size_t i) { return Info(i); }, clock_(), counts) ||
+      !store_.UpdateState(s.id, next) || !store_.Commit()) {
+    Fail("store: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
+    store_.Rollback();
+    alerts_.RollbackTo(mark);
+    error = failure();
+    return false;
+  }
+  alerts_.Forget();
+  s.state = std::move(next);
+  Committed(counts);
+  return true;
+}
+
+void Engine::Committed(const AlertCounts& c) {
+  counters_.alerts_opened += c.opened;
+  counters_.alerts_escalated += c.escalated;
+  counters_.alerts_resolved += c.resolved;
+  counters_.alerts_grouped += c.grouped;
+  if (c.notified && on_outbox_) on_outbox_();
+}
+
+EngineSnapshot Engine::Snapshot() const {
+  EngineSnapshot out;
+  const auto& policies = settings_->policies;
+  std::unordered_map<const config::Policy*, std::size_t> at;
+  for (const config::Policy& p : policies) {
+    at[&p] = out.policies.size();
+    PolicyHealth h;
+    h.policy = p.name;
+    h.trigg_at_most.assign(std::size(kTriggBounds) + 1, 0);
+    h.cusum_at_most.assign(std::size(kCusumBounds) + 1, 0);
+    h.last_actual_ms = LastArrival(p.name);
+    auto b = bias_.find(&p);
+    if (b != bias_.end() && b->second.actuals > 0) {
+      h.has_bias = true;
+      h.bias = b->second.errors / b->second.actuals;
+    }
+    out.policies.push_back(std::move(h));
+  }
+  const std::int64_t today = Today();
+  // per policy: the opted-in top series by |T| (a small heap of K)
+  std::vector<std::vector<PolicyHealth::Top>> top(out.policies.size());
+  auto smaller = [](const PolicyHealth::Top& a, const PolicyHealth::Top& b) {
+    return std::fabs(a.trigg) > std::fabs(b.trigg);
+  };
+  for (std::size_t i = 0; i < series_.size(); ++i) {
+    const Series& s = series_[i];
+    auto found = at.find(s.policy);
+    if (found == at.end()) continue;
+    PolicyHealth& h = out.policies[found->second];
+    const monitors::SeriesState& st = s.state;
+    const SeriesStatus status = StatusOf(st, *s.policy, IsStale(s, today));
+    ++h.series[static_cast<int>(status)];
+    if (Warming(st, *s.policy)) continue;
+    const std::optional<double> t = monitors::TriggSignal(st.stats);
+    const std::optional<double> c = monitors::CusumSignal(st.stats);
+    if (t) {
+      const double v = std::fabs(*t);
+      std::size_t k = 0;
+      while (k < std::size(kTriggBounds) && v > kTriggBounds[k]) ++k;
+      ++h.trigg_at_most[k];
+    }
+    if (c) {
+      const double v = std::fabs(*c);
+      std::size_t k = 0;
+      while (k < std::size(kCusumBounds) && v > kCusumBounds[k]) ++k;
+      ++h.cusum_at_most[k];
+    }
+    const std::size_t k_top = static_cast<std::size_t>(s.policy->export_top_series);
+    if (k_top && t) {
+      auto& heap = top[found->second];
+      heap.push_back({std::string(s.key), *t, c.value_or(0.0)});
+      std::push_heap(heap.begin(), heap.end(), smaller);
+      if (heap.size() > k_top) {
+        std::pop_heap(heap.begin(), heap.end(), smaller);
+        heap.pop_back();
+      }
+    }
+  }
+  for (std::size_t p = 0; p < out.policies.size(); ++p) {
+    PolicyHealth& h = out.policies[p];
+    for (std::size_t k = 1; k < h.trigg_at_most.size(); ++k) h.trigg_at_most[k] += h.trigg_at_most[k - 1];
+    for (std::size_t k = 1; k < h.cusum_at_most.size(); ++k) h.cusum_at_most[k] += h.cusum_at_most[k - 1];
+    std::sort_heap(top[p].begin(), top[p].end(), smaller);
+    h.top = std::move(top[p]);
+  }
+  alerts_.Tally([&](std::size_t index, std::size_t rule, const char* state, monitors::Severity severity) {
+    const Series& s = series_[index];
+    const std::string& rule_name = s.policy->spec.rules[rule].name;
+    for (AlertTally& t : out.alerts)
+      if (t.policy == s.policy->name && t.rule == rule_name && t.state == state &&
+          t.severity == monitors::SeverityName(severity)) {
+        ++t.count;
+        return;
+      }
+    out.alerts.push_back({s.policy->name, rule_name, monitors::SeverityName(severity), state, 1});
+  });
+  return out;
+}
+
+std::int64_t Engine::LastArrival(const std::string& policy) const {
+  auto it = last_arrival_.find(policy);
+  return it == last_arrival_.end() ? 0 : it->second;
+}
+
+}  // namespace forewarden

@@ -1,0 +1,456 @@
+#include "daemon/notify/delivery.h"
+
+#include <openssl/evp.h>
+#include <openssl/hmac.h>
+
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <cstdio>
+#include <cstdlib>
+#include <filesystem>
+#include <fstream>
+#include <iostream>
+#include <nlohmann/json.hpp>
+#include <sstream>
+#include <vector>
+
+#include "daemon/store/alert_reads.h"
+#include "daemon/http/http_client.h"
+#include "daemon/common/iso_time.h"
+#include "daemon/common/log.h"
+#include "daemon/store/sqlite.h"
+
+namespace forewarden {
+
+using nlohmann::json;
+
+std::string HmacSha256Hex(const std::string& key, const std::string& body) {
+  unsigned char mac[EVP_MAX_MD_SIZE];
+  unsigned int len = 0;
+  HMAC(EVP_sha256(), key.data(), static_cast<int>(key.size()),
+       reinterpret_cast<const unsigned char*>(body.data()), body.size(), mac, &len);
+  static const char* kHex = "0123456789abcdef";
+  std::string out;
+  for (unsigned int i = 0; i < len; ++i) {
+    out += kHex[mac[i] >> 4];
+    out += kHex[mac[i] & 15];
+  }
+  return out;
+}
+
+namespace {
+
+struct SinkConfig {
+  config::Sink sink;
+  std::string secret;  // never logged
+};
+
+struct Event {
+  std::int64_t id = 0;
+  int attempts = 0;
+  std::int64_t next_ms = 0;
+  std::string kind;
+};
+
+bool ReadSecret(const config::Sink& s, std::string& secret, std::string& error) {
+  secret.clear();
+  if (!s.secret_file.empty()) {
+    std::ifstream in(s.secret_file, std::ios::binary);
+    if (!in) {
+      error = "sink " + s.name + ": cannot read secret_file " + s.secret_file;
+      return false;
+    }
+    std::ostringstream text;
+    text << in.rdbuf();
+    secret = text.str();
+  } else if (!s.secret_env.empty()) {
+    const char* v = std::getenv(s.secret_env.c_str());
+    if (!v) {
+      error = "sink " + s.name + ": environment variable " + s.secret_env + " is not set";
+      return false;
+    }
+    secret = v;
+  } else {
+    return true;
+  }
+  while (!secret.empty() && (secret.back() == '\n' || secret.back() == '\r')) secret.pop_back();
+  if (secret.empty()) {
+    error = "sink " + s.name + ": the secret is empty";
+    return false;
+  }
+  return true;
+}
+
+// The Alertmanager alert for an alert object of an event body.
+json AmAlert(const json& alert, const std::string& severity, bool firing, std::int64_t now_ms,
+             std::int64_t ends_ms) {
+  json labels{{"alertname", alert.value("rule", "forewarden")},
+              {"forewarden_alert", std::to_string(alert.value("id", 0))},
+              {"series", alert.value("series", "")},
+              {"policy", alert.value("policy", "")},
+              {"rule", alert.value("rule", "")},
+              {"severity", severity},
+              {"service", "forewarden"}};
+  json a{{"labels", labels},
+         {"annotations", {{"url", alert.value("url", "")}}},
+         {"startsAt", alert.value("opened_at", IsoTime(now_ms))},
+         {"endsAt", IsoTime(firing ? ends_ms : now_ms)},
+         {"generatorURL", alert.value("url", "")}};
+  return a;
+}
+
+json AmGroup(const json& group, bool firing, std::int64_t now_ms, std::int64_t ends_ms,
+             const std::string& summary) {
+  json labels{{"alertname", group.value("rule", "forewarden")},
+              {"forewarden_group", std::to_string(group.value("id", 0))},
+              {"series", std::to_string(group.value("series_count", 0)) + " series"},
+              {"policy", group.value("policy", "")},
+              {"rule", group.value("rule", "")},
+              {"severity", group.value("severity", "warning")},
+              {"service", "forewarden"}};
+  return json{{"labels", labels},
+              {"annotations", {{"summary", summary}, {"url", group.value("url", "")}}},
+              {"endsAt", IsoTime(firing ? ends_ms : now_ms)},
+              {"generatorURL", group.value("url", "")}};
+}
+
+}  // namespace
+
+struct Delivery::Impl {
+  std::shared_ptr<const config::Settings> settings;
+  Clock clock;
+  std::vector<SinkConfig> sinks;
+  std::string install_id;
+  Db db;
+  Notifications notifications;
+  Stmt pending, mark_delivered, mark_failed, next_due, backlog_q, open_alerts, open_groups;
+  std::thread thread;
+  mutable std::mutex mu;
+  std::condition_variable wake;
+  bool stop = false;
+  bool notified = false;
+  std::map<std::string, SinkCounters> counters;
+  Backlog backlog;
+  std::int64_t last_resend_ms = 0;
+  std::string public_url;  // from the settings (guarded by mu), handed to `notifications` per round
+
+  void Run();
+  void Round(std::int64_t now);
+  void Refresh();
+  void Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error, std::int64_t now);
+  bool SendWebhook(const SinkConfig& s, const Event& e, std::string& error);
+  bool SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes, std::string& error);
+  void Resend(std::int64_t now);
+};
+
+Delivery::Delivery(std::shared_ptr<const config::Settings> settings, Clock clock)
+    : impl_(std::make_unique<Impl>()) {
+  impl_->settings = std::move(settings);
+  impl_->clock = std::move(clock);
+}
+
+Delivery::~Delivery() { Stop(); }
+
+bool Delivery::Update(std::shared_ptr<const config::Settings> settings, std::string& error) {
+  std::vector<SinkConfig> sinks;
+  for (const config::Sink& s : settings->alerts.sinks) {
+    SinkConfig c{s, ""};
+    if (!ReadSecret(s, c.secret, error)) return false;
+    sinks.push_back(std::move(c));
+  }
+  std::lock_guard lock(impl_->mu);
+  impl_->settings = std::move(settings);
+  impl_->sinks = std::move(sinks);
+  impl_->public_url = PublicUrl(*impl_->settings);
+  impl_->notified = true;
+  impl_->wake.notify_all();
+  return true;
+}
+
+bool Delivery::Start(std::string& error) {
+  Impl& m = *impl_;
+  if (!Update(m.settings, error)) return false;
+  const std::string path =
+      (std::filesystem::path(m.settings->server.data) / "forewarden.db").string();
+  // NORMAL: a delivery marked just before a power cut may be sent again (at least once anyway).
+  if (!m.db.Open(path) || !m.db.Exec("PRAGMA synchronous=NORMAL;")) {
+    error = "delivery: " + m.db.error();
+    return false;
+  }
+  Stmt id = m.db.Prepare("SELECT value FROM meta WHERE key = 'install_id'");
+  if (!id.valid() || !id.Step() || !id.Row()) {
+    error = "delivery: no installation id in the store: " + m.db.error();
+    return false;
+  }
+  m.install_id = std::string(id.Text(0));
+  m.db.WaitForLocks(5000);
+  if (!m.notifications.Open(m.db, m.install_id, m.public_url, error)) {
+    error = "delivery: " + error;
+    return false;
+  }
+  m.pending = m.db.Prepare(
+      "SELECT d.event_id, d.attempts, d.next_ms, e.kind FROM deliveries d "
+      "JOIN alert_events e ON e.id = d.event_id WHERE d.sink = ?1 AND d.state = 'pending' "
+      "ORDER BY d.event_id LIMIT ?2");
+  m.mark_delivered = m.db.Prepare(
+      "UPDATE deliveries SET state = 'delivered', attempts = attempts + 1, done_ms = ?3, "
+      "last_error = NULL WHERE event_id = ?1 AND sink = ?2");
+  m.mark_failed = m.db.Prepare(
+      "UPDATE deliveries SET state = ?3, attempts = ?4, next_ms = ?5, last_error = ?6 "
+      "WHERE event_id = ?1 AND sink = ?2");
+  m.next_due = m.db.Prepare("SELECT min(next_ms) FROM deliveries WHERE state = 'pending'");
+  m.backlog_q = m.db.Prepare(
+      "SELECT sum(d.state = 'pending'), sum(d.state = 'dead'), "
+      "min(CASE WHEN d.state = 'pending' THEN e.at_ms END) FROM deliveries d "
+      "JOIN alert_events e ON e.id = d.event_id WHERE d.state != 'delivered'");
+  m.open_alerts = m.db.Prepare("SELECT id FROM alerts WHERE state != 'resolved' AND group_id IS NULL");
+  m.open_groups = m.db.Prepare("SELECT id FROM alert_groups WHERE resolved_ms IS NULL");
+  for (const Stmt* s : {&m.pending, &m.mark_delivered, &m.mark_failed, &m.next_due, &m.backlog_q,
+                        &m.open_alerts, &m.open_groups})
+    if (!s->valid()) {
+      error = "delivery: " + m.db.error();
+      return false;
+    }
+  m.thread = std::thread([&m] { m.Run(); });
+  return true;
+}
+
+void Delivery::Stop() {
+  {
+    std::lock_guard lock(impl_->mu);
+    impl_->stop = true;
+  }
+  impl_->wake.notify_all();
+  if (impl_->thread.joinable()) impl_->thread.join();
+}
+
+void Delivery::Notify() {
+  {
+    std::lock_guard lock(impl_->mu);
+    impl_->notified = true;
+  }
+  impl_->wake.notify_all();
+}
+
+std::map<std::string, SinkCounters> Delivery::counters() const {
+  std::lock_guard lock(impl_->mu);
+  return impl_->counters;
+}
+
+Delivery::Backlog Delivery::backlog() const {
+  std::lock_guard lock(impl_->mu);
+  return impl_->backlog;
+}
+
+void Delivery::Impl::Run() {
+  for (;;) {
+    const std::int64_t now = clock();
+    Round(now);
+    Resend(now);
+    Refresh();
+    std::int64_t due = INT64_MAX;
+    if (next_due.Step() && next_due.Row() && !next_due.IsNull(0)) due = next_due.Int(0);
+    next_due.Reset();
+    std::unique_lock lock(mu);
+    const bool has_am = std::any_of(sinks.begin(), sinks.end(), [](const SinkConfig& s) {
+      return s.sink.kind == config::Sink::Kind::kAlertmanager;
+    });
+    if (has_am) due = std::min(due, last_resend_ms + settings->alerts.resend_seconds * 1000);
+    const std::int64_t wait_ms = std::clamp<std::int64_t>(due - clock(), 0, 60000);
+    wake.wait_for(lock, std::chrono::milliseconds(wait_ms), [this] { return stop || notified; });
+    if (stop) return;
+    notified = false;
+  }
+}
+
+void Delivery::Impl::Refresh() {
+  Backlog b;
+  if (backlog_q.Step() && backlog_q.Row()) {
+    b.pending = backlog_q.IsNull(0) ? 0 : backlog_q.Int(0);
+    b.dead = backlog_q.IsNull(1) ? 0 : backlog_q.Int(1);
+    b.oldest_pending_ms = backlog_q.IsNull(2) ? 0 : backlog_q.Int(2);
+  }
+  backlog_q.Reset();
+  std::lock_guard lock(mu);
+  backlog = b;
+}
+
+void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error,
+                            std::int64_t now) {
+  if (ok) {
+    mark_delivered.Reset();
+    mark_delivered.Bind(1, e.id).Bind(2, s.sink.name).Bind(3, now).Run();
+    std::lock_guard lock(mu);
+    ++counters[s.sink.name].delivered;
+    return;
+  }
+  const config::Alerts& a = settings->alerts;
+  const int attempts = e.attempts + 1;
+  const bool dead = attempts >= a.max_attempts;
+  // deterministic jitter in [0.5, 1.5) from the event and attempt
+  std::uint64_t h = static_cast<std::uint64_t>(e.id) * 0x9e3779b97f4a7c15ULL + static_cast<std::uint64_t>(attempts);
+  h ^= h >> 29;
+  h *= 0xbf58476d1ce4e5b9ULL;
+  h ^= h >> 32;
+  const double jitter = 0.5 + static_cast<double>(h % 10000) / 10000.0;
+  const double backoff =
+      std::min(a.max_backoff_seconds, a.initial_backoff_seconds * std::pow(2.0, attempts - 1)) * jitter;
+  mark_failed.Reset();
+  mark_failed.Bind(1, e.id).Bind(2, s.sink.name).Bind(3, std::string(dead ? "dead" : "pending"))
+      .Bind(4, static_cast<std::int64_t>(attempts))
+      .Bind(5, now + static_cast<std::int64_t>(backoff * 1000.0)).Bind(6, error.substr(0, 500)).Run();
+  std::lock_guard lock(mu);
+  ++counters[s.sink.name].failed;
+  if (dead) ++counters[s.sink.name].dead;
+}
+
+bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::string& error) {
+  json note;
+  if (!notifications.Event(e.id, note, error)) return false;
+  const std::string body = note.dump(-1, ' ', false, json::error_handler_t::replace);
+  HttpHeaders headers{{"X-Forewarden-Event", e.kind},
+                      {"X-Forewarden-Delivery", install_id + "-" + std::to_string(e.id)}};
+  if (!s.secret.empty()) headers.push_back({"X-Forewarden-Signature", "sha256=" + HmacSha256Hex(s.secret, body)});
+  const HttpResult r = HttpPost(s.sink.url, "application/json", body, "",
+                                std::chrono::seconds(s.sink.timeout_seconds), headers);
+  if (r.status >= 200 && r.status < 300) return true;
+  error = r.status ? "HTTP " + std::to_string(r.status) : r.error;
+  return false;
+}
+
+bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes,
+                                      std::string& error) {
+  const std::int64_t now = clock();
+  const std::int64_t ends = now + 4 * settings->alerts.resend_seconds * 1000;
+  json list = json::array();
+  for (const json& body : notes) {
+    const std::string kind = body.value("kind", "");
+    const std::string summary = body.value("summary", "");
+    if (body.contains("alert")) {
+      json alert = body["alert"];
+      const std::string severity = alert.value("severity", "warning");
+      if (kind == "opened" || kind == "escalated" || kind == "snooze_ended") {
+        json a = AmAlert(alert, severity, true, now, ends);
+        a["annotations"]["summary"] = summary;
+        list.push_back(a);
+        if (kind == "escalated" && body.contains("previous_severity"))
+          list.push_back(AmAlert(alert, body["previous_severity"].get<std::string>(), false, now, ends));
+      } else if (kind == "resolved") {
+        json a = AmAlert(alert, severity, false, now, ends);
+        a["annotations"]["summary"] = summary;
+        list.push_back(a);
+      }
+    } else if (body.contains("group")) {
+      list.push_back(AmGroup(body["group"], kind == "group_opened", now, ends, summary));
+    }
+  }
+  if (list.empty()) return true;  // acknowledgements and snoozes only
+  std::string url = s.sink.url;
+  while (!url.empty() && url.back() == '/') url.pop_back();
+  const HttpResult r = HttpPost(url + "/api/v2/alerts", "application/json",
+                                list.dump(-1, ' ', false, json::error_handler_t::replace), "",
+                                std::chrono::seconds(s.sink.timeout_seconds));
+  if (r.status >= 200 && r.status < 300) return true;
+  error = r.status ? "HTTP " + std::to_string(r.status) + ": " + r.body.substr(0, 200) : r.error;
+  return false;
+}
+
+void Delivery::Impl::Round(std::int64_t now) {
+  std::vector<SinkConfig> current;
+  {
+    std::lock_guard lock(mu);
+    current = sinks;
+    notifications.SetPublicUrl(public_url);
+  }
+  const long batch = settings->alerts.batch;
+  for (const SinkConfig& s : current) {
+    std::vector<Event> events;
+    pending.Reset();
+    pending.Bind(1, s.sink.name).Bind(2, static_cast<std::int64_t>(batch));
+    if (!pending.Step()) continue;
+    for (; pending.Row(); pending.Step())
+      events.push_back({pending.Int(0), static_cast<int>(pending.Int(1)), pending.Int(2),
+                        std::string(pending.Text(3))});
+    pending.Reset();
+    if (events.empty() || events.front().next_ms > now) continue;  // strict order per sink
+    db.Exec("BEGIN IMMEDIATE;");
+    switch (s.sink.kind) {
+      case config::Sink::Kind::kLog:
+        for (const Event& e : events) {
+          json note;
+          std::string error;
+          const bool ok = notifications.Event(e.id, note, error);
+          if (ok)
+            WriteLog(std::cerr, LogLine("info", "alert", {{"event", std::to_string(e.id)},
+                                                          {"kind", e.kind},
+                                                          {"summary", note.value("summary", "")}}));
+          Finish(s, e, ok, error, now);
+        }
+        break;
+      case config::Sink::Kind::kWebhook:
+        for (const Event& e : events) {
+          if (e.next_ms > now) break;
+          std::string error;
+          const bool ok = SendWebhook(s, e, error);
+          Finish(s, e, ok, error, clock());
+          if (!ok) break;  // later events wait behind this one
+        }
+        break;
+      case config::Sink::Kind::kAlertmanager: {
+        std::vector<Event> due;
+        std::vector<json> notes;
+        std::string error;
+        bool ok = true;
+        for (const Event& e : events)
+          if (e.next_ms <= now) {
+            due.push_back(e);
+            notes.emplace_back();
+            ok = ok && notifications.Event(e.id, notes.back(), error);
+          }
+        if (ok) ok = SendAlertmanager(s, notes, error);
+        for (const Event& e : due) Finish(s, e, ok, error, clock());
+        break;
+      }
+    }
+    if (!db.Exec("COMMIT;")) db.Exec("ROLLBACK;");
+  }
+}
+
+void Delivery::Impl::Resend(std::int64_t now) {
+  std::vector<SinkConfig> am;
+  {
+    std::lock_guard lock(mu);
+    for (const SinkConfig& s : sinks)
+      if (s.sink.kind == config::Sink::Kind::kAlertmanager) am.push_back(s);
+  }
+  if (am.empty() || now - last_resend_ms < settings->alerts.resend_seconds * 1000) return;
+  last_resend_ms = now;
+  // Open alerts re-sent as they are now; open groups as their opening.
+  std::vector<json> events;
+  std::vector<std::int64_t> ids, groups;
+  if (open_alerts.Step())
+    for (; open_alerts.Row(); open_alerts.Step()) ids.push_back(open_alerts.Int(0));
+  open_alerts.Reset();
+  if (open_groups.Step())
+    for (; open_groups.Row(); open_groups.Step()) groups.push_back(open_groups.Int(0));
+  open_groups.Reset();
+  std::string error;
+  for (std::int64_t id : ids) {
+    events.emplace_back();
+    if (!notifications.Current(id, events.back(), error)) events.pop_back();
+  }
+  for (std::int64_t g : groups) {
+    json note{{"kind", "group_opened"}};
+    if (notifications.Group(g, "group_opened", note, error)) events.push_back(std::move(note));
+  }
+  if (events.empty()) return;
+  for (const SinkConfig& s : am) {
+    if (SendAlertmanager(s, events, error)) {
+      std::lock_guard lock(mu);
+      counters[s.sink.name].resent += static_cast<long>(events.size());
+    }
+  }
+}
+
+}  // namespace forewarden
