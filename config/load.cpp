@@ -33,11 +33,12 @@ const std::set<std::string> kServerKeys = {
     "max_rows_per_batch", "max_connections", "header_timeout_seconds", "idle_timeout_seconds",
     "queue_depth", "shutdown_grace_seconds", "folder", "folder_poll_ms", "max_database_bytes",
     "cache_bytes", "state_flush_seconds", "state_flush_series", "max_key_bytes", "max_labels",
-    "max_label_bytes"};
+    "max_label_bytes", "max_series"};
 const std::set<std::string> kPolicyKeys = {
     "name", "match", "period", "method", "alpha", "adaptive", "trend_beta", "damping",
     "season_gamma", "season_length", "start", "signal_beta", "warmup", "gaps", "coverage",
-    "initial_mad", "max_gap", "rules", "history", "stale_after", "export_top_series"};
+    "initial_mad", "max_gap", "rules", "history", "stale_after", "export_top_series",
+    "negative_actuals"};
 const std::set<std::string> kMatchKeys = {"key", "labels"};
 const std::set<std::string> kAdaptiveKeys = {"floor", "cap", "lag"};
 const std::set<std::string> kStartKeys = {"mean_of_first", "fitted", "level", "trend", "season"};
@@ -514,6 +515,16 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       r.Add(n["gaps"], path + ".gaps", "must be zero or skip, got '" + text + "'");
   }
   r.Range(n, "coverage", path, s.coverage, 0.0, true, 1.0, true);
+  if (n["negative_actuals"].IsDefined() && r.String(n["negative_actuals"], path + ".negative_actuals", text)) {
+    if (text == "accept" && !monitors::MethodTakesNegative(method))
+      r.Add(n["negative_actuals"], path + ".negative_actuals",
+            "method " + std::string(monitors::MethodName(method)) +
+                " cannot take negative actuals; only ses, holt, damped and seasonal-add can");
+    else if (text == "accept")
+      s.accept_negative = true;
+    else if (text != "refuse")
+      r.Add(n["negative_actuals"], path + ".negative_actuals", "must be refuse or accept, got '" + text + "'");
+  }
   long history = p.history;
   r.Int(n, "history", path, history, 1, 100000);
   p.history = static_cast<int>(history);
@@ -676,6 +687,7 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   r.Int(n, "max_key_bytes", path, s.max_key_bytes, 1, 65536);
   r.Int(n, "max_labels", path, s.max_labels, 0, 1000);
   r.Int(n, "max_label_bytes", path, s.max_label_bytes, 1, 65536);
+  r.Int(n, "max_series", path, s.max_series, 1, 1000000000);
   r.Int(n, "max_connections", path, s.max_connections, 1, 100000);
   r.Int(n, "header_timeout_seconds", path, s.header_timeout_seconds, 1, 3600);
   r.Int(n, "idle_timeout_seconds", path, s.idle_timeout_seconds, 1, 86400);

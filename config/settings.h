@@ -81,6 +81,7 @@ struct Server {
   long max_key_bytes = 256;     // a series key
   long max_labels = 16;         // labels on one row
   long max_label_bytes = 256;   // a label's name and its value, each
+  long max_series = 10000000;   // series the service holds; a row of a new series beyond it is refused
   long max_connections = 256;
   long header_timeout_seconds = 10;
   long idle_timeout_seconds = 60;

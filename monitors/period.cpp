@@ -94,8 +94,9 @@ PeriodParse ParsePeriod(PeriodKind kind, std::string_view text) {
                  : kind == PeriodKind::kMonth ? std::string(" or YYYY-MM")
                                               : std::string()));
   int year = 0;
-  if (!ParseDigits(text.substr(0, 4), year) || year < 1)
-    return Fail("'" + shown + "' is not a period: the year must be 4 digits, 0001-9999");
+  if (!ParseDigits(text.substr(0, 4), year) || year < kFirstYear || year > kLastYear)
+    return Fail("'" + shown + "' is not a period: the year must be " + std::to_string(kFirstYear) +
+                "-" + std::to_string(kLastYear) + " (the periods forewarden takes)");
 
   // YYYY-Www
   if (text.size() == 8 && (text[5] == 'W' || text[5] == 'w')) {

@@ -25,6 +25,11 @@ using PeriodOrdinal = std::int64_t;
 
 // Result of parsing a period; on failure `error` explains why (e.g. "2026-02-30 is not a
 // date: February 2026 has 28 days") and `ordinal` is meaningless.
+// The years a period may fall in: wide enough for any sales history and its forecasts, narrow
+// enough that every next period still has a four-digit year.
+inline constexpr int kFirstYear = 1900;
+inline constexpr int kLastYear = 2999;
+
 struct PeriodParse {
   PeriodOrdinal ordinal = 0;
   std::string error;

@@ -69,7 +69,7 @@ SeriesState NewSeriesState(const PolicySpec& policy) {
 
 namespace {
 
-bool AllowsNegative(Method m) { return !IsIntermittent(m) && m != Method::kSeasonalMul; }
+
 
 void StartSeries(const PolicySpec& p, SeriesState& s) {
   if (p.start.kind == StartKind::kFitted) {
@@ -177,13 +177,8 @@ bool Finite(const SeriesState& s) {
 
 StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, double y,
                 StepResult& out, std::string* problem) {
-  if (!std::isfinite(y)) {
-    if (problem) *problem = "the value is not a finite number";
-    return StepStatus::kBadValue;
-  }
-  if (y < 0 && !AllowsNegative(p.method)) {
-    if (problem)
-      *problem = "negative demand is not allowed for method " + std::string(MethodName(p.method));
+  if (const char* why = ActualProblem(p, y)) {
+    if (problem) *problem = why;
     return StepStatus::kBadValue;
   }
   long gap = 0;
@@ -251,6 +246,20 @@ StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, doubl
     return StepStatus::kNonFinite;
   }
   return StepStatus::kOk;
+}
+
+bool MethodTakesNegative(Method m) { return !IsIntermittent(m) && m != Method::kSeasonalMul; }
+
+const char* ActualProblem(const PolicySpec& p, double y) {
+  if (!std::isfinite(y)) return "the value is not a finite number";
+  if (std::fabs(y) > kMaxActual) return "the value is beyond +/-1e15, the largest actual forewarden takes";
+  if (y < 0 && !(p.accept_negative && MethodTakesNegative(p.method)))
+    return MethodTakesNegative(p.method)
+               ? "the value is negative and the policy refuses negative actuals "
+                 "(negative_actuals: accept takes net sales with returns)"
+               : "the value is negative and the policy's method cannot take negative actuals "
+                 "(croston, sba and seasonal-mul)";
+  return nullptr;
 }
 
 }  // namespace monitors

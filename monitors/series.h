@@ -42,10 +42,21 @@ struct PolicySpec {
   GapRule gaps = GapRule::kZero;
   long max_gap = 366;  // most missing periods one actual may bridge
   double coverage = 0.95;
+  // Negative actuals (net sales with returns): refused unless the policy accepts them, and only
+  // the methods that can take them (ses, holt, damped, seasonal-add) may.
+  bool accept_negative = false;
   std::vector<RuleSpec> rules;  // at most kMaxRules
 };
 
 inline constexpr std::size_t kMaxRules = 64;
+// The largest magnitude of an actual: beyond it a series' statistics could leave the finite
+// doubles (MAD, cumulative error and the multiplicative seasons are sums and ratios of actuals).
+inline constexpr double kMaxActual = 1e15;
+// Whether a method can take negative actuals at all.
+bool MethodTakesNegative(Method m);
+// Why an actual cannot enter a series of this policy (not finite, beyond kMaxActual, negative
+// where refused), or null when it can.
+const char* ActualProblem(const PolicySpec& policy, double actual);
 
 // Actuals of the start window, allocated only while a series is in it (8 bytes otherwise).
 class WindowValues {
@@ -256,7 +267,7 @@ enum class StepStatus {
   kOk,
   kNotLater,      // period is not after the series' last period
   kGapTooLong,    // more than max_gap missing periods
-  kBadValue,      // NaN/Inf, or negative for croston/sba/seasonal-mul
+  kBadValue,      // NaN/Inf, beyond kMaxActual, or negative where the policy refuses it
   kNonFinite,     // the model state stopped being finite (seasonal-mul with level <= 0)
 };
 

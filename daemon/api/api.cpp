@@ -2,15 +2,18 @@
 
 #include <algorithm>
 #include <chrono>
-#include <cstring>
 #include <cmath>
+#include <cstring>
 #include <ctime>
+#include <iostream>
 #include <nlohmann/json.hpp>
+#include <unordered_map>
 
 #include "daemon/batch/parse.h"
 #include "daemon/common/iso_time.h"
+#include "daemon/common/log.h"
+#include "daemon/common/parse_number.h"
 #include "daemon/store/alert_reads.h"
-#include "daemon/observe/metrics.h"
 #include "monitors/interval.h"
 
 namespace forewarden {
@@ -18,6 +21,7 @@ namespace forewarden {
 using nlohmann::json;
 
 std::string UrlDecode(std::string_view text, bool query) {
+  auto hex = [](char c) { return c <= '9' ? c - '0' : (c | 0x20) - 'a' + 10; };
   std::string out;
   out.reserve(text.size());
   for (std::size_t i = 0; i < text.size(); ++i) {
@@ -25,7 +29,7 @@ std::string UrlDecode(std::string_view text, bool query) {
     if (c == '%' && i + 2 < text.size() &&
         std::isxdigit(static_cast<unsigned char>(text[i + 1])) &&
         std::isxdigit(static_cast<unsigned char>(text[i + 2]))) {
-      out += static_cast<char>(std::stoi(std::string(text.substr(i + 1, 2)), nullptr, 16));
+      out += static_cast<char>(hex(text[i + 1]) * 16 + hex(text[i + 2]));
       i += 2;
     } else if (c == '+' && query) {
       out += ' ';
@@ -35,6 +39,8 @@ std::string UrlDecode(std::string_view text, bool query) {
   }
   return out;
 }
+
+// ---- answers ---------------------------------------------------------------------------------
 
 namespace {
 
@@ -49,6 +55,26 @@ HttpResponse Json(int status, const json& body) {
 
 HttpResponse Error(int status, const std::string& message) {
   return Json(status, json{{"error", message}});
+}
+
+// The one place where a domain error becomes an HTTP status.
+int HttpStatusOf(ErrorKind kind) {
+  switch (kind) {
+    case ErrorKind::kInvalid: return 400;
+    case ErrorKind::kForbidden: return 403;
+    case ErrorKind::kNotFound: return 404;
+    case ErrorKind::kConflict: return 409;
+    case ErrorKind::kBusy: return 503;
+    case ErrorKind::kStoreFailed: return 503;
+    case ErrorKind::kInternal: return 500;
+  }
+  return 500;
+}
+
+HttpResponse Error(const Status& status) {
+  HttpResponse r = Error(HttpStatusOf(status.kind()), status.message());
+  if (status.kind() == ErrorKind::kBusy) r.headers.emplace_back("Retry-After", "1");
+  return r;
 }
 
 HttpResponse Unauthorized() {
@@ -81,7 +107,67 @@ void SplitTarget(const std::string& target, std::string& path,
   }
 }
 
-std::string Status(const SeriesView& v) { return StatusName(StatusOf(*v.state, *v.spec, v.stale)); }
+// ---- request bodies: every field checked for presence, type and range ----------------------
+
+// A JSON object body. Each reader names the field in its error; a wrong type or a missing
+// required field is invalid input (400), never an exception.
+class Body {
+ public:
+  static Result<Body> Parse(const std::string& text, const char* example) {
+    json j = json::parse(text, nullptr, false);
+    if (j.is_discarded() || !j.is_object())
+      return Status::Invalid(std::string("the body must be a JSON object such as ") + example);
+    return Body(std::move(j));
+  }
+  bool Has(const char* field) const { return j_.contains(field) && !j_[field].is_null(); }
+  // A string; "" when absent and not required.
+  Result<std::string> Text(const char* field, bool required, const char* what) const {
+    if (!Has(field)) {
+      if (required) return Status::Invalid(std::string("field ") + field + ": missing; " + what);
+      return std::string();
+    }
+    if (!j_[field].is_string()) return Status::Invalid(std::string("field ") + field + ": must be a string; " + what);
+    std::string v = j_[field].get<std::string>();
+    if (required && v.empty()) return Status::Invalid(std::string("field ") + field + ": empty; " + what);
+    if (v.size() > 4096) return Status::Invalid(std::string("field ") + field + ": longer than 4096 bytes");
+    return v;
+  }
+  // A finite number.
+  Result<double> Number(const char* field, const char* what) const {
+    if (!Has(field)) return Status::Invalid(std::string("field ") + field + ": missing; " + what);
+    const json& v = j_[field];
+    if (!v.is_number()) return Status::Invalid(std::string("field ") + field + ": must be a number; " + what);
+    const double d = v.get<double>();
+    if (!std::isfinite(d)) return Status::Invalid(std::string("field ") + field + ": not a finite number");
+    return d;
+  }
+  // A whole number in [lo, hi] (1.5, "3" and values beyond the range are refused, not cut).
+  Result<std::int64_t> Whole(const char* field, std::int64_t lo, std::int64_t hi, const char* what) const {
+    const std::string range = std::to_string(lo) + ".." + std::to_string(hi);
+    if (!Has(field)) return Status::Invalid(std::string("field ") + field + ": missing; " + what);
+    const json& v = j_[field];
+    bool in = false;
+    std::int64_t out = 0;
+    if (v.is_number_unsigned()) {
+      const auto u = v.get<std::uint64_t>();
+      in = u <= static_cast<std::uint64_t>(hi) && static_cast<std::int64_t>(u) >= lo;
+      out = static_cast<std::int64_t>(u);
+    } else if (v.is_number_integer()) {
+      out = v.get<std::int64_t>();
+      in = out >= lo && out <= hi;
+    } else {
+      return Status::Invalid(std::string("field ") + field + ": must be a whole number (" + range + "); " + what);
+    }
+    if (!in) return Status::Invalid(std::string("field ") + field + ": outside " + range + "; " + what);
+    return out;
+  }
+
+ private:
+  explicit Body(json j) : j_(std::move(j)) {}
+  json j_;
+};
+
+std::string SeriesStatusText(const SeriesView& v) { return StatusName(StatusOf(*v.state, *v.spec, v.stale)); }
 
 std::optional<double> Signal(const SeriesView& v, bool trigg) {
   if (Warming(*v.state, *v.spec)) return std::nullopt;
@@ -103,7 +189,7 @@ json SeriesSummary(const SeriesView& v) {
   const monitors::PolicySpec& spec = v.spec->spec;
   json out{{"key", v.key},
            {"policy", v.policy},
-           {"status", Status(v)},
+           {"status", SeriesStatusText(v)},
            {"last_period", s.seen ? json(monitors::FormatPeriod(v.spec->period, s.last_period)) : json(nullptr)}};
   std::optional<double> f;
   if (s.started) f = monitors::ForecastNext(spec.method, monitors::EffectiveConstants(spec, s), s.model, s.next_index);
@@ -153,15 +239,109 @@ bool ConstantTimeEqual(const std::string& a, const std::string& b) {
   return diff == 0;
 }
 
-bool ParseDateParam(const monitors::PeriodKind kind, const std::string& text, std::int64_t& out,
-                    std::string& error) {
-  const monitors::PeriodParse p = monitors::ParsePeriod(kind, text);
-  if (!p.ok()) {
-    error = p.error;
-    return false;
+}  // namespace
+
+// ---- the route table -------------------------------------------------------------------------
+
+struct Api::Call {
+  HttpRequest request;
+  std::string path;
+  std::vector<std::pair<std::string, std::string>> query;
+  std::string key;      // {key}: the series key, percent-decoded
+  std::string id_text;  // {id}: as in the path
+  const Route* route = nullptr;
+  Respond respond;
+  std::atomic<bool> answered{false};
+
+  // Answers once; a second answer (a defect) is dropped. An answer that throws on its way out
+  // does not count, so the guard can still answer 500.
+  void Answer(HttpResponse r) {
+    if (answered.load()) return;
+    respond(std::move(r));
+    answered.store(true);
   }
-  out = p.ordinal;
-  return true;
+  void Fail(const Status& s) { Answer(Error(s)); }
+  std::optional<std::string> Param(const char* name) const {
+    for (auto& [k, v] : query)
+      if (k == name) return v;
+    return std::nullopt;
+  }
+  std::string ParamOr(const char* name, const char* fallback = "") const {
+    return Param(name).value_or(fallback);
+  }
+};
+
+struct Api::Route {
+  const char* method;
+  const char* pattern;  // literal segments, {key} (one or more segments) or {id} (one segment)
+  bool writes;          // needs the bearer token when one is configured
+  void (Api::*handler)(const std::shared_ptr<Call>&);
+};
+
+const std::vector<Api::Route>& Api::Routes() {
+  static const std::vector<Route> kRoutes = {
+      {"GET", "/healthz", false, &Api::Health},
+      {"GET", "/readyz", false, &Api::Ready},
+      {"GET", "/metrics", false, &Api::MetricsText},
+      {"POST", "/v1/actuals", true, &Api::Ingest},
+      {"GET", "/v1/policies", false, &Api::Policies},
+      {"GET", "/v1/series", false, &Api::SeriesList},
+      {"GET", "/v1/series/{key}/history", false, &Api::SeriesHistory},
+      {"POST", "/v1/series/{key}/reset", true, &Api::SeriesReset},
+      {"GET", "/v1/series/{key}", false, &Api::SeriesDetailOf},
+      {"GET", "/v1/alerts", false, &Api::AlertList},
+      {"POST", "/v1/alerts/{id}/acknowledge", true, &Api::AlertAct},
+      {"POST", "/v1/alerts/{id}/snooze", true, &Api::AlertAct},
+      {"POST", "/v1/alerts/{id}/resolve", true, &Api::AlertAct},
+      {"GET", "/v1/alerts/{id}", false, &Api::AlertDetail},
+      {"GET", "/v1/deliveries", false, &Api::DeliveryList},
+      {"POST", "/v1/deliveries/retry", true, &Api::DeliveryRetry},
+  };
+  return kRoutes;
+}
+
+namespace {
+
+std::vector<std::string_view> Segments(std::string_view path) {
+  std::vector<std::string_view> out;
+  if (path.empty() || path[0] != '/') return out;
+  path.remove_prefix(1);
+  while (true) {
+    const std::size_t slash = path.find('/');
+    out.push_back(path.substr(0, slash));
+    if (slash == std::string_view::npos) break;
+    path.remove_prefix(slash + 1);
+  }
+  return out;
+}
+
+// Whether `path` fits `pattern`; fills the key or id it names.
+bool Match(std::string_view pattern, std::string_view path, std::string& key, std::string& id) {
+  const auto want = Segments(pattern), have = Segments(path);
+  if (have.empty()) return false;
+  std::size_t w = 0, h = 0;
+  for (; w < want.size(); ++w) {
+    if (want[w] == "{key}") {
+      const std::size_t tail = want.size() - w - 1;  // literal segments after the key
+      if (have.size() < h + 1 + tail) return false;
+      const std::size_t end = have.size() - tail;
+      std::string joined;
+      for (std::size_t i = h; i < end; ++i) {
+        if (i > h) joined += '/';
+        joined.append(have[i]);
+      }
+      if (joined.empty()) return false;
+      key = UrlDecode(joined, false);
+      h = end;
+    } else if (want[w] == "{id}") {
+      if (h >= have.size() || have[h].empty()) return false;
+      id.assign(have[h++]);
+    } else {
+      if (h >= have.size() || have[h] != want[w]) return false;
+      ++h;
+    }
+  }
+  return h == have.size();
 }
 
 }  // namespace
@@ -169,35 +349,6 @@ bool ParseDateParam(const monitors::PeriodKind kind, const std::string& text, st
 Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
          Metrics* metrics)
     : engine_(engine), metrics_(metrics), settings_(std::move(settings)), token_(std::move(token)) {}
-
-namespace {
-
-// The route label of a request path: a fixed set, never a series key or an id.
-const char* RouteOf(const std::string& path) {
-  static const char* kExact[] = {"/v1/actuals", "/v1/series", "/v1/policies", "/v1/alerts",
-                                 "/v1/deliveries", "/v1/deliveries/retry", "/metrics", "/healthz",
-                                 "/readyz"};
-  for (const char* r : kExact)
-    if (path == r) return r;
-  auto ends = [&](const char* suffix) {
-    const std::size_t n = std::strlen(suffix);
-    return path.size() > n && path.compare(path.size() - n, n, suffix) == 0;
-  };
-  if (path.rfind("/v1/series/", 0) == 0) {
-    if (ends("/history")) return "/v1/series/{key}/history";
-    if (ends("/reset")) return "/v1/series/{key}/reset";
-    return "/v1/series/{key}";
-  }
-  if (path.rfind("/v1/alerts/", 0) == 0) {
-    if (ends("/acknowledge")) return "/v1/alerts/{id}/acknowledge";
-    if (ends("/snooze")) return "/v1/alerts/{id}/snooze";
-    if (ends("/resolve")) return "/v1/alerts/{id}/resolve";
-    return "/v1/alerts/{id}";
-  }
-  return "other";
-}
-
-}  // namespace
 
 void Api::Update(std::shared_ptr<const config::Settings> settings, std::string token) {
   std::lock_guard lock(mu_);
@@ -224,57 +375,90 @@ bool Api::Authorized(const HttpRequest& request) {
   return ok;
 }
 
+void Api::Internal(Call& call, const char* what) {
+  counters_.internal_errors.fetch_add(1);
+  // The request line only: bodies and headers may hold secrets.
+  WriteLog(std::cerr, LogLine("error", "request failed", {{"method", call.request.method.substr(0, 16)},
+                                                          {"target", call.request.target.substr(0, 512)},
+                                                          {"what", std::string(what).substr(0, 200)}}));
+  call.Answer(Error(500, "the request failed inside the service; it was logged"));
+}
+
 void Api::Handle(HttpRequest&& request, Respond respond) {
-  if (!metrics_) return Route(std::move(request), std::move(respond));
-  std::string path = request.target.substr(0, request.target.find('?'));
-  const char* route = RouteOf(path);
-  Route(std::move(request), [this, route, respond = std::move(respond)](HttpResponse r) {
-    metrics_->CountRequest(route, r.status);
-    respond(std::move(r));
+  auto call = std::make_shared<Call>();
+  call->request = std::move(request);
+  SplitTarget(call->request.target, call->path, call->query);
+  if (metrics_) {
+    call->respond = [this, call_ptr = call.get(), respond = std::move(respond)](HttpResponse r) {
+      metrics_->CountRequest(call_ptr->route ? call_ptr->route->pattern : "other", r.status);
+      respond(std::move(r));
+    };
+  } else {
+    call->respond = std::move(respond);
+  }
+  try {
+    Dispatch(call);
+  } catch (const std::exception& e) {
+    Internal(*call, e.what());
+  } catch (...) {
+    Internal(*call, "unknown exception");
+  }
+}
+
+void Api::Dispatch(const std::shared_ptr<Call>& call) {
+  const char* other_method = nullptr;
+  for (const Route& r : Routes()) {
+    std::string key, id;
+    if (!Match(r.pattern, call->path, key, id)) continue;
+    if (call->request.method != r.method) {
+      if (!other_method) other_method = r.method;
+      continue;
+    }
+    call->route = &r;
+    call->key = std::move(key);
+    call->id_text = std::move(id);
+    if (r.writes && !Authorized(call->request)) return call->Answer(Unauthorized());
+    return (this->*r.handler)(call);
+  }
+  if (other_method) return call->Answer(Error(405, std::string("use ") + other_method));
+  call->Answer(Error(404, "no such endpoint: " + call->path));
+}
+
+void Api::OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job) {
+  const bool queued = engine_.Post([this, call, job = std::move(job)] {
+    try {
+      job();
+    } catch (const std::exception& e) {
+      Internal(*call, e.what());
+    } catch (...) {
+      Internal(*call, "unknown exception");
+    }
+  });
+  if (!queued) call->Fail(EngineBusy());
+}
+
+// ---- handlers --------------------------------------------------------------------------------
+
+void Api::Health(const std::shared_ptr<Call>& c) { c->Answer(Json(200, {{"alive", true}})); }
+
+void Api::Ready(const std::shared_ptr<Call>& c) {
+  const std::string failure = engine_.failure();
+  if (!failure.empty()) return c->Answer(Json(503, {{"ready", false}, {"reason", failure}}));
+  c->Answer(Json(200, {{"ready", true}}));
+}
+
+void Api::MetricsText(const std::shared_ptr<Call>& c) {
+  if (!metrics_) return c->Fail(Status::NotFound("metrics are not enabled"));
+  OnEngine(c, [this, c] {
+    HttpResponse r;
+    r.content_type = "text/plain; version=0.0.4; charset=utf-8";
+    r.body = metrics_->Render(engine_.Snapshot());
+    c->Answer(std::move(r));
   });
 }
 
-void Api::Route(HttpRequest&& request, Respond respond) {
-  std::string path;
-  std::vector<std::pair<std::string, std::string>> query;
-  SplitTarget(request.target, path, query);
-  auto param = [&](const char* name) -> std::optional<std::string> {
-    for (auto& [k, v] : query)
-      if (k == name) return v;
-    return std::nullopt;
-  };
-  const bool get = request.method == "GET", post = request.method == "POST";
-
-  if (path == "/healthz") {
-    if (!get) return respond(Error(405, "use GET"));
-    return respond(Json(200, {{"alive", true}}));
-  }
-  if (path == "/readyz") {
-    if (!get) return respond(Error(405, "use GET"));
-    const std::string failure = engine_.failure();
-    if (!failure.empty()) return respond(Json(503, {{"ready", false}, {"reason", failure}}));
-    return respond(Json(200, {{"ready", true}}));
-  }
-  if (path == "/metrics") {
-    if (!get) return respond(Error(405, "use GET"));
-    if (!metrics_) return respond(Error(404, "metrics are not enabled"));
-    const bool queued = engine_.Post([this, respond] {
-      HttpResponse r;
-      r.content_type = "text/plain; version=0.0.4; charset=utf-8";
-      r.body = metrics_->Render(engine_.Snapshot());
-      respond(std::move(r));
-    });
-    if (!queued) respond(Error(503, "the engine is busy; retry later"));
-    return;
-  }
-  if (path == "/v1/actuals") {
-    if (!post) return respond(Error(405, "use POST"));
-    if (!Authorized(request)) return respond(Unauthorized());
-    return Ingest(std::move(request), std::move(respond));
-  }
-  if (path == "/v1/policies") {
-    if (!get) return respond(Error(405, "use GET"));
-    const bool queued = engine_.Post([this, respond] {
+void Api::Policies(const std::shared_ptr<Call>& c) {
+  OnEngine(c, [this, c] {
       json list = json::array();
       std::unordered_map<std::string, long> counts;
       engine_.ForEachSeries([&](const SeriesView& v) { ++counts[v.policy]; });
@@ -295,13 +479,13 @@ void Api::Route(HttpRequest&& request, Respond respond) {
           if (r.escalate_limit)
             rule["escalate"] = {{"limit", *r.escalate_limit},
                                 {"severity", monitors::SeverityName(r.escalate_severity)}};
-          for (const auto& c : p.calibrations)
-            if (c.rule == r.name)
+          for (const auto& cal : p.calibrations)
+            if (cal.rule == r.name)
               rule["calibration"] = {
-                  {"false_alert_every", c.every},
-                  {"derived_limit", c.limit},
-                  {"simulated_rate", c.rate},
-                  {"expected_false_alerts_per_week", c.per_series_week * static_cast<double>(counts[p.name])}};
+                  {"false_alert_every", cal.every},
+                  {"derived_limit", cal.limit},
+                  {"simulated_rate", cal.rate},
+                  {"expected_false_alerts_per_week", cal.per_series_week * static_cast<double>(counts[p.name])}};
           rules.push_back(std::move(rule));
         }
         const std::int64_t last = engine_.LastArrival(p.name);
@@ -315,119 +499,99 @@ void Api::Route(HttpRequest&& request, Respond respond) {
                         {"last_actual_at", last ? json(IsoTime(last)) : json(nullptr)},
                         {"rules", rules}});
       }
-      respond(Json(200, {{"policies", list}}));
-    });
-    if (!queued) respond(Error(503, "the engine is busy; retry later"));
-    return;
+      c->Answer(Json(200, {{"policies", list}}));
+  });
+}
+
+void Api::SeriesList(const std::shared_ptr<Call>& c) {
+  Result<std::int64_t> limit = ParseWholeNumber(c->ParamOr("limit", "100"), 1, 10000);
+  if (!limit) return c->Fail(Status(limit.status()).Prefix("limit: "));
+  Result<std::int64_t> offset = ParseWholeNumber(c->ParamOr("offset", "0"), 0, INT64_MAX / 2);
+  if (!offset) return c->Fail(Status(offset.status()).Prefix("offset: "));
+  const std::string policy = c->ParamOr("policy");
+  const std::string status = c->ParamOr("status");
+  const std::string sort = c->ParamOr("sort", "key");
+  const std::string label = c->ParamOr("label");
+  if (!status.empty() && status != "ok" && status != "alerting" && status != "stale" && status != "warming")
+    return c->Fail(Status::Invalid("status must be ok, alerting, stale or warming"));
+  if (sort != "key" && sort != "trigg" && sort != "cusum")
+    return c->Fail(Status::Invalid("sort must be key, trigg or cusum (largest absolute signal first)"));
+  std::string label_name, label_value;
+  if (!label.empty()) {
+    const std::size_t colon = label.find(':');
+    if (colon == std::string::npos) return c->Fail(Status::Invalid("label must be name:value"));
+    label_name = label.substr(0, colon);
+    label_value = label.substr(colon + 1);
   }
-  if (path == "/v1/series") {
-    if (!get) return respond(Error(405, "use GET"));
-    long limit = 100, offset = 0;
-    try {
-      if (auto v = param("limit")) limit = std::stol(*v);
-      if (auto v = param("offset")) offset = std::stol(*v);
-    } catch (const std::exception&) {
-      return respond(Error(400, "limit and offset must be whole numbers"));
-    }
-    if (limit < 1 || limit > 10000 || offset < 0)
-      return respond(Error(400, "limit must be 1..10000 and offset >= 0"));
-    const std::string policy = param("policy").value_or("");
-    const std::string status = param("status").value_or("");
-    const std::string sort = param("sort").value_or("key");
-    const std::string label = param("label").value_or("");
-    if (!status.empty() && status != "ok" && status != "alerting" && status != "stale" && status != "warming")
-      return respond(Error(400, "status must be ok, alerting, stale or warming"));
-    if (sort != "key" && sort != "trigg" && sort != "cusum")
-      return respond(Error(400, "sort must be key, trigg or cusum (largest absolute signal first)"));
-    std::string label_name, label_value;
-    if (!label.empty()) {
-      const std::size_t colon = label.find(':');
-      if (colon == std::string::npos) return respond(Error(400, "label must be name:value"));
-      label_name = label.substr(0, colon);
-      label_value = label.substr(colon + 1);
-    }
-    const bool queued = engine_.Post([=, this] {
-      // Filter and sort light entries; JSON is built for the requested page only.
-      struct Entry {
-        SeriesView view;
-        double order;  // |signal| (-1 when undefined) for sort=trigg|cusum
-      };
-      std::vector<Entry> rows;
-      std::unordered_map<const char*, bool> label_match;  // label sets are interned: one parse each
-      engine_.ForEachSeries([&](const SeriesView& v) {
-        if (!policy.empty() && v.policy != policy) return;
-        if (!status.empty() && Status(v) != status) return;
-        if (!label_name.empty()) {
-          auto cached = label_match.find(v.labels.data());
-          if (cached == label_match.end()) {
-            json labels = json::parse(v.labels, nullptr, false);
-            auto it = labels.is_object() ? labels.find(label_name) : labels.end();
-            const bool ok = labels.is_object() && it != labels.end() && *it == label_value;
-            cached = label_match.emplace(v.labels.data(), ok).first;
-          }
-          if (!cached->second) return;
+  const long lim = static_cast<long>(*limit), off = static_cast<long>(*offset);
+  OnEngine(c, [=, this] {
+    // Filter and sort light entries; JSON is built for the requested page only.
+    struct Entry {
+      SeriesView view;
+      double order;  // |signal| (-1 when undefined) for sort=trigg|cusum
+    };
+    std::vector<Entry> rows;
+    std::unordered_map<const char*, bool> label_match;  // label sets are interned: one parse each
+    engine_.ForEachSeries([&](const SeriesView& v) {
+      if (!policy.empty() && v.policy != policy) return;
+      if (!status.empty() && SeriesStatusText(v) != status) return;
+      if (!label_name.empty()) {
+        auto cached = label_match.find(v.labels.data());
+        if (cached == label_match.end()) {
+          json labels = json::parse(v.labels, nullptr, false);
+          auto it = labels.is_object() ? labels.find(label_name) : labels.end();
+          const bool ok = labels.is_object() && it != labels.end() && *it == label_value;
+          cached = label_match.emplace(v.labels.data(), ok).first;
         }
-        double order = -1;
-        if (sort != "key") {
-          const std::optional<double> sig = Signal(v, sort == "trigg");
-          if (sig) order = std::fabs(*sig);
-        }
-        rows.push_back({v, order});
-      });
-      auto before = [&](const Entry& a, const Entry& b) {
-        if (sort != "key" && a.order != b.order) return a.order > b.order;
-        return a.view.key < b.view.key;
-      };
-      const std::size_t end = std::min(rows.size(), static_cast<std::size_t>(offset + limit));
-      if (end < rows.size())
-        std::partial_sort(rows.begin(), rows.begin() + static_cast<long>(end), rows.end(), before);
-      else
-        std::sort(rows.begin(), rows.end(), before);
-      json page = json::array();
-      for (std::size_t i = static_cast<std::size_t>(offset); i < end; ++i)
-        page.push_back(SeriesSummary(rows[i].view));
-      respond(Json(200, {{"total", rows.size()}, {"offset", offset}, {"limit", limit}, {"series", page}}));
-    });
-    if (!queued) respond(Error(503, "the engine is busy; retry later"));
-    return;
-  }
-  if (path == "/v1/alerts" || path.rfind("/v1/alerts/", 0) == 0)
-    return Alerts(path, query, std::move(request), std::move(respond));
-  if (path == "/v1/deliveries" || path == "/v1/deliveries/retry")
-    return Deliveries(path, query, std::move(request), std::move(respond));
-  const std::string prefix = "/v1/series/";
-  if (path.rfind(prefix, 0) == 0 && path.size() > prefix.size()) {
-    std::string rest = path.substr(prefix.size());
-    std::string action;
-    for (const char* suffix : {"/history", "/reset"}) {
-      const std::string s(suffix);
-      if (rest.size() > s.size() && rest.compare(rest.size() - s.size(), s.size(), s) == 0) {
-        action = s.substr(1);
-        rest.resize(rest.size() - s.size());
-        break;
+        if (!cached->second) return;
       }
+      double order = -1;
+      if (sort != "key") {
+        const std::optional<double> sig = Signal(v, sort == "trigg");
+        if (sig) order = std::fabs(*sig);
+      }
+      rows.push_back({v, order});
+    });
+    auto before = [&](const Entry& a, const Entry& b) {
+      if (sort != "key" && a.order != b.order) return a.order > b.order;
+      return a.view.key < b.view.key;
+    };
+    const std::size_t end = std::min(rows.size(), static_cast<std::size_t>(off) + static_cast<std::size_t>(lim));
+    if (end < rows.size())
+      std::partial_sort(rows.begin(), rows.begin() + static_cast<long>(end), rows.end(), before);
+    else
+      std::sort(rows.begin(), rows.end(), before);
+    json page = json::array();
+    for (std::size_t i = static_cast<std::size_t>(off); i < end; ++i) page.push_back(SeriesSummary(rows[i].view));
+    c->Answer(Json(200, {{"total", rows.size()}, {"offset", off}, {"limit", lim}, {"series", page}}));
+  });
+}
+
+void Api::SeriesDetailOf(const std::shared_ptr<Call>& c) {
+  OnEngine(c, [this, c] {
+    auto v = engine_.FindSeries(c->key);
+    if (!v) return c->Fail(Status::NotFound("no series '" + c->key + "'"));
+    c->Answer(Json(200, SeriesDetail(*v)));
+  });
+}
+
+void Api::SeriesHistory(const std::shared_ptr<Call>& c) {
+  OnEngine(c, [this, c] {
+    const std::string& key = c->key;
+    auto v = engine_.FindSeries(key);
+    if (!v) return c->Fail(Status::NotFound("no series '" + key + "'"));
+    std::int64_t lo = INT64_MIN, hi = INT64_MAX;
+    for (auto [name, bound] : {std::pair{"from", &lo}, std::pair{"to", &hi}}) {
+      const std::string text = c->ParamOr(name);
+      if (text.empty()) continue;
+      const monitors::PeriodParse p = monitors::ParsePeriod(v->spec->period, text);
+      if (!p.ok()) return c->Fail(Status::Invalid(std::string(name) + ": " + p.error));
+      *bound = p.ordinal;
     }
-    const std::string key = UrlDecode(rest, false);
-    if (action == "reset") {
-      if (!post) return respond(Error(405, "use POST"));
-      if (!Authorized(request)) return respond(Unauthorized());
-      return Reset(key, std::move(request), std::move(respond));
-    }
-    if (!get) return respond(Error(405, "use GET"));
-    const std::string from = param("from").value_or(""), to = param("to").value_or("");
-    const bool queued = engine_.Post([=, this] {
-      auto v = engine_.FindSeries(key);
-      if (!v) return respond(Error(404, "no series '" + key + "'"));
-      if (action.empty()) return respond(Json(200, SeriesDetail(*v)));
-      std::int64_t lo = INT64_MIN, hi = INT64_MAX;
-      std::string error;
-      if (!from.empty() && !ParseDateParam(v->spec->period, from, lo, error))
-        return respond(Error(400, "from: " + error));
-      if (!to.empty() && !ParseDateParam(v->spec->period, to, hi, error))
-        return respond(Error(400, "to: " + error));
-      const config::Policy& policy = *v->spec;
-      std::vector<HistoryRow> rows;
-      if (!engine_.History(key, lo, hi, rows, error)) return respond(Error(503, error));
+    const config::Policy& policy = *v->spec;
+    std::vector<HistoryRow> rows;
+    std::string error;
+    if (!engine_.History(key, lo, hi, rows, error)) return c->Fail(Status::StoreFailed(error));
       json out = json::array();
       for (const HistoryRow& h : rows) {
         const monitors::StepResult& r = h.result;
@@ -452,15 +616,178 @@ void Api::Route(HttpRequest&& request, Respond respond) {
         }
         out.push_back(std::move(row));
       }
-      respond(Json(200, {{"key", key}, {"policy", policy.name}, {"rows", out}}));
-    });
-    if (!queued) respond(Error(503, "the engine is busy; retry later"));
-    return;
-  }
-  respond(Error(404, "no such endpoint: " + path));
+    c->Answer(Json(200, {{"key", key}, {"policy", policy.name}, {"rows", out}}));
+  });
 }
 
-void Api::Ingest(HttpRequest&& request, Respond respond) {
+void Api::SeriesReset(const std::shared_ptr<Call>& c) {
+  Result<Body> body = Body::Parse(c->request.body, "{\"to\": \"last\", \"who\": \"name\"}");
+  if (!body) return c->Fail(body.status());
+  Result<std::string> how = body->Text("to", true, "value, last or mean");
+  if (!how) return c->Fail(how.status());
+  if (*how != "value" && *how != "last" && *how != "mean")
+    return c->Fail(Status::Invalid("field to: must be value, last or mean"));
+  double value = 0;
+  int k = 1;
+  if (*how == "value") {
+    Result<double> v = body->Number("value", "the new level with to = value");
+    if (!v) return c->Fail(v.status());
+    value = *v;
+  }
+  if (*how == "mean") {
+    Result<std::int64_t> n = body->Whole("k", 1, 100000, "the periods to average with to = mean");
+    if (!n) return c->Fail(n.status());
+    k = static_cast<int>(*n);
+  }
+  Result<std::string> who = body->Text("who", true, "say who re-levels the series (recorded in the audit log)");
+  if (!who) return c->Fail(who.status());
+  Result<std::string> note = body->Text("note", false, "a note for the audit log");
+  if (!note) return c->Fail(note.status());
+  OnEngine(c, [this, c, how = *how, value, k, who = *who, note = *note] {
+    Result<double> level = engine_.Reset(c->key, how, value, k, who, note);
+    if (!level) return c->Fail(level.status());
+    auto v = engine_.FindSeries(c->key);
+    json out = SeriesDetail(*v);
+    out["reset"] = {{"level", *level}, {"to", how}, {"who", who}};
+    c->Answer(Json(200, out));
+  });
+}
+
+void Api::AlertList(const std::shared_ptr<Call>& c) {
+  AlertFilter f;
+  Result<std::int64_t> limit = ParseWholeNumber(c->ParamOr("limit", "100"), 1, 1000);
+  if (!limit) return c->Fail(Status(limit.status()).Prefix("limit: "));
+  f.limit = static_cast<long>(*limit);
+  if (auto b = c->Param("before")) {
+    Result<std::int64_t> before = ParseWholeNumber(*b, 1, INT64_MAX);
+    if (!before) return c->Fail(Status(before.status()).Prefix("before: "));
+    f.before = *before;
+  }
+  f.state = c->ParamOr("state");
+  if (!f.state.empty() && f.state != "open" && f.state != "acknowledged" && f.state != "snoozed" &&
+      f.state != "resolved" && f.state != "unresolved")
+    return c->Fail(Status::Invalid("state must be open, acknowledged, snoozed, resolved or unresolved"));
+  f.severity = c->ParamOr("severity");
+  if (!f.severity.empty() && !monitors::ParseSeverity(f.severity))
+    return c->Fail(Status::Invalid("severity must be info, warning or critical"));
+  if (auto g = c->Param("group"); g && !g->empty()) {
+    Result<std::int64_t> group = ParseWholeNumber(*g, 1, INT64_MAX);
+    if (!group) return c->Fail(Status(group.status()).Prefix("group: "));
+    f.group = *group;
+  }
+  f.policy = c->ParamOr("policy");
+  f.rule = c->ParamOr("rule");
+  f.series = c->ParamOr("series");
+  OnEngine(c, [this, c, f] {
+    Result<AlertPage> page = ListAlerts(engine_.db(), f);
+    if (!page) return c->Fail(page.status());
+    c->Answer(Json(200, {{"alerts", page->alerts},
+                         {"next_before", page->next_before ? json(*page->next_before) : json(nullptr)}}));
+  });
+}
+
+namespace {
+
+Result<std::int64_t> AlertId(const std::string& text) {
+  Result<std::int64_t> id = ParseWholeNumber(text, 1, INT64_MAX);
+  if (!id) return Status::NotFound("no such alert: " + text.substr(0, 40));
+  return id;
+}
+
+}  // namespace
+
+void Api::AlertDetail(const std::shared_ptr<Call>& c) {
+  Result<std::int64_t> id = AlertId(c->id_text);
+  if (!id) return c->Fail(id.status());
+  OnEngine(c, [this, c, id = *id] {
+    Result<json> alert = AlertWithHistory(engine_.db(), id);
+    if (!alert) return c->Fail(alert.status());
+    c->Answer(Json(200, *alert));
+  });
+}
+
+void Api::AlertAct(const std::shared_ptr<Call>& c) {
+  Result<std::int64_t> id_or = AlertId(c->id_text);
+  if (!id_or) return c->Fail(id_or.status());
+  const std::int64_t id = *id_or;
+  const std::string pattern = c->route->pattern;
+  const std::string action = pattern.substr(pattern.rfind('/') + 1);
+  Result<Body> body = Body::Parse(c->request.body, "{\"by\": \"name\", \"note\": \"...\"}");
+  if (!body) return c->Fail(body.status());
+  Result<std::string> by = body->Text("by", true, "say who does this (kept in the alert's history)");
+  if (!by) return c->Fail(by.status());
+  Result<std::string> note = body->Text("note", false, "a note kept in the alert's history");
+  if (!note) return c->Fail(note.status());
+  std::string until;
+  std::optional<std::int64_t> until_ms;
+  if (action == "snooze") {
+    Result<std::string> u = body->Text("until", true,
+        "a period of the series' policy (2026-W50, 2026-12, 2026-12-05) or an ISO 8601 time (2026-12-05T10:00:00Z)");
+    if (!u) return c->Fail(u.status());
+    until = *u;
+    std::int64_t ms = 0;
+    if (until.find('T') != std::string::npos) {
+      if (!ParseIsoTime(until, ms))
+        return c->Fail(Status::Invalid("field until: not an ISO 8601 time with Z or an offset: " + until));
+      until_ms = ms;
+    }
+  }
+  OnEngine(c, [=, this, by = *by, note = *note] {
+    Status done = engine_.AlertAction([&](AlertBook& book, std::int64_t now) -> Status {
+      if (action == "acknowledge") return book.Acknowledge(id, by, note, now);
+      if (action == "resolve") return book.ResolveByHand(id, by, note, now);
+      std::optional<std::int64_t> until_period;
+      if (!until_ms) {
+        // a period of the alert's policy
+        Result<std::string> policy_name = book.PolicyOf(id);
+        if (!policy_name) return policy_name.status();
+        const config::Policy* policy = nullptr;
+        for (const auto& p : engine_.settings().policies)
+          if (p.name == *policy_name) policy = &p;
+        if (!policy) return Status::NotFound("no alert " + std::to_string(id) + " of a known policy");
+        const monitors::PeriodParse parsed = monitors::ParsePeriod(policy->period, until);
+        if (!parsed.ok()) return Status::Invalid("field until: " + parsed.error);
+        until_period = parsed.ordinal;
+      } else if (*until_ms <= now) {
+        return Status::Invalid("field until: the time has passed");
+      }
+      return book.Snooze(id, until_period, until, until_ms, by, note, now);
+    });
+    if (!done) return c->Fail(done);
+    Result<json> alert = AlertObject(engine_.db(), id);
+    if (!alert) return c->Fail(alert.status());
+    c->Answer(Json(200, *alert));
+  });
+}
+
+void Api::DeliveryList(const std::shared_ptr<Call>& c) {
+  const std::string state = c->ParamOr("state", "dead"), sink = c->ParamOr("sink");
+  if (state != "dead" && state != "pending" && state != "delivered")
+    return c->Fail(Status::Invalid("state must be dead, pending or delivered"));
+  OnEngine(c, [this, c, state, sink] {
+    Result<json> list = ListDeliveries(engine_.db(), state, sink);
+    if (!list) return c->Fail(list.status());
+    c->Answer(Json(200, {{"deliveries", *list}}));
+  });
+}
+
+void Api::DeliveryRetry(const std::shared_ptr<Call>& c) {
+  const std::string sink = c->ParamOr("sink");
+  OnEngine(c, [this, c, sink] {
+    long changed = 0;
+    Status done = engine_.AlertAction([&](AlertBook& book, std::int64_t now) -> Status {
+      Result<long> n = book.RequeueDead(sink, now);
+      if (!n) return n.status();
+      changed = *n;
+      return Status::Ok();
+    });
+    if (!done) return c->Fail(done);
+    c->Answer(Json(200, {{"requeued", changed}}));
+  });
+}
+
+void Api::Ingest(const std::shared_ptr<Call>& c) {
+  const HttpRequest& request = c->request;
   const auto s = settings();
   const std::string type = request.content_type.substr(0, request.content_type.find(';'));
   ParsedBatch batch;
@@ -474,11 +801,11 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
     batch = ParseNdjsonBatch(request.body, limits);
   } else {
     counters_.rejected_media_type.fetch_add(1);
-    return respond(Error(415, "send text/csv (series,period,value) or application/x-ndjson"));
+    return c->Answer(Error(415, "send text/csv (series,period,value) or application/x-ndjson"));
   }
   if (batch.too_many_rows) {
     counters_.rejected_too_many_rows.fetch_add(1);
-    return respond(Error(413, "more than max_rows_per_batch (" +
+    return c->Answer(Error(413, "more than max_rows_per_batch (" +
                                   std::to_string(s->server.max_rows_per_batch) + ") rows"));
   }
   auto problems_json = [](const std::vector<RowProblem>& problems, long count) {
@@ -493,16 +820,16 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
     counters_.rejected_bad_input.fetch_add(1);
     counters_.rejected_rows.fetch_add(batch.data_rows);
     counters_.rejected_batches.fetch_add(1);
-    return respond(Json(400, problems_json(batch.problems, batch.problem_count)));
+    return c->Answer(Json(400, problems_json(batch.problems, batch.problem_count)));
   }
   const auto received = std::chrono::steady_clock::now();
   const std::size_t rows = batch.rows.size();
-  const bool queued = engine_.Submit(std::move(batch.rows), [this, respond, problems_json, received, rows](IngestReply r) {
+  auto answer = [this, c, problems_json, received, rows](IngestReply r) {
     switch (r.status) {
       case IngestReply::Status::kOk:
         if (metrics_)
           metrics_->ObserveBatch(rows, std::chrono::duration<double>(std::chrono::steady_clock::now() - received).count());
-        return respond(Json(200, {{"rows", r.counts.rows},
+        return c->Answer(Json(200, {{"rows", r.counts.rows},
                                   {"applied", r.counts.applied},
                                   {"unchanged", r.counts.unchanged},
                                   {"restated", r.counts.restated},
@@ -512,312 +839,26 @@ void Api::Ingest(HttpRequest&& request, Respond respond) {
                                   {"alerts_resolved", r.counts.alerts_resolved}}));
       case IngestReply::Status::kRejected:
         counters_.rejected_bad_input.fetch_add(1);
-        return respond(Json(400, problems_json(r.problems, r.problem_count)));
+        return c->Answer(Json(400, problems_json(r.problems, r.problem_count)));
       case IngestReply::Status::kUnavailable: {
         counters_.rejected_unavailable.fetch_add(1);
         HttpResponse out = Error(503, "the store is failing; nothing was applied: " + r.error);
-        return respond(std::move(out));
+        return c->Answer(std::move(out));
       }
+    }
+  };
+  // The reply runs on the engine thread after the commit: behind the same guard as any handler.
+  const bool queued = engine_.Submit(std::move(batch.rows), [this, c, answer](IngestReply r) {
+    try {
+      answer(std::move(r));
+    } catch (const std::exception& e) {
+      Internal(*c, e.what());
     }
   });
   if (!queued) {
     counters_.rejected_queue_full.fetch_add(1);
-    HttpResponse out = Error(503, "the engine queue is full; retry later");
-    out.headers.emplace_back("Retry-After", "1");
-    respond(std::move(out));
+    c->Fail(Status::Busy("the engine queue is full; retry later"));
   }
-}
-
-namespace {
-
-json DeliveryRows(Db& db, std::int64_t event) {
-  json out = json::array();
-  Stmt q = db.Prepare("SELECT sink, state, attempts, last_error FROM deliveries WHERE event_id = ?1 ORDER BY sink");
-  if (!q.valid() || !q.Bind(1, event).Step()) return out;
-  for (; q.Row(); q.Step())
-    out.push_back({{"sink", std::string(q.Text(0))}, {"state", std::string(q.Text(1))},
-                   {"attempts", q.Int(2)},
-                   {"last_error", q.IsNull(3) ? json(nullptr) : json(std::string(q.Text(3)))}});
-  return out;
-}
-
-}  // namespace
-
-void Api::Alerts(const std::string& path, const Query& query, HttpRequest&& request, Respond respond) {
-  auto param = [&](const char* name) -> std::string {
-    for (auto& [k, v] : query)
-      if (k == name) return v;
-    return "";
-  };
-  const bool get = request.method == "GET", post = request.method == "POST";
-  if (path == "/v1/alerts") {
-    if (!get) return respond(Error(405, "use GET"));
-    long limit = 100;
-    std::int64_t before = INT64_MAX;
-    try {
-      if (!param("limit").empty()) limit = std::stol(param("limit"));
-      if (!param("before").empty()) before = std::stoll(param("before"));
-    } catch (const std::exception&) {
-      return respond(Error(400, "limit and before must be whole numbers"));
-    }
-    if (limit < 1 || limit > 1000) return respond(Error(400, "limit must be 1..1000"));
-    const std::string state = param("state");
-    if (!state.empty() && state != "open" && state != "acknowledged" && state != "snoozed" &&
-        state != "resolved" && state != "unresolved")
-      return respond(Error(400, "state must be open, acknowledged, snoozed, resolved or unresolved"));
-    const std::string severity = param("severity");
-    if (!severity.empty() && !monitors::ParseSeverity(severity))
-      return respond(Error(400, "severity must be info, warning or critical"));
-    std::string group = param("group");
-    if (!group.empty() && group.find_first_not_of("0123456789") != std::string::npos)
-      return respond(Error(400, "group must be a whole number"));
-    // Fixed SQL fragments; every value is bound.
-    std::string sql = "SELECT id FROM alerts WHERE id < ?1";
-    std::vector<std::string> values;
-    auto filter = [&](const std::string& value, const char* column) {
-      if (value.empty()) return;
-      values.push_back(value);
-      sql += std::string(" AND ") + column + " = ?" + std::to_string(values.size() + 1);
-    };
-    if (state == "unresolved")
-      sql += " AND state != 'resolved'";
-    else
-      filter(state, "state");
-    filter(param("policy"), "policy");
-    filter(param("rule"), "rule");
-    filter(severity, "severity");
-    if (!param("series").empty()) {  // through the series' id (indexed), not its key
-      values.push_back(param("series"));
-      sql += " AND series_id = (SELECT id FROM series WHERE key = ?" + std::to_string(values.size() + 1) + ")";
-    }
-    filter(group, "CAST(group_id AS TEXT)");
-    sql += " ORDER BY id DESC LIMIT " + std::to_string(limit + 1);
-    const bool queued = engine_.Post([=, this] {
-      Db& db = engine_.db();
-      Stmt q = db.Prepare(sql);
-      if (!q.valid()) return respond(Error(503, db.error()));
-      q.Bind(1, before);
-      for (std::size_t i = 0; i < values.size(); ++i) q.Bind(static_cast<int>(i + 2), values[i]);
-      std::vector<std::int64_t> ids;
-      if (!q.Step()) return respond(Error(503, db.error()));
-      for (; q.Row(); q.Step()) ids.push_back(q.Int(0));
-      const bool more = static_cast<long>(ids.size()) > limit;
-      if (more) ids.pop_back();
-      json list = json::array();
-      for (std::int64_t id : ids) {
-        std::string text, error;
-        if (!AlertJson(db, id, text, error)) return respond(Error(503, error));
-        list.push_back(json::parse(text));
-      }
-      respond(Json(200, {{"alerts", list},
-                         {"next_before", more ? json(ids.back()) : json(nullptr)}}));
-    });
-    if (!queued) respond(Error(503, "the engine is busy; retry later"));
-    return;
-  }
-  // /v1/alerts/{id}[/acknowledge|/snooze|/resolve]
-  std::string rest = path.substr(std::string("/v1/alerts/").size());
-  std::string action;
-  if (const std::size_t slash = rest.find('/'); slash != std::string::npos) {
-    action = rest.substr(slash + 1);
-    rest.resize(slash);
-  }
-  if (rest.empty() || rest.size() > 18 || rest.find_first_not_of("0123456789") != std::string::npos)
-    return respond(Error(404, "no such alert: " + rest));
-  const std::int64_t id = std::stoll(rest);
-  if (action.empty()) {
-    if (!get) return respond(Error(405, "use GET"));
-    const bool queued = engine_.Post([=, this] {
-      Db& db = engine_.db();
-      std::string text, error;
-      if (!AlertJson(db, id, text, error))
-        return respond(Error(error.rfind("no alert", 0) == 0 ? 404 : 503, error));
-      json alert = json::parse(text);
-      json history = json::array();
-      Stmt q = db.Prepare(
-          "SELECT id, kind, at_ms, actor, note FROM alert_events WHERE alert_id = ?1 ORDER BY id");
-      if (!q.valid() || !q.Bind(1, id).Step()) return respond(Error(503, db.error()));
-      std::vector<std::int64_t> events;
-      for (; q.Row(); q.Step()) {
-        history.push_back({{"event", q.Int(0)},
-                           {"kind", std::string(q.Text(1))},
-                           {"at", IsoTime(q.Int(2))},
-                           {"by", q.IsNull(3) ? json(nullptr) : json(std::string(q.Text(3)))},
-                           {"note", q.IsNull(4) ? json(nullptr) : json(std::string(q.Text(4)))}});
-        events.push_back(q.Int(0));
-      }
-      q.Reset();
-      for (std::size_t i = 0; i < events.size(); ++i) history[i]["deliveries"] = DeliveryRows(db, events[i]);
-      alert["history"] = history;
-      respond(Json(200, alert));
-    });
-    if (!queued) respond(Error(503, "the engine is busy; retry later"));
-    return;
-  }
-  if (action != "acknowledge" && action != "snooze" && action != "resolve")
-    return respond(Error(404, "no such endpoint: " + path));
-  if (!post) return respond(Error(405, "use POST"));
-  if (!Authorized(request)) return respond(Unauthorized());
-  json body = json::parse(request.body, nullptr, false);
-  if (body.is_discarded() || !body.is_object())
-    return respond(Error(400, "the body must be a JSON object such as {\"by\": \"name\", \"note\": \"...\"}"));
-  if (!body.contains("by") || !body["by"].is_string() || body["by"].get<std::string>().empty())
-    return respond(Error(400, "field by: say who does this (kept in the alert's history)"));
-  const std::string by = body["by"].get<std::string>();
-  if (body.contains("note") && !body["note"].is_string())
-    return respond(Error(400, "field note: must be a string"));
-  const std::string note = body.value("note", "");
-  std::string until;
-  std::optional<std::int64_t> until_ms;
-  if (action == "snooze") {
-    if (!body.contains("until") || !body["until"].is_string())
-      return respond(Error(400, "field until: a period of the series' policy (2026-W50, 2026-12, 2026-12-05) or an ISO 8601 time (2026-12-05T10:00:00Z)"));
-    until = body["until"].get<std::string>();
-    std::int64_t ms = 0;
-    if (until.find('T') != std::string::npos) {
-      if (!ParseIsoTime(until, ms)) return respond(Error(400, "field until: not an ISO 8601 time with Z or an offset: " + until));
-      until_ms = ms;
-    }
-  }
-  const bool queued = engine_.Post([=, this] {
-    int status = 200;
-    std::string error;
-    engine_.AlertAction(
-        [&](AlertBook& book, std::int64_t now, int& st, std::string& err) {
-          if (action == "acknowledge") return book.Acknowledge(id, by, note, now, st, err);
-          if (action == "resolve") return book.ResolveByHand(id, by, note, now, st, err);
-          std::optional<std::int64_t> until_period;
-          if (!until_ms) {
-            // a period of the alert's policy
-            std::string policy_name;
-            Stmt q = engine_.db().Prepare("SELECT policy FROM alerts WHERE id = ?1");
-            if (q.valid() && q.Bind(1, id).Step() && q.Row()) policy_name = std::string(q.Text(0));
-            const config::Policy* policy = nullptr;
-            for (const auto& p : engine_.settings().policies)
-              if (p.name == policy_name) policy = &p;
-            if (!policy) {
-              st = 404;
-              err = "no alert " + std::to_string(id) + " of a known policy";
-              return false;
-            }
-            const monitors::PeriodParse parsed = monitors::ParsePeriod(policy->period, until);
-            if (!parsed.ok()) {
-              st = 400;
-              err = "field until: " + parsed.error;
-              return false;
-            }
-            until_period = parsed.ordinal;
-          } else if (*until_ms <= now) {
-            st = 400;
-            err = "field until: the time has passed";
-            return false;
-          }
-          return book.Snooze(id, until_period, until, until_ms, by, note, now, st, err);
-        },
-        status, error);
-    if (status != 200) return respond(Error(status, error));
-    std::string text;
-    if (!AlertJson(engine_.db(), id, text, error)) return respond(Error(503, error));
-    respond(Json(200, json::parse(text)));
-  });
-  if (!queued) respond(Error(503, "the engine is busy; retry later"));
-}
-
-void Api::Deliveries(const std::string& path, const Query& query, HttpRequest&& request, Respond respond) {
-  std::string state = "dead", sink;
-  for (auto& [k, v] : query) {
-    if (k == "state") state = v;
-    if (k == "sink") sink = v;
-  }
-  if (state != "dead" && state != "pending" && state != "delivered")
-    return respond(Error(400, "state must be dead, pending or delivered"));
-  if (path == "/v1/deliveries/retry") {
-    if (request.method != "POST") return respond(Error(405, "use POST"));
-    if (!Authorized(request)) return respond(Unauthorized());
-    const bool queued = engine_.Post([=, this] {
-      int status = 200;
-      std::string error;
-      long changed = 0;
-      engine_.AlertAction(
-          [&](AlertBook&, std::int64_t now, int& st, std::string& err) {
-            Stmt q = engine_.db().Prepare(
-                "UPDATE deliveries SET state = 'pending', attempts = 0, next_ms = ?1 "
-                "WHERE state = 'dead' AND (?2 = '' OR sink = ?2)");
-            if (!q.valid() || !q.Bind(1, now).Bind(2, sink).Run()) {
-              st = 500;
-              err = engine_.db().error();
-              return false;
-            }
-            changed = engine_.db().Changes();
-            return true;
-          },
-          status, error);
-      if (status != 200) return respond(Error(status, error));
-      respond(Json(200, {{"requeued", changed}}));
-    });
-    if (!queued) respond(Error(503, "the engine is busy; retry later"));
-    return;
-  }
-  if (request.method != "GET") return respond(Error(405, "use GET"));
-  const bool queued = engine_.Post([=, this] {
-    Db& db = engine_.db();
-    Stmt q = db.Prepare(
-        "SELECT d.event_id, d.sink, d.state, d.attempts, d.last_error, e.kind, e.alert_id, "
-        "e.group_id, e.at_ms FROM deliveries d JOIN alert_events e ON e.id = d.event_id "
-        "WHERE d.state = ?1 AND (?2 = '' OR d.sink = ?2) ORDER BY d.event_id LIMIT 1000");
-    if (!q.valid() || !q.Bind(1, state).Bind(2, sink).Step()) return respond(Error(503, db.error()));
-    json list = json::array();
-    for (; q.Row(); q.Step())
-      list.push_back({{"event", q.Int(0)},
-                      {"sink", std::string(q.Text(1))},
-                      {"state", std::string(q.Text(2))},
-                      {"attempts", q.Int(3)},
-                      {"last_error", q.IsNull(4) ? json(nullptr) : json(std::string(q.Text(4)))},
-                      {"kind", std::string(q.Text(5))},
-                      {"alert", q.IsNull(6) ? json(nullptr) : json(q.Int(6))},
-                      {"group", q.IsNull(7) ? json(nullptr) : json(q.Int(7))},
-                      {"at", IsoTime(q.Int(8))}});
-    respond(Json(200, {{"deliveries", list}}));
-  });
-  if (!queued) respond(Error(503, "the engine is busy; retry later"));
-}
-
-void Api::Reset(const std::string& key, HttpRequest&& request, Respond respond) {
-  json body = json::parse(request.body, nullptr, false);
-  if (body.is_discarded() || !body.is_object())
-    return respond(Error(400, "the body must be a JSON object such as {\"to\": \"last\", \"who\": \"name\"}"));
-  const std::string how = body.value("to", "");
-  if (how != "value" && how != "last" && how != "mean")
-    return respond(Error(400, "field to: must be value, last or mean"));
-  double value = 0;
-  int k = 1;
-  if (how == "value") {
-    if (!body.contains("value") || !body["value"].is_number())
-      return respond(Error(400, "field value: a number is needed with to = value"));
-    value = body["value"].get<double>();
-  }
-  if (how == "mean") {
-    if (!body.contains("k") || !body["k"].is_number_integer() || body["k"].get<int>() < 1 ||
-        body["k"].get<int>() > 100000)
-      return respond(Error(400, "field k: a whole number of periods (1..100000) is needed with to = mean"));
-    k = body["k"].get<int>();
-  }
-  if (!body.contains("who") || !body["who"].is_string() || body["who"].get<std::string>().empty())
-    return respond(Error(400, "field who: say who re-levels the series (recorded in the audit log)"));
-  const std::string who = body["who"].get<std::string>();
-  const std::string note = body.contains("note") && body["note"].is_string() ? body["note"].get<std::string>() : "";
-  const bool queued = engine_.Post([=, this] {
-    double level = 0;
-    bool not_found = false;
-    std::string error;
-    if (!engine_.Reset(key, how, value, k, who, note, level, not_found, error))
-      return respond(Error(not_found ? 404 : (engine_.failure().empty() ? 409 : 503), error));
-    auto v = engine_.FindSeries(key);
-    json out = SeriesDetail(*v);
-    out["reset"] = {{"level", level}, {"to", how}, {"who", who}};
-    respond(Json(200, out));
-  });
-  if (!queued) respond(Error(503, "the engine is busy; retry later"));
 }
 
 }  // namespace forewarden

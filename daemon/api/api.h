@@ -15,12 +15,16 @@
 //   GET  /healthz, /readyz
 //   GET  /metrics                         Prometheus text exposition (metrics.h)
 // Write endpoints need "Authorization: Bearer TOKEN" when a token is configured (compared in
-// constant time, never logged). Reads run as jobs on the engine thread.
+// constant time, never logged). Reads run as jobs on the engine thread. Every route is one row of
+// the table in api.cpp (method, pattern, whether it writes, handler); the route label of the
+// request metrics is the pattern. Domain errors (common/status.h) become HTTP statuses in one
+// function, HttpStatusOf, and nowhere else.
 #pragma once
 
 #include <memory>
 #include <mutex>
 #include <string>
+#include <vector>
 
 #include "config/settings.h"
 #include "daemon/engine/engine.h"
@@ -34,21 +38,41 @@ class Api {
  public:
   Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
       Metrics* metrics = nullptr);
+  // Answers every request exactly once. No exception leaves it: a handler that throws (here or
+  // in its engine job) is answered 500, logged with its request line and counted.
   void Handle(HttpRequest&& request, Respond respond);
   // Thread-safe: settings and token after a reload.
   void Update(std::shared_ptr<const config::Settings> settings, std::string token);
   const ApiCounters& counters() const { return counters_; }
 
+  struct Call;  // one request on its way through a handler (api.cpp)
+  struct Route;
+
  private:
-  void Ingest(HttpRequest&& request, Respond respond);
-  using Query = std::vector<std::pair<std::string, std::string>>;
-  void Reset(const std::string& key, HttpRequest&& request, Respond respond);
-  void Alerts(const std::string& path, const Query& query, HttpRequest&& request, Respond respond);
-  void Deliveries(const std::string& path, const Query& query, HttpRequest&& request, Respond respond);
+  void Dispatch(const std::shared_ptr<Call>& call);
+  // Runs `job` on the engine thread behind the same guard as Handle; busy when the queue is full.
+  void OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job);
+  void Internal(Call& call, const char* what);
   bool Authorized(const HttpRequest& request);
   std::shared_ptr<const config::Settings> settings() const;
 
-  void Route(HttpRequest&& request, Respond respond);
+  void Health(const std::shared_ptr<Call>& c);
+  void Ready(const std::shared_ptr<Call>& c);
+  void MetricsText(const std::shared_ptr<Call>& c);
+  void Ingest(const std::shared_ptr<Call>& c);
+  void Policies(const std::shared_ptr<Call>& c);
+  void SeriesList(const std::shared_ptr<Call>& c);
+  void SeriesDetailOf(const std::shared_ptr<Call>& c);
+  void SeriesHistory(const std::shared_ptr<Call>& c);
+  void SeriesReset(const std::shared_ptr<Call>& c);
+  void AlertList(const std::shared_ptr<Call>& c);
+  void AlertDetail(const std::shared_ptr<Call>& c);
+  void AlertAct(const std::shared_ptr<Call>& c);
+  void DeliveryList(const std::shared_ptr<Call>& c);
+  void DeliveryRetry(const std::shared_ptr<Call>& c);
+
+  static const std::vector<Route>& Routes();
+
   Engine& engine_;
   Metrics* metrics_;
   mutable std::mutex mu_;

@@ -5,6 +5,7 @@
 #include <nlohmann/json.hpp>
 
 #include "daemon/common/csv.h"
+#include "daemon/common/key_text.h"
 #include "daemon/common/parse_number.h"
 #include "monitors/period.h"
 
@@ -43,6 +44,19 @@ bool CheckPeriod(ParsedBatch& b, long line, const std::string& text) {
 // The per-row bounds; false (with a problem) when the row breaks one.
 bool WithinLimits(ParsedBatch& b, long line, const IngestRow& row, const IngestLimits& limits) {
   bool ok = true;
+  if (std::string why = KeyTextProblem(row.series); !why.empty()) {
+    Add(b, line, "series", "the series key holds " + why);
+    ok = false;
+  }
+  for (const auto& [name, value] : row.labels) {
+    std::string why = KeyTextProblem(name);
+    if (why.empty()) why = KeyTextProblem(value);
+    if (!why.empty()) {
+      Add(b, line, "labels", "label '" + name.substr(0, 40) + "' holds " + why);
+      ok = false;
+      break;
+    }
+  }
   if (row.series.size() > limits.max_key_bytes) {
     Add(b, line, "series", "the series key is " + std::to_string(row.series.size()) +
                                " bytes; server.max_key_bytes is " + std::to_string(limits.max_key_bytes));

@@ -15,6 +15,7 @@
 #include <unordered_map>
 
 #include "daemon/common/csv.h"
+#include "daemon/common/key_text.h"
 #include "daemon/common/key_arena.h"
 #include "daemon/cli/text_out.h"
 #include "monitors/series.h"
@@ -415,6 +416,10 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
       if (it != series.end()) {
         found = it->second;
       } else {
+        if (std::string why = KeyTextProblem(key); !why.empty()) {
+          error = Where(line, "series") + "the series key holds " + why;
+          return 2;
+        }
         std::vector<std::pair<std::string, std::string>> labels;
         for (std::size_t i = 0; i < ncols; ++i)
           if (!label_names[i].empty() && !fields[i].empty())

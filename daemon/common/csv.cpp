@@ -1,5 +1,7 @@
 #include "daemon/common/csv.h"
 
+#include "daemon/common/key_text.h"
+
 #include <cstring>
 
 namespace forewarden {
@@ -135,6 +137,8 @@ bool CsvReader::Next(std::vector<std::string_view>& fields) {
   if (!ok()) return false;
   std::string_view line;
   while (NextLine(line)) {
+    // A UTF-8 byte-order mark before the first line (spreadsheet exports) is not data.
+    if (line_ == 1) line = StripByteOrderMark(line);
     if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
     if (line.empty()) continue;
     return Split(line, fields);

@@ -227,43 +227,32 @@ void Engine::CollectChanges(std::size_t index, const monitors::StepResult& r, st
   }
 }
 
-bool Engine::AlertAction(const std::function<bool(AlertBook&, std::int64_t, int&, std::string&)>& action,
-                         int& status, std::string& error) {
-  const std::string sticky = failure();
-  if (!sticky.empty()) {
-    status = 503;
-    error = sticky;
-    return false;
-  }
+Status Engine::AlertAction(const std::function<Status(AlertBook&, std::int64_t now_ms)>& action) {
+  if (std::string sticky = failure(); !sticky.empty()) return Status::StoreFailed(sticky);
   if (!store_.Begin()) {
     Fail("store: " + store_.error());
-    status = 503;
-    error = failure();
-    return false;
+    return Status::StoreFailed(failure());
   }
   const std::size_t mark = alerts_.Mark();
-  status = 200;
-  if (!action(alerts_, clock_(), status, error)) {
+  Status done = action(alerts_, clock_());
+  if (!done) {
     store_.Rollback();
     alerts_.RollbackTo(mark);
-    if (status == 500) {
-      Fail("store: alerts: " + error);
-      status = 503;
-      error = failure();
+    if (done.kind() == ErrorKind::kStoreFailed) {
+      Fail("store: alerts: " + done.message());
+      return Status::StoreFailed(failure());
     }
-    return false;
+    return done;
   }
   if (!store_.Commit()) {
     Fail("store: commit: " + store_.error());
     store_.Rollback();
     alerts_.RollbackTo(mark);
-    status = 503;
-    error = failure();
-    return false;
+    return Status::StoreFailed(failure());
   }
   alerts_.Forget();
   if (on_outbox_) on_outbox_();
-  return true;
+  return Status::Ok();
 }
 
 void Engine::Housekeeping() {
@@ -644,6 +633,11 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   if (found_at < 0) {
     const config::Policy* policy = config::FindPolicy(*settings_, row.series, row.labels);
     if (!policy) return problem("series", "no policy matches the series '" + row.series + "'");
+    if (static_cast<long>(series_.size()) >= settings_->server.max_series) {
+      counters_.series_refused.fetch_add(1);
+      return problem("series", "a new series, but the service holds server.max_series (" +
+                                   std::to_string(settings_->server.max_series) + ") series already");
+    }
     Series s;
     s.key = keys_.Add(row.series);
     const std::string labels = LabelsJson(row.labels);
@@ -672,7 +666,7 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   const config::Policy& policy = *s.policy;
   const monitors::PeriodParse period = monitors::ParsePeriod(policy.period, row.period);
   if (!period.ok()) return problem("period", period.error);
-  if (!std::isfinite(row.value)) return problem("value", "the value is not a finite number");
+  if (const char* why = monitors::ActualProblem(policy.spec, row.value)) return problem("value", why);
   // an actual for the policy arrived (new, duplicate or restated): the feed is alive
   if (std::find(p.policies.begin(), p.policies.end(), &policy) == p.policies.end())
     p.policies.push_back(&policy);
@@ -851,52 +845,39 @@ bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,
   return true;
 }
 
-bool Engine::Reset(const std::string& key, const std::string& how, double value, int k,
-                   const std::string& who, const std::string& note, double& new_level,
-                   bool& not_found, std::string& error) {
-  not_found = false;
+Result<double> Engine::Reset(const std::string& key, const std::string& how, double value, int k,
+                             const std::string& who, const std::string& note) {
   const long pos = index_.Find(key);
-  if (pos < 0) {
-    not_found = true;
-    error = "no series '" + key + "'";
-    return false;
-  }
+  if (pos < 0) return Status::NotFound("no series '" + key + "'");
+  double new_level = 0;
   Series& s = series_[static_cast<std::size_t>(pos)];
   if (!s.state.started || !s.state.seen) {
-    error = "the series has no forecast yet; nothing to re-level";
-    return false;
+    return Status::Conflict("the series has no forecast yet; nothing to re-level");
   }
   if (monitors::IsIntermittent(s.policy->spec.method)) {
-    error = "croston and sba series cannot be re-leveled";
-    return false;
+    return Status::Conflict("croston and sba series cannot be re-leveled");
   }
-  if (!failure().empty()) {
-    error = failure();
-    return false;
-  }
+  if (!failure().empty()) return Status::StoreFailed(failure());
   if (how == "value") {
     new_level = value;
   } else {
     std::vector<StoredActual> actuals;
     if (!store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals)) {
       Fail("store: " + store_.error());
-      error = failure();
-      return false;
+      return Status::StoreFailed(failure());
     }
     const std::size_t n = how == "last" ? 1 : static_cast<std::size_t>(k);
     if (actuals.size() < n) {
-      error = "only " + std::to_string(actuals.size()) + " retained actuals, " + std::to_string(n) +
-              " needed";
-      return false;
+      return Status::Conflict("only " + std::to_string(actuals.size()) + " retained actuals, " +
+                              std::to_string(n) + " needed");
     }
     double sum = 0;
     for (std::size_t i = actuals.size() - n; i < actuals.size(); ++i) sum += actuals[i].value;
     new_level = sum / static_cast<double>(n);
   }
-  if (!std::isfinite(new_level)) {
-    error = "the new level is not a finite number";
-    return false;
-  }
+  if (!std::isfinite(new_level) || std::fabs(new_level) > monitors::kMaxActual)
+    return Status::Invalid("field value: the new level must be a finite number within +/-" +
+                           std::to_string(monitors::kMaxActual));
   const Adjustment adj{s.state.last_period, new_level};
   const std::string detail = "level " + std::to_string(new_level) + " (" + how + ")" +
                              (note.empty() ? "" : ": " + note);
@@ -904,8 +885,7 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
       !store_.Audit(clock_(), who, "reset", std::string(s.key), detail)) {
     Fail("store: " + store_.error());
     store_.Rollback();
-    error = failure();
-    return false;
+    return Status::StoreFailed(failure());
   }
   monitors::SeriesState next = s.state;
   Relevel(next, new_level);
@@ -917,13 +897,12 @@ bool Engine::Reset(const std::string& key, const std::string& how, double value,
     Fail("store: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
     store_.Rollback();
     alerts_.RollbackTo(mark);
-    error = failure();
-    return false;
+    return Status::StoreFailed(failure());
   }
   alerts_.Forget();
   s.state = std::move(next);
   Committed(counts);
-  return true;
+  return new_level;
 }
 
 void Engine::Committed(const AlertCounts& c) {

@@ -122,6 +122,7 @@ inline constexpr double kCusumBounds[] = {1, 2, 3, 4, 5, 6, 8, 10, 15, 20, 50};
 // Engine totals since start (thread-safe reads).
 struct EngineCounters {
   std::atomic<long> applied{0}, unchanged{0}, restated{0}, rejected_rows{0};
+  std::atomic<long> series_refused{0};  // rows of new series refused at server.max_series
   std::atomic<long> batches_ok{0}, batches_rejected{0}, batches_unavailable{0};
   std::atomic<long> alerts_opened{0}, alerts_escalated{0}, alerts_resolved{0}, alerts_grouped{0};
 };
@@ -159,12 +160,11 @@ class Engine {
   // Recomputed retained history of a series within [from, to].
   bool History(const std::string& key, std::int64_t from, std::int64_t to,
                std::vector<HistoryRow>& rows, std::string& error);
-  // Re-levels a series; `how` is "value", "last" or "mean"; `k` periods for "mean".
-  // On success the audit log records who and the note; returns false with `error` otherwise
-  // (`not_found` set when there is no such series).
-  bool Reset(const std::string& key, const std::string& how, double value, int k,
-             const std::string& who, const std::string& note, double& new_level,
-             bool& not_found, std::string& error);
+  // Re-levels a series; `how` is "value", "last" or "mean"; `k` periods for "mean". On success
+  // the audit log records who and the note and the new level is returned; otherwise not found,
+  // conflict (no forecast yet, an intermittent method, too few actuals), invalid or store failed.
+  Result<double> Reset(const std::string& key, const std::string& how, double value, int k,
+                       const std::string& who, const std::string& note);
   // Milliseconds since the epoch of the last committed actual per policy (0 = none yet).
   std::int64_t LastArrival(const std::string& policy) const;
   std::int64_t now_ms() const { return clock_(); }
@@ -174,11 +174,9 @@ class Engine {
   // The alert book and the database it writes to (reads for the alerts API).
   AlertBook& alerts() { return alerts_; }
   Db& db() { return store_.db(); }
-  // Runs a hand change of an alert in its own transaction; `status` 200 on success, else the
-  // book's 404/409 or 503 when the store failed.
-  bool AlertAction(const std::function<bool(AlertBook&, std::int64_t now_ms, int& status,
-                                            std::string& error)>& action,
-                   int& status, std::string& error);
+  // Runs a hand change of an alert in its own transaction: committed when `action` succeeds,
+  // rolled back with its status otherwise (a store failure becomes the sticky failure).
+  Status AlertAction(const std::function<Status(AlertBook&, std::int64_t now_ms)>& action);
 
   // Engine thread: the portfolio as /metrics shows it.
   EngineSnapshot Snapshot() const;

@@ -147,6 +147,9 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
     batches.Add({{"result", "committed"}}).Increment(static_cast<double>(c.batches_ok.load()));
     batches.Add({{"result", "rejected"}}).Increment(static_cast<double>(c.batches_rejected.load() + api_batches));
     batches.Add({{"result", "unavailable"}}).Increment(static_cast<double>(c.batches_unavailable.load()));
+    BuildCounter().Name("forewarden_series_refused_total")
+        .Help("Rows of new series refused because the service holds server.max_series series.")
+        .Register(now).Add({}).Increment(static_cast<double>(c.series_refused.load()));
     auto& transitions = BuildCounter().Name("forewarden_alert_transitions_total")
                             .Help("Alert changes recorded with ingest, by kind (hand changes are in the alert history).")
                             .Register(now);
@@ -234,6 +237,9 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
         .Set(static_cast<double>(h->connections.load()));
   }
   if (const ApiCounters* a = src.api) {
+    BuildCounter().Name("forewarden_http_internal_errors_total")
+        .Help("Requests answered 500 because a handler failed unexpectedly (logged with the request line).")
+        .Register(now).Add({}).Increment(static_cast<double>(a->internal_errors.load()));
     rejections.Add({{"reason", "unauthorized"}}).Increment(static_cast<double>(a->rejected_unauthorized.load()));
     rejections.Add({{"reason", "media_type"}}).Increment(static_cast<double>(a->rejected_media_type.load()));
     rejections.Add({{"reason", "bad_input"}}).Increment(static_cast<double>(a->rejected_bad_input.load()));

@@ -40,6 +40,7 @@ struct ApiCounters {
   std::atomic<long> rejected_unavailable{0};
   std::atomic<long> rejected_rows{0};     // rows of batches refused before the engine (bad input)
   std::atomic<long> rejected_batches{0};
+  std::atomic<long> internal_errors{0};  // handlers that threw: answered 500
 };
 
 // Where scrape-time values come from; any pointer may be null (not running).

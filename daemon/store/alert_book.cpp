@@ -269,25 +269,19 @@ bool AlertBook::GroupMemberLeft(std::int64_t group, std::int64_t now_ms, AlertCo
   return true;
 }
 
-bool AlertBook::LoadAlert(std::int64_t id, int& status, std::string& error, std::uint64_t& key,
-                          Live& open) {
+Status AlertBook::LoadAlert(std::int64_t id, std::uint64_t& key, Live& open) {
   for (auto& [k, o] : open_)
     if (o.id == id) {
       key = k;
       open = o;
-      return true;
+      return Status::Ok();
     }
   select_alert_.Reset();
-  if (!select_alert_.Bind(1, id).Step()) {
-    status = 500;
-    error = db_->error();
-    return false;
-  }
+  if (!select_alert_.Bind(1, id).Step()) return Status::StoreFailed(db_->error());
   const bool exists = select_alert_.Row();
   select_alert_.Reset();
-  status = exists ? 409 : 404;
-  error = exists ? "alert " + std::to_string(id) + " is resolved" : "no alert " + std::to_string(id);
-  return false;
+  if (exists) return Status::Conflict("alert " + std::to_string(id) + " is resolved");
+  return Status::NotFound("no alert " + std::to_string(id));
 }
 
 bool AlertBook::Transition(std::int64_t id, const std::string& kind, const Live& alert,
@@ -296,48 +290,43 @@ bool AlertBook::Transition(std::int64_t id, const std::string& kind, const Live&
   return Event(id, 0, kind, now_ms, actor, note, EventFacts{alert.severity, std::nullopt, detail}, true);
 }
 
-bool AlertBook::Acknowledge(std::int64_t id, const std::string& by, const std::string& note,
-                            std::int64_t now_ms, int& status, std::string& error) {
+Status AlertBook::Acknowledge(std::int64_t id, const std::string& by, const std::string& note,
+                              std::int64_t now_ms) {
   std::uint64_t key = 0;
   Live o;
-  if (!LoadAlert(id, status, error, key, o)) return false;
+  if (Status loaded = LoadAlert(id, key, o); !loaded) return loaded;
   update_alert_state_.Reset();
   update_alert_state_.Bind(1, id).Bind(2, std::string("acknowledged")).Bind(3, now_ms).Bind(4, by);
   if (note.empty()) update_alert_state_.BindNull(5); else update_alert_state_.Bind(5, note);
   update_alert_state_.BindNull(6).BindNull(7);
   if (!update_alert_state_.Run() || !Transition(id, "acknowledged", o, now_ms, by, note, "")) {
-    status = 500;
-    error = error_;
-    return false;
+    return Status::StoreFailed(error_);
   }
   o.state = 'a';
   o.snooze_ms = o.snooze_period = INT64_MAX;
   Set(key, o);
-  return true;
+  return Status::Ok();
 }
 
-bool AlertBook::Snooze(std::int64_t id, std::optional<std::int64_t> until_period,
+Status AlertBook::Snooze(std::int64_t id, std::optional<std::int64_t> until_period,
                        const std::string& until_period_text, std::optional<std::int64_t> until_ms,
-                       const std::string& by, const std::string& note, std::int64_t now_ms,
-                       int& status, std::string& error) {
+                         const std::string& by, const std::string& note, std::int64_t now_ms) {
   std::uint64_t key = 0;
   Live o;
-  if (!LoadAlert(id, status, error, key, o)) return false;
+  if (Status loaded = LoadAlert(id, key, o); !loaded) return loaded;
   update_alert_state_.Reset();
   update_alert_state_.Bind(1, id).Bind(2, std::string("snoozed")).Bind(3, now_ms).BindNull(4);
   if (note.empty()) update_alert_state_.BindNull(5); else update_alert_state_.Bind(5, note);
   if (until_period) update_alert_state_.Bind(6, until_period_text); else update_alert_state_.BindNull(6);
   if (until_ms) update_alert_state_.Bind(7, *until_ms); else update_alert_state_.BindNull(7);
   if (!update_alert_state_.Run() || !Transition(id, "snoozed", o, now_ms, by, note, until_ms ? IsoTime(*until_ms) : until_period_text)) {
-    status = 500;
-    error = error_;
-    return false;
+    return Status::StoreFailed(error_);
   }
   o.state = 's';
   o.snooze_period = until_period.value_or(INT64_MAX);
   o.snooze_ms = until_ms.value_or(INT64_MAX);
   Set(key, o);
-  return true;
+  return Status::Ok();
 }
 
 bool AlertBook::Resolve(std::uint64_t key, const Live& o, const std::string& by,
@@ -356,18 +345,29 @@ bool AlertBook::Resolve(std::uint64_t key, const Live& o, const std::string& by,
   return true;
 }
 
-bool AlertBook::ResolveByHand(std::int64_t id, const std::string& by, const std::string& note,
-                              std::int64_t now_ms, int& status, std::string& error) {
+Status AlertBook::ResolveByHand(std::int64_t id, const std::string& by, const std::string& note,
+                                std::int64_t now_ms) {
   std::uint64_t key = 0;
   Live o;
-  if (!LoadAlert(id, status, error, key, o)) return false;
+  if (Status loaded = LoadAlert(id, key, o); !loaded) return loaded;
   AlertCounts ignored;
-  if (!Resolve(key, o, by, "by hand", note, now_ms, ignored)) {
-    status = 500;
-    error = error_;
-    return false;
-  }
-  return true;
+  if (!Resolve(key, o, by, "by hand", note, now_ms, ignored)) return Status::StoreFailed(error_);
+  return Status::Ok();
+}
+
+Result<std::string> AlertBook::PolicyOf(std::int64_t id) {
+  Stmt q = db_->Prepare("SELECT policy FROM alerts WHERE id = ?1");
+  if (!q.valid() || !q.Bind(1, id).Step()) return Status::StoreFailed(db_->error());
+  if (!q.Row()) return Status::NotFound("no alert " + std::to_string(id));
+  return std::string(q.Text(0));
+}
+
+Result<long> AlertBook::RequeueDead(const std::string& sink, std::int64_t now_ms) {
+  Stmt q = db_->Prepare(
+      "UPDATE deliveries SET state = 'pending', attempts = 0, next_ms = ?1 "
+      "WHERE state = 'dead' AND (?2 = '' OR sink = ?2)");
+  if (!q.valid() || !q.Bind(1, now_ms).Bind(2, sink).Run()) return Status::StoreFailed(db_->error());
+  return static_cast<long>(db_->Changes());
 }
 
 bool AlertBook::Unsnooze(std::uint64_t key, Live o, std::int64_t now_ms, AlertCounts& counts) {

@@ -26,6 +26,7 @@
 #include <vector>
 
 #include "config/settings.h"
+#include "daemon/common/status.h"
 #include "daemon/store/sqlite.h"
 #include "monitors/rule.h"
 
@@ -72,16 +73,18 @@ class AlertBook {
   bool Apply(const std::vector<AlertChange>& changes, const SeriesInfo& info, std::int64_t now_ms,
              AlertCounts& counts);
 
-  // Lifecycle by hand, inside the caller's transaction. `status` is set to 404 (no such alert)
-  // or 409 (not allowed in its state) when the call is refused with false and `error`.
-  bool Acknowledge(std::int64_t id, const std::string& by, const std::string& note,
-                   std::int64_t now_ms, int& status, std::string& error);
-  bool Snooze(std::int64_t id, std::optional<std::int64_t> until_period,
-              const std::string& until_period_text, std::optional<std::int64_t> until_ms,
-              const std::string& by, const std::string& note, std::int64_t now_ms, int& status,
-              std::string& error);
-  bool ResolveByHand(std::int64_t id, const std::string& by, const std::string& note,
-                     std::int64_t now_ms, int& status, std::string& error);
+  // Lifecycle by hand, inside the caller's transaction: not found (no such alert), conflict
+  // (resolved already) or store failed.
+  Status Acknowledge(std::int64_t id, const std::string& by, const std::string& note, std::int64_t now_ms);
+  Status Snooze(std::int64_t id, std::optional<std::int64_t> until_period,
+                const std::string& until_period_text, std::optional<std::int64_t> until_ms,
+                const std::string& by, const std::string& note, std::int64_t now_ms);
+  Status ResolveByHand(std::int64_t id, const std::string& by, const std::string& note, std::int64_t now_ms);
+  // The policy name of alert `id` (resolved or not).
+  Result<std::string> PolicyOf(std::int64_t id);
+  // Dead deliveries (of `sink`, or every sink when empty) back to pending, due at `now_ms`;
+  // the number requeued.
+  Result<long> RequeueDead(const std::string& sink, std::int64_t now_ms);
   // Snoozes that ended: by time (now_ms) or because series `index` reached `period`.
   bool WakeSnoozed(std::int64_t now_ms, AlertCounts& counts);
   bool WakeSnoozedAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
@@ -128,7 +131,7 @@ class AlertBook {
              const std::string& actor, const std::string& note, const EventFacts& facts,
              bool notify);
   bool Fail(const std::string& what);
-  bool LoadAlert(std::int64_t id, int& status, std::string& error, std::uint64_t& key, Live& open);
+  Status LoadAlert(std::int64_t id, std::uint64_t& key, Live& open);
   bool Transition(std::int64_t id, const std::string& kind, const Live& alert,
                   std::int64_t now_ms, const std::string& actor, const std::string& note,
                   const std::string& detail);

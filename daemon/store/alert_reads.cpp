@@ -68,16 +68,125 @@ bool SelectAlert(Stmt& q, std::int64_t id, json& out, std::string& error, Db& db
 
 }  // namespace
 
-bool AlertJson(Db& db, std::int64_t id, std::string& text, std::string& error) {
+Result<json> AlertObject(Db& db, std::int64_t id) {
   Stmt q = db.Prepare(kAlertColumns);
-  if (!q.valid()) {
-    error = db.error();
-    return false;
-  }
+  if (!q.valid()) return Status::StoreFailed(db.error());
   json j;
-  if (!SelectAlert(q, id, j, error, db)) return false;
-  text = j.dump(-1, ' ', false, json::error_handler_t::replace);
-  return true;
+  std::string error;
+  if (!SelectAlert(q, id, j, error, db))
+    return error.rfind("no alert", 0) == 0 ? Status::NotFound(error) : Status::StoreFailed(error);
+  return j;
+}
+
+namespace {
+
+json DeliveryRows(Db& db, std::int64_t event, std::string& error) {
+  json list = json::array();
+  Stmt q = db.Prepare("SELECT sink, state, attempts, last_error FROM deliveries WHERE event_id = ?1 ORDER BY sink");
+  if (!q.valid() || !q.Bind(1, event).Step()) {
+    error = db.error();
+    return list;
+  }
+  for (; q.Row(); q.Step())
+    list.push_back({{"sink", std::string(q.Text(0))},
+                    {"state", std::string(q.Text(1))},
+                    {"attempts", q.Int(2)},
+                    {"last_error", q.IsNull(3) ? json(nullptr) : json(std::string(q.Text(3)))}});
+  return list;
+}
+
+}  // namespace
+
+Result<json> AlertWithHistory(Db& db, std::int64_t id) {
+  Result<json> alert = AlertObject(db, id);
+  if (!alert) return alert;
+  json history = json::array();
+  Stmt q = db.Prepare("SELECT id, kind, at_ms, actor, note FROM alert_events WHERE alert_id = ?1 ORDER BY id");
+  if (!q.valid() || !q.Bind(1, id).Step()) return Status::StoreFailed(db.error());
+  std::vector<std::int64_t> events;
+  for (; q.Row(); q.Step()) {
+    history.push_back({{"event", q.Int(0)},
+                       {"kind", std::string(q.Text(1))},
+                       {"at", IsoTime(q.Int(2))},
+                       {"by", q.IsNull(3) ? json(nullptr) : json(std::string(q.Text(3)))},
+                       {"note", q.IsNull(4) ? json(nullptr) : json(std::string(q.Text(4)))}});
+    events.push_back(q.Int(0));
+  }
+  q.Reset();
+  std::string error;
+  for (std::size_t i = 0; i < events.size(); ++i) {
+    history[i]["deliveries"] = DeliveryRows(db, events[i], error);
+    if (!error.empty()) return Status::StoreFailed(error);
+  }
+  (*alert)["history"] = std::move(history);
+  return alert;
+}
+
+Result<AlertPage> ListAlerts(Db& db, const AlertFilter& f) {
+  // Fixed SQL fragments; every value is bound.
+  std::string sql = "SELECT id FROM alerts WHERE id < ?1";
+  std::vector<std::string> values;
+  auto filter = [&](const std::string& value, const char* column) {
+    if (value.empty()) return;
+    values.push_back(value);
+    sql += std::string(" AND ") + column + " = ?" + std::to_string(values.size() + 1);
+  };
+  if (f.state == "unresolved")
+    sql += " AND state != 'resolved'";
+  else
+    filter(f.state, "state");
+  filter(f.policy, "policy");
+  filter(f.rule, "rule");
+  filter(f.severity, "severity");
+  if (!f.series.empty()) {  // through the series' id (indexed), not its key
+    values.push_back(f.series);
+    sql += " AND series_id = (SELECT id FROM series WHERE key = ?" + std::to_string(values.size() + 1) + ")";
+  }
+  if (f.group) {
+    values.push_back(std::to_string(*f.group));
+    sql += " AND group_id = CAST(?" + std::to_string(values.size() + 1) + " AS INTEGER)";
+  }
+  sql += " ORDER BY id DESC LIMIT " + std::to_string(f.limit + 1);
+  Stmt q = db.Prepare(sql);
+  if (!q.valid()) return Status::StoreFailed(db.error());
+  q.Bind(1, f.before);
+  for (std::size_t i = 0; i < values.size(); ++i) q.Bind(static_cast<int>(i + 2), values[i]);
+  std::vector<std::int64_t> ids;
+  if (!q.Step()) return Status::StoreFailed(db.error());
+  for (; q.Row(); q.Step()) ids.push_back(q.Int(0));
+  q.Reset();
+  AlertPage page;
+  if (static_cast<long>(ids.size()) > f.limit) {
+    ids.pop_back();
+    page.next_before = ids.back();
+  }
+  page.alerts = json::array();
+  for (std::int64_t id : ids) {
+    Result<json> a = AlertObject(db, id);
+    if (!a) return a.status();
+    page.alerts.push_back(std::move(*a));
+  }
+  return page;
+}
+
+Result<json> ListDeliveries(Db& db, const std::string& state, const std::string& sink) {
+  Stmt q = db.Prepare(
+      "SELECT d.event_id, d.sink, d.state, d.attempts, d.last_error, e.kind, e.alert_id, "
+      "e.group_id, e.at_ms FROM deliveries d JOIN alert_events e ON e.id = d.event_id "
+      "WHERE d.state = ?1 AND (?2 = '' OR d.sink = ?2) ORDER BY d.event_id LIMIT 1000");
+  if (!q.valid() || !q.Bind(1, state).Bind(2, sink).Step()) return Status::StoreFailed(db.error());
+  json list = json::array();
+  for (; q.Row(); q.Step())
+    list.push_back({{"event", q.Int(0)},
+                    {"sink", std::string(q.Text(1))},
+                    {"state", std::string(q.Text(2))},
+                    {"attempts", q.Int(3)},
+                    {"last_error", q.IsNull(4) ? json(nullptr) : json(std::string(q.Text(4)))},
+                    {"kind", std::string(q.Text(5))},
+                    {"alert", q.IsNull(6) ? json(nullptr) : json(q.Int(6))},
+                    {"group", q.IsNull(7) ? json(nullptr) : json(q.Int(7))},
+                    {"at", IsoTime(q.Int(8))}});
+  return list;
 }
 
 std::string SeriesUrl(const std::string& base, const std::string& key) {

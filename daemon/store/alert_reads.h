@@ -3,17 +3,39 @@
 #pragma once
 
 #include <cstdint>
+#include <optional>
 #include <string>
 
 #include <nlohmann/json.hpp>
 
 #include "config/settings.h"
+#include "daemon/common/status.h"
 #include "daemon/store/sqlite.h"
 
 namespace forewarden {
 
-// The JSON text of an alert row for the API (alerts.id = `id`).
-bool AlertJson(Db& db, std::int64_t id, std::string& json_text, std::string& error);
+// An alert row as the API shows it; not found when there is no alert `id`.
+Result<nlohmann::json> AlertObject(Db& db, std::int64_t id);
+// The same with "history": its events, each with its deliveries.
+Result<nlohmann::json> AlertWithHistory(Db& db, std::int64_t id);
+
+// A page of alerts, newest first (ids below `before`); empty strings filter nothing.
+struct AlertFilter {
+  std::string state;  // open, acknowledged, snoozed, resolved or unresolved
+  std::string policy, rule, severity, series;
+  std::optional<std::int64_t> group;
+  long limit = 100;
+  std::int64_t before = INT64_MAX;
+};
+struct AlertPage {
+  nlohmann::json alerts;
+  std::optional<std::int64_t> next_before;  // when there are more
+};
+Result<AlertPage> ListAlerts(Db& db, const AlertFilter& filter);
+
+// Deliveries in `state` (dead, pending, delivered) of `sink` (every sink when empty), oldest
+// event first, at most 1,000.
+Result<nlohmann::json> ListDeliveries(Db& db, const std::string& state, const std::string& sink);
 
 // The service's base URL in notifications: alerts.public_url, else http://<server.listen>.
 std::string PublicUrl(const config::Settings& settings);

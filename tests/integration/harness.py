@@ -200,4 +200,7 @@ def run(tests):
             print("FAIL", t.__name__)
             traceback.print_exc()
     print("%d passed, %d failed" % (passed, failed))
+    if passed + failed == 0:
+        print("no test of that name ran:", " ".join(only or []))
+        return 1
     return 0 if failed == 0 else 1

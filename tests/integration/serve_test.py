@@ -363,7 +363,39 @@ BAD_REQUESTS = [
     ("GET", "/v1/actuals", None, None, 405, "use POST"),
     ("POST", "/v1/nothing", "text/csv", "x", 404, "no such endpoint"),
     ("GET", "/v1/series/w/none", None, None, 404, "no series 'w/none'"),
-    ("GET", "/v1/series?limit=0", None, None, 400, "limit must be"),
+    ("GET", "/v1/series?limit=0", None, None, 400, "limit: 0 is outside 1..10000"),
+    ("GET", "/v1/series?limit=12abc", None, None, 400, "limit: '12abc' is not a whole number"),
+    ("GET", "/v1/series?offset=-1", None, None, 400, "offset: -1 is outside"),
+    ("GET", "/v1/alerts?before=1e3", None, None, 400, "before: '1e3' is not a whole number"),
+    ("GET", "/v1/alerts?limit=99999999999999999999", None, None, 400, "limit: 99999999999999999999 is outside"),
+    ("GET", "/v1/alerts?group=x", None, None, 400, "group: 'x' is not a whole number"),
+    ("GET", "/v1/alerts/abc", None, None, 404, "no such alert: abc"),
+    ("DELETE", "/v1/alerts/1", None, None, 405, "use GET"),
+    # An outside hostile-input check once ended the process with these bodies (an uncaught JSON
+    # type error): each is a 400 naming the field, and the server keeps answering.
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": 5, "who": "x"}', 400, "field to: must be a string"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": null, "who": "x"}', 400, "field to: missing"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "value", "value": "7", "who": "x"}', 400, "field value: must be a number"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "mean", "k": 4294967297, "who": "x"}', 400, "field k: outside 1..100000"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "mean", "k": 2.5, "who": "x"}', 400, "field k: must be a whole number"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "mean", "k": 18446744073709551615, "who": "x"}', 400, "field k: outside"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "last", "who": ["x"]}', 400, "field who: must be a string"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "last", "who": "x", "note": 5}', 400, "field note: must be a string"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "value", "value": 1e300, "who": "x"}', 400, "field value: the new level must be"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '[1, 2]', 400, "the body must be a JSON object"),
+    ("POST", "/v1/alerts/1/acknowledge", "application/json", '{"by": 5}', 400, "field by: must be a string"),
+    ("POST", "/v1/alerts/1/acknowledge", "application/json", '{"by": "x", "note": {}}', 400, "field note: must be a string"),
+    ("POST", "/v1/alerts/1/snooze", "application/json", '{"by": "x", "until": 5}', 400, "field until: must be a string"),
+    ("POST", "/v1/alerts/1/snooze", "application/json", '{"by": "x"}', 400, "field until: missing"),
+    ("POST", "/v1/alerts/99/resolve", "application/json", '{"by": "x"}', 404, "no alert 99"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,2026-01-05,1.7e308\n", 400, "beyond +/-1e15"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,9999-01-04,1\n", 400, "the year must be 1900-2999"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/a,1899-12-25,1\n", 400, "the year must be 1900-2999"),
+    ("POST", "/v1/actuals", "text/csv", "series,period,value\nw/neg,2026-01-05,-3\n", 400, "refuses negative actuals"),
+    ("POST", "/v1/actuals", "application/x-ndjson", '{"series":"w/a\\u0000b","period":"2026-01-05","value":1}\n', 400, "control character"),
+    ("POST", "/v1/actuals", "application/x-ndjson", '{"series":"w/a","period":"2026-01-05","value":1,"labels":{"c":"x\\ny"}}\n', 400, "label 'c' holds a control character"),
+    ("POST", "/v1/actuals", "text/csv", b"series,period,value\nw/\xff\xfe,2026-01-05,1\n", 400, "invalid UTF-8 at byte 2"),
+    ("POST", "/v1/actuals", "text/csv", b"series,period,value\nw/\xc0\xaf,2026-01-05,1\n", 400, "invalid UTF-8"),
     ("GET", "/v1/series?status=broken", None, None, 400, "status must be"),
     ("GET", "/v1/series?sort=colour", None, None, 400, "sort must be"),
     ("POST", "/v1/series/w/a/reset", "application/json", "{}", 400, "field to"),
@@ -460,6 +492,54 @@ def test_invalid_utf8_in_the_path_is_answered():
         s.stop()
 
 
+EDGE_SETTINGS = """
+server: {max_series: 3}
+policies:
+  - name: net
+    match: "n/*"
+    period: week
+    negative_actuals: accept
+  - name: weekly
+    match: "w/*"
+    period: week
+"""
+
+
+def test_input_edges_are_documented_and_tested():
+    """What the README's "How actuals are applied" promises at the edges: a byte-order mark
+    before the CSV header is accepted; two rows of one series and period in one batch apply in
+    order (the later one restates the earlier); negative actuals only where the policy accepts
+    them; server.max_series refuses new series naming the line, counted in a metric."""
+    s = Server(EDGE_SETTINGS)
+    try:
+        status, body, _ = s.request("POST", "/v1/actuals",
+                                    "\ufeffseries,period,value\nw/a,%s,4\n" % week(0), "text/csv")
+        assert status == 200 and body["applied"] == 1, body
+        # the same period twice in one batch: the later value wins, as a restatement
+        status, body, _ = s.post_csv("series,period,value\nw/a,%s,5\nw/a,%s,9\n" % (week(1), week(1)))
+        assert status == 200 and body["applied"] == 1 and body["restated"] == 1, body
+        rows = history(s, "w/a")
+        assert [r["actual"] for r in rows] == [4, 9], rows
+        assert_matches_replay(s, "w/a", "series,period,value\nw/a,%s,4\nw/a,%s,9\n" % (week(0), week(1)))
+        # net sales with returns: accepted by the policy that says so, refused elsewhere
+        status, body, _ = s.post_csv("series,period,value\nn/a,%s,-2.5\n" % week(0))
+        assert status == 200, body
+        status, body, _ = s.post_csv("series,period,value\nw/a,%s,-1\n" % week(2))
+        assert status == 400 and body["problems"][0]["field"] == "value", body
+        assert "negative_actuals: accept" in body["problems"][0]["message"], body
+        # max_series 3: w/a and n/a exist; one more fits, the next is refused with its line
+        status, body, _ = s.post_csv("series,period,value\nw/b,%s,1\nw/c,%s,1\n" % (week(0), week(0)))
+        assert status == 400, body
+        p = body["problems"][0]
+        assert p["line"] == 3 and p["field"] == "series" and "server.max_series (3)" in p["message"], body
+        assert s.request("GET", "/v1/series/w/b")[0] == 404  # nothing of the batch was applied
+        assert s.post_csv("series,period,value\nw/b,%s,1\n" % week(0))[0] == 200
+        _, text, _ = s.request("GET", "/metrics")
+        assert "forewarden_series_refused_total 1" in text, text[:200]
+    finally:
+        s.stop()
+
+
 def test_push_sends_batches_and_names_file_lines():
     s = Server(SETTINGS)
     try:
@@ -496,4 +576,5 @@ if __name__ == "__main__":
         test_push_sends_batches_and_names_file_lines,
         test_full_store_is_sticky_and_loses_nothing_acknowledged,
         test_invalid_utf8_in_the_path_is_answered,
+        test_input_edges_are_documented_and_tested,
     ]))

@@ -184,11 +184,14 @@ TEST_CASE("history is recomputed by the same step, and a reset re-levels and is 
   double level = 0, live_level = 0, live_cusum = -1;
   OnEngine(e, [&] {
     history_ok = e.History("z/a", 3001, 3003, h, error);
-    reset_ok = e.Reset("z/a", "mean", 0, 2, "planner-7", "store refit", level, not_found, error);
+    forewarden::Result<double> reset = e.Reset("z/a", "mean", 0, 2, "planner-7", "store refit");
+    reset_ok = reset.ok();
+    if (reset_ok) level = *reset;
     live_level = e.FindSeries("z/a")->state->model.level;
     live_cusum = e.FindSeries("z/a")->state->stats.cusum;
-    double ignored = 0;
-    missing_reset = e.Reset("nope", "last", 0, 1, "x", "", ignored, not_found, error);
+    forewarden::Result<double> missing = e.Reset("nope", "last", 0, 1, "x", "");
+    missing_reset = missing.ok();
+    not_found = missing.status().kind() == forewarden::ErrorKind::kNotFound;
   });
   REQUIRE(history_ok);
   REQUIRE(h.size() == 3);
