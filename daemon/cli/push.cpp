@@ -7,9 +7,26 @@
 #include <thread>
 #include <vector>
 
+#include "daemon/common/parse_number.h"
 #include "daemon/http/http_client.h"
 
 namespace forewarden {
+
+namespace {
+
+// A field of a server's JSON reply, whatever the server sent: a wrong type reads as `fallback`.
+template <typename T>
+T Field(const nlohmann::json& j, const char* name, T fallback) {
+  if (!j.is_object() || !j.contains(name)) return fallback;
+  const nlohmann::json& v = j[name];
+  if constexpr (std::is_same_v<T, std::string>) {
+    return v.is_string() ? v.get<std::string>() : fallback;
+  } else {
+    return v.is_number_integer() ? v.get<T>() : fallback;
+  }
+}
+
+}  // namespace
 
 int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
   std::ifstream in(o.file, std::ios::binary);
@@ -57,7 +74,9 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
     for (int attempt = 1;; ++attempt) {
       r = HttpPost(endpoint, "text/csv", body, token, std::chrono::seconds(120));
       if (r.status != 503 || attempt >= o.max_attempts) break;
-      if (!r.retry_after.empty()) wait = std::chrono::seconds(std::stol(r.retry_after));
+      // delta-seconds as the service sends; an HTTP date or anything else keeps our own backoff
+      if (Result<std::int64_t> secs = ParseWholeNumber(r.retry_after, 0, 3600); secs)
+        wait = std::chrono::seconds(*secs);
       std::this_thread::sleep_for(wait);  // backing off from a busy service
       wait = std::min(wait * 2, std::chrono::milliseconds(5000));
     }
@@ -66,14 +85,14 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
       return 1;
     }
     nlohmann::json reply = nlohmann::json::parse(r.body, nullptr, false);
-    if (r.status == 400 && reply.is_object() && reply.contains("problems")) {
+    if (r.status == 400 && reply.is_object() && reply.contains("problems") && reply["problems"].is_array()) {
       err << "forewarden push: lines " << first_line << "-" << line_no << " of " << o.file
           << " were rejected; nothing of them was applied:\n";
       for (const auto& p : reply["problems"]) {
-        const long batch_line = p.value("line", 0L);
+        const long batch_line = Field(p, "line", 0L);
         // line 1 of the batch is the header; its line 2 is first_line of the file
         err << "  line " << (batch_line >= 2 ? first_line + batch_line - 2 : batch_line) << ", field "
-            << p.value("field", std::string()) << ": " << p.value("message", std::string()) << '\n';
+            << Field(p, "field", std::string()) << ": " << Field(p, "message", std::string()) << '\n';
       }
       err << "earlier batches (" << batches << ", " << rows << " rows) were applied\n";
       return 2;
@@ -85,7 +104,7 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
     }
     ++batches;
     rows += n;
-    for (int i = 0; i < 6; ++i) totals[i] += reply.value(names[i], 0L);
+    for (int i = 0; i < 6; ++i) totals[i] += Field(reply, names[i], 0L);
   }
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();

@@ -20,6 +20,7 @@
 #include "daemon/common/iso_time.h"
 #include "daemon/common/log.h"
 #include "daemon/store/sqlite.h"
+#include "daemon/store/store.h"
 
 namespace forewarden {
 
@@ -118,7 +119,10 @@ json AmGroup(const json& group, bool firing, std::int64_t now_ms, std::int64_t e
 }  // namespace
 
 struct Delivery::Impl {
-  std::shared_ptr<const config::Settings> settings;
+  std::shared_ptr<const config::Settings> settings;  // guarded by mu: a reload replaces it
+  // The worker's own copy, taken under mu at the start of each round: the worker reads only
+  // this one, so a reload (SIGHUP) never changes settings under its feet.
+  std::shared_ptr<const config::Settings> active;
   Clock clock;
   std::vector<SinkConfig> sinks;
   std::string install_id;
@@ -171,8 +175,7 @@ bool Delivery::Update(std::shared_ptr<const config::Settings> settings, std::str
 bool Delivery::Start(std::string& error) {
   Impl& m = *impl_;
   if (!Update(m.settings, error)) return false;
-  const std::string path =
-      (std::filesystem::path(m.settings->server.data) / "forewarden.db").string();
+  const std::string path = DatabasePath(m.settings->server.data);
   // NORMAL: a delivery marked just before a power cut may be sent again (at least once anyway).
   if (!m.db.Open(path) || !m.db.Exec("PRAGMA synchronous=NORMAL;")) {
     error = "delivery: " + m.db.error();
@@ -245,6 +248,10 @@ Delivery::Backlog Delivery::backlog() const {
 
 void Delivery::Impl::Run() {
   for (;;) {
+    {
+      std::lock_guard lock(mu);
+      active = settings;
+    }
     const std::int64_t now = clock();
     Round(now);
     Resend(now);
@@ -256,7 +263,7 @@ void Delivery::Impl::Run() {
     const bool has_am = std::any_of(sinks.begin(), sinks.end(), [](const SinkConfig& s) {
       return s.sink.kind == config::Sink::Kind::kAlertmanager;
     });
-    if (has_am) due = std::min(due, last_resend_ms + settings->alerts.resend_seconds * 1000);
+    if (has_am) due = std::min(due, last_resend_ms + active->alerts.resend_seconds * 1000);
     const std::int64_t wait_ms = std::clamp<std::int64_t>(due - clock(), 0, 60000);
     wake.wait_for(lock, std::chrono::milliseconds(wait_ms), [this] { return stop || notified; });
     if (stop) return;
@@ -285,7 +292,7 @@ void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const 
     ++counters[s.sink.name].delivered;
     return;
   }
-  const config::Alerts& a = settings->alerts;
+  const config::Alerts& a = active->alerts;
   const int attempts = e.attempts + 1;
   const bool dead = attempts >= a.max_attempts;
   // deterministic jitter in [0.5, 1.5) from the event and attempt
@@ -322,7 +329,7 @@ bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::strin
 bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes,
                                       std::string& error) {
   const std::int64_t now = clock();
-  const std::int64_t ends = now + 4 * settings->alerts.resend_seconds * 1000;
+  const std::int64_t ends = now + 4 * active->alerts.resend_seconds * 1000;
   json list = json::array();
   for (const json& body : notes) {
     const std::string kind = body.value("kind", "");
@@ -363,7 +370,7 @@ void Delivery::Impl::Round(std::int64_t now) {
     current = sinks;
     notifications.SetPublicUrl(public_url);
   }
-  const long batch = settings->alerts.batch;
+  const long batch = active->alerts.batch;
   for (const SinkConfig& s : current) {
     std::vector<Event> events;
     pending.Reset();
@@ -374,7 +381,9 @@ void Delivery::Impl::Round(std::int64_t now) {
                         std::string(pending.Text(3))});
     pending.Reset();
     if (events.empty() || events.front().next_ms > now) continue;  // strict order per sink
-    db.Exec("BEGIN IMMEDIATE;");
+    // The engine holds the write lock during its commits; when it cannot be had now, the
+    // events stay pending for the next round (nothing is sent outside a transaction).
+    if (!db.Exec("BEGIN IMMEDIATE;")) continue;
     switch (s.sink.kind) {
       case config::Sink::Kind::kLog:
         for (const Event& e : events) {
@@ -424,7 +433,7 @@ void Delivery::Impl::Resend(std::int64_t now) {
     for (const SinkConfig& s : sinks)
       if (s.sink.kind == config::Sink::Kind::kAlertmanager) am.push_back(s);
   }
-  if (am.empty() || now - last_resend_ms < settings->alerts.resend_seconds * 1000) return;
+  if (am.empty() || now - last_resend_ms < active->alerts.resend_seconds * 1000) return;
   last_resend_ms = now;
   // Open alerts re-sent as they are now; open groups as their opening.
   std::vector<json> events;

@@ -6,12 +6,13 @@
 #include <filesystem>
 
 #include "daemon/store/sqlite.h"
+#include "daemon/store/store.h"
 
 namespace forewarden {
 
 BackupResult BackupStore(const std::string& data_dir, const std::string& to, int pages_per_step) {
   BackupResult result;
-  const std::string source_path = (std::filesystem::path(data_dir) / "forewarden.db").string();
+  const std::string source_path = DatabasePath(data_dir);
   std::error_code ec;
   if (!std::filesystem::exists(source_path, ec)) {
     result.error = source_path + ": no store here (is --data the service's data folder?)";

@@ -6,6 +6,10 @@
 #include "daemon/store/state_codec.h"
 
 namespace forewarden {
+
+std::string DatabasePath(const std::string& data_dir) {
+  return (std::filesystem::path(data_dir) / "forewarden.db").string();
+}
 namespace {
 
 // Each entry moves the schema from version i to i+1. Append only; never edit a shipped one.
@@ -111,7 +115,7 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
   std::error_code ec;
   std::filesystem::create_directories(dir, ec);
   if (ec) return db_.Fail("create data folder " + dir + ": " + ec.message());
-  if (!db_.Open((std::filesystem::path(dir) / "forewarden.db").string())) return false;
+  if (!db_.Open(DatabasePath(dir))) return false;
   if (!db_.Exec("PRAGMA journal_mode=WAL;") ||
       !db_.Exec(std::string("PRAGMA synchronous=") + (synchronous_full ? "FULL" : "NORMAL") + ";") ||
       !db_.Exec("PRAGMA foreign_keys=ON;"))

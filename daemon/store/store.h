@@ -16,6 +16,9 @@
 
 namespace forewarden {
 
+// The database file under a data folder (server.data): the one place its name is written.
+std::string DatabasePath(const std::string& data_dir);
+
 struct StoredSeries {
   std::int64_t id = 0;
   std::string key;

@@ -311,6 +311,38 @@ def test_webhook_signature_outage_and_recovery():
         rx.close()
 
 
+def test_reloads_during_delivery_change_nothing_delivered():
+    """The delivery worker read its settings without the lock a reload holds while replacing
+    them: a data race on SIGHUP that the ThreadSanitizer run (deploy/tsan.sh) now sees through
+    this test. Reloads while the worker retries a failing sink; afterwards every event arrives
+    once, in order."""
+    rx = Receiver()
+    rx.down = True
+    text = settings(webhook_sink(rx))
+    srv = Server(text)
+    try:
+        feed = "series,period,value\n" + csv_rows("north/up", UP) + csv_rows("north/blip", BLIP)
+        assert srv.post_csv(feed)[0] == 200
+        for i in range(6):
+            # each reload changes the public URL, so the worker's settings are really replaced
+            with open(srv.config, "w") as f:
+                f.write(text.replace("alerts:\n", "alerts:\n  public_url: 'http://planning-%d.invalid'\n" % i))
+            srv.signal(signal.SIGHUP)
+            srv.wait_stderr("reloaded")
+            rx.wait("a failed attempt after reload %d" % i,
+                    lambda reqs, n=len(rx.requests): len(reqs) > n)
+        rx.down = False
+        expected = notified_events(srv, "hook")
+        rx.wait("every event", lambda reqs: {b["event_id"] for b in rx.accepted()} >= expected)
+        wait_for("no pending deliveries", lambda: delivered_all(srv, "hook"))
+        ids = [e["event_id"] for e in rx.accepted()]
+        assert ids == sorted(set(ids)), ids
+        assert rx.accepted()[-1]["alert"]["url"].startswith("http://planning-5.invalid/"), rx.accepted()[-1]
+    finally:
+        srv.stop()
+        rx.close()
+
+
 def test_kill9_with_undelivered_events_delivers_after_restart():
     rx = Receiver()
     rx.down = True
@@ -474,6 +506,7 @@ receivers:
 
 if __name__ == "__main__":
     sys.exit(run([test_lifecycle_api_and_replay_agree, test_webhook_signature_outage_and_recovery,
+                  test_reloads_during_delivery_change_nothing_delivered,
                   test_kill9_with_undelivered_events_delivers_after_restart, test_dead_letters_and_retry,
                   test_storm_is_grouped, test_policies_show_derived_limits,
                   test_alertmanager_shows_alerts_open_then_resolved]))

@@ -540,6 +540,46 @@ def test_input_edges_are_documented_and_tested():
         s.stop()
 
 
+def test_push_survives_a_hostile_server():
+    """`forewarden push` read Retry-After with std::stol and threw on a date; a server's reply
+    of the wrong shape must not end it either. A receiver inside the test answers 503 with an
+    HTTP-date Retry-After, then 400 with problems of the wrong types."""
+    import http.server
+    answers = [(503, {"Retry-After": "Wed, 21 Oct 2015 07:28:00 GMT"}, b'{"error": "busy"}'),
+               (400, {}, b'{"problems": [{"line": "two", "field": 5, "message": null}]}')]
+
+    class Handler(http.server.BaseHTTPRequestHandler):
+        def do_POST(self):
+            self.rfile.read(int(self.headers["Content-Length"]))
+            status, headers, body = answers.pop(0) if answers else (500, {}, b"{}")
+            self.send_response(status)
+            for k, v in headers.items():
+                self.send_header(k, v)
+            self.send_header("Content-Length", str(len(body)))
+            self.end_headers()
+            self.wfile.write(body)
+
+        def log_message(self, *args):
+            pass
+
+    server = http.server.HTTPServer(("127.0.0.1", 0), Handler)
+    t = threading.Thread(target=server.serve_forever, daemon=True)
+    t.start()
+    tmp = harness.temp_dir()
+    try:
+        path = os.path.join(tmp, "feed.csv")
+        with open(path, "w") as f:
+            f.write(feed(["w/a"], 2))
+        r = subprocess.run([harness.BINARY, "push", path, "--url", "http://127.0.0.1:%d" % server.server_port],
+                           capture_output=True, text=True, timeout=harness.DEADLINE)
+        assert r.returncode == 2, (r.returncode, r.stdout, r.stderr)
+        assert "were rejected" in r.stderr, r.stderr
+        assert not answers, answers  # it retried after the 503
+    finally:
+        server.shutdown()
+        server.server_close()
+
+
 def test_push_sends_batches_and_names_file_lines():
     s = Server(SETTINGS)
     try:
@@ -577,4 +617,5 @@ if __name__ == "__main__":
         test_full_store_is_sticky_and_loses_nothing_acknowledged,
         test_invalid_utf8_in_the_path_is_answered,
         test_input_edges_are_documented_and_tested,
+        test_push_survives_a_hostile_server,
     ]))
