@@ -1,6 +1,6 @@
 // Limits from a false-alarm budget.
 //
-// Published tracking-signal limits misstate their false-alarm rates (REFERENCES.md 2.6): the
+// Published tracking-signal limits misstate their false-alarm rates (REFERENCES.md F4, C36): the
 // rate depends on the signal, its smoothing constant, the forecasting method and its constants,
 // and on the rule's persistence and hysteresis. A rule may therefore state how often a series
 // that is in control may raise a false alert ("one per 104 periods"); CalibrateRule finds the

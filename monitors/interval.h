@@ -1,7 +1,7 @@
 // Prediction intervals from the smoothed absolute error.
 //
 // For normally distributed errors E|e| = sqrt(2/pi)*sigma, so sigma = sqrt(pi/2)*MAD
-// = 1.2533141*MAD (REFERENCES.md 2.4). The interval of a one-step forecast F at coverage c is
+// = 1.2533141*MAD (REFERENCES.md F2, C25). The interval of a one-step forecast F at coverage c is
 //   F -/+ z((1+c)/2) * sqrt(pi/2) * M
 // where M is the MAD *before* the period's own error is taken in, so the band is fixed
 // together with the forecast.

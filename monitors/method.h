@@ -12,7 +12,7 @@
 //                s(t) = gamma*y(t)/(l(t-1) + phi*b(t-1)) + (1-gamma)*s(t-m)
 //                F(t+1) = (l(t) + phi*b(t)) * s(t+1-m)
 //                The seasonal term uses the previous level and trend, as statsmodels'
-//                ExponentialSmoothing does (REFERENCES.md 5.3).
+//                ExponentialSmoothing does (REFERENCES.md F7).
 //   croston/sba  sizes z and intervals p smoothed only in periods with demand; the first demand
 //                and its interval (counted from the period before the first period) start both
 //                smoothings, as R forecast's croston(); F = z/p, sba F = (1 - alpha/2)*z/p

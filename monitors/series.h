@@ -4,7 +4,7 @@
 // last one (or later: the gap rule fills the periods between), and returns what happened:
 // the forecast that was fixed for this period before its actual, the error, the smoothing
 // constant applied, E, M, C after the update, both signals, the prediction interval and the
-// rules that hold. Order within a period (REFERENCES.md 8.1):
+// rules that hold. Order within a period:
 //   e = A - F;  [lagged alpha from E(t-1), M(t-1)];  update E, M, C;
 //   [immediate alpha from E(t), M(t)];  update the model with that alpha;  signals;  rules.
 // Periods without a forecast (the start window, croston before the first demand) change

@@ -1,4 +1,4 @@
-// The command-line tool's subcommands behind a thin main (STYLE.md habit 9).
+// The command-line tool's subcommands behind a thin main (main stays thin so tests call the commands).
 // Each returns the process exit code: 0 success, 1 I/O or runtime failure, 2 bad input or
 // usage, and writes messages to the given streams.
 #pragma once

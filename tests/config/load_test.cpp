@@ -192,7 +192,7 @@ TEST_CASE("a false-alarm budget becomes a derived limit, shown with its expected
   REQUIRE(p.calibrations.size() == 1);
   const monitors::RuleSpec& drift = p.spec.rules[0];
   // derived, not configured: far beyond the textbook 4 MADs (16 % of in-control periods beyond
-  // it at alpha 0.1 even from a perfect start, REFERENCES.md Table B), because C also keeps the
+  // it at alpha 0.1 even from a perfect start, REFERENCES.md C36, simulated by tests/reference/simulated_tables.py), because C also keeps the
   // error of each series' start (monitors/calibrate.h)
   CHECK(drift.limit > 8.0);
   CHECK(drift.limit < 60.0);

@@ -9,7 +9,7 @@ using monitors::FitStart;
 using monitors::Method;
 
 TEST_CASE("fitted ses on fpp2 oil finds R's optimum", "[reference]") {
-  // REFERENCES.md 9.2 #16: FPP2 sec. 7.1 ses(oildata): alpha 0.8339, l0 446.5868, forecast
+  // REFERENCES.md C16: published, FPP2 sec. 7.1 ses(oildata): alpha 0.8339, l0 446.5868, forecast
   // 542.6806, SSE 14235.5875 (R forecast 8.20, ets ANN, opt.crit "mse").
   auto fit = FitStart(Method::kSes, Constants{}, testdata::kOilFpp2);
   CHECK(fit.constants.alpha == Approx(0.8338901).margin(1e-3));
@@ -22,7 +22,7 @@ TEST_CASE("fitted ses on fpp2 oil finds R's optimum", "[reference]") {
 }
 
 TEST_CASE("fitted ses on fpp1 oil agrees with R and statsmodels", "[reference]") {
-  // REFERENCES.md 6.3 / 9.2 #20: R alpha 0.891956, l0 447.4836; statsmodels 0.891998, 447.4784.
+  // REFERENCES.md C20, statsmodels 0.13.5 test_holtwinters.py (oil 1996-2007): R alpha 0.891956, l0 447.4836; statsmodels 0.891998, 447.4784.
   auto fit = FitStart(Method::kSes, Constants{}, testdata::kOilFpp1);
   CHECK(fit.constants.alpha == Approx(0.891956).margin(1e-3));
   CHECK(fit.start.level == Approx(447.4836).margin(0.05));
@@ -30,7 +30,7 @@ TEST_CASE("fitted ses on fpp1 oil agrees with R and statsmodels", "[reference]")
 }
 
 TEST_CASE("fitted ses on the NIST data runs to the alpha = 1 boundary", "[reference]") {
-  // REFERENCES.md 9.1 #8: SSE-optimal alpha ~1.0 (R 0.99993), SSE ~139.0 with S2 = y1.
+  // REFERENCES.md C8, R 4.2.2 HoltWinters on the NIST 6.4.3.1 data: SSE-optimal alpha ~1.0 (R 0.99993), SSE ~139.0 with S2 = y1.
   // With a free start level the first error vanishes too, so the SSE is the same 139.0.
   auto fit = FitStart(Method::kSes, Constants{}, testdata::kNist);
   CHECK(fit.constants.alpha == Approx(1.0).margin(1e-3));

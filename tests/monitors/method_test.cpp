@@ -39,7 +39,7 @@ double Ahead(Method method, const Constants& c, ModelState s, long n, int h) {
 }  // namespace
 
 TEST_CASE("ses on the NIST handbook data reproduces the smoothed values", "[reference]") {
-  // REFERENCES.md 9.1 #1-#4: NIST e-Handbook 6.4.3.1 data, alpha 0.1, S2 = y1 (recomputed in
+  // REFERENCES.md C1-C4: NIST e-Handbook 6.4.3.1 data, alpha 0.1, S2 = y1 (recomputed in
   // R HoltWinters and statsmodels).
   Constants c;
   c.alpha = 0.1;
@@ -58,7 +58,7 @@ TEST_CASE("ses on the NIST handbook data reproduces the smoothed values", "[refe
 }
 
 TEST_CASE("ses with alpha 0.5 on the NIST data gives the recomputed SSE", "[reference]") {
-  // REFERENCES.md 9.1 #7 (recomputed with R).
+  // REFERENCES.md C7 (R 4.2.2 HoltWinters, alpha 0.5).
   Constants c;
   c.alpha = 0.5;
   ModelState s;
@@ -70,7 +70,7 @@ TEST_CASE("ses with alpha 0.5 on the NIST data gives the recomputed SSE", "[refe
 }
 
 TEST_CASE("ses on fpp1 oil matches statsmodels' shipped results", "[reference]") {
-  // REFERENCES.md 9.1 #10, #11: statsmodels test_holtwinters.py (l0 = y1).
+  // REFERENCES.md C10, C11: statsmodels 0.13.5 test_holtwinters.py (l0 = y1).
   for (auto [alpha, forecast, sse] : {std::tuple{0.2, 484.802468, 12391.7471752299},
                                       std::tuple{0.6, 501.837461, 8098.55488019406}}) {
     Constants c;
@@ -84,7 +84,7 @@ TEST_CASE("ses on fpp1 oil matches statsmodels' shipped results", "[reference]")
 }
 
 TEST_CASE("ses on fpp2 oil with the published constants gives the published forecast", "[reference]") {
-  // REFERENCES.md 9.1 #12: FPP2 sec. 7.1 summary(ses(oildata)).
+  // REFERENCES.md C12, published: FPP2 sec. 7.1 summary(ses(oildata)).
   Constants c;
   c.alpha = 0.8338901402;
   ModelState s;
@@ -96,7 +96,7 @@ TEST_CASE("ses on fpp2 oil with the published constants gives the published fore
 }
 
 TEST_CASE("ses weights decay geometrically", "[reference]") {
-  // REFERENCES.md 9.1 #14 (exact): feeding a unit impulse k periods ago gives weight alpha(1-alpha)^k.
+  // REFERENCES.md C14, by hand (exact): feeding a unit impulse k periods ago gives weight alpha(1-alpha)^k.
   const double expected[] = {0.2, 0.16, 0.128, 0.1024, 0.08192, 0.065536};
   for (int k = 0; k < 6; ++k) {
     Constants c;
@@ -110,7 +110,7 @@ TEST_CASE("ses weights decay geometrically", "[reference]") {
 }
 
 TEST_CASE("alpha 1 gives the naive forecast and alpha 0 a constant", "[property]") {
-  // REFERENCES.md 9.1 #15.
+  // REFERENCES.md C15, by hand.
   Constants one, zero;
   one.alpha = 1.0;
   zero.alpha = 0.0;
@@ -125,7 +125,7 @@ TEST_CASE("alpha 1 gives the naive forecast and alpha 0 a constant", "[property]
 }
 
 TEST_CASE("holt on fpp1 air passengers matches the R fpp value", "[reference]") {
-  // REFERENCES.md 9.6 #41: statsmodels test_holtwinters.py with the R fpp SSE
+  // REFERENCES.md C41: statsmodels 0.13.5 test_holtwinters.py with the R fpp SSE
   // 72.7894551374757 and forecasts 43.76, 45.59, 47.43, 49.27, 51.10.
   Constants c;
   c.alpha = 0.8;
@@ -148,7 +148,7 @@ TEST_CASE("holt on fpp1 air passengers matches the R fpp value", "[reference]") 
 }
 
 TEST_CASE("additive Holt-Winters with the previous-level seasonal update", "[reference]") {
-  // REFERENCES.md 9.6 #43: aust data (statsmodels test_holtwinters.py), m = 4, alpha .3,
+  // REFERENCES.md C43, by hand, statsmodels ETSModel agrees: aust data (statsmodels test_holtwinters.py), m = 4, alpha .3,
   // beta .1, gamma .2, l0 35, b0 .5, s0 = (7, -10, -3, 6); statsmodels ETSModel agrees.
   Constants c;
   c.alpha = 0.3;
@@ -169,7 +169,7 @@ TEST_CASE("additive Holt-Winters with the previous-level seasonal update", "[ref
 }
 
 TEST_CASE("croston and sba follow R forecast's croston on an intermittent series", "[reference]") {
-  // REFERENCES.md 9.6 #47 (R forecast 8.20 croston, alpha 0.1) and #48 (SBA factor 1 - alpha/2,
+  // REFERENCES.md C47 (R forecast 8.20 croston, alpha 0.1) and C48 (SBA factor 1 - alpha/2,
   // Syntetos & Boylan 2005).
   const std::vector<double> y = {0, 0, 5, 0, 0, 0, 3, 0, 7, 0, 0, 0, 0, 4, 0};
   Constants c;
@@ -200,6 +200,6 @@ TEST_CASE("damped trend with phi 1 equals holt and damps the trend otherwise", "
   d.level = 10;
   d.trend = 1;
   CHECK(*monitors::ForecastNext(Method::kDamped, c, d, 0) == Approx(10.9));
-  // h-step forecast l + (phi + ... + phi^h) b (REFERENCES.md 5.2)
+  // h-step forecast l + (phi + ... + phi^h) b (REFERENCES.md F7; FPP3 8.2)
   CHECK(Ahead(Method::kDamped, c, d, 0, 3) == Approx(10 + 0.9 + 0.81 + 0.729));
 }

@@ -26,7 +26,7 @@ std::vector<StepResult> Feed(const PolicySpec& p, SeriesState& s, const std::vec
 }
 
 PolicySpec StepTestPolicy(bool lagged, double floor, double cap) {
-  // REFERENCES.md 9.5: 10 (t = 1..10) then 20 (t = 11..16); F(1) = 10, beta 0.2, E0 = 0, M0 = 1.
+  // REFERENCES.md C38-C40 step test, by hand: 10 (t = 1..10) then 20 (t = 11..16); F(1) = 10, beta 0.2, E0 = 0, M0 = 1.
   PolicySpec p;
   p.start.kind = monitors::StartKind::kExplicit;
   p.start.level = 10;
@@ -42,7 +42,7 @@ const std::vector<double> kStep = {10, 10, 10, 10, 10, 10, 10, 10, 10, 10, 20, 2
 }  // namespace
 
 TEST_CASE("Trigg-Leach immediate adaptive alpha on a step", "[reference]") {
-  // REFERENCES.md 9.5 #38 [derived].
+  // REFERENCES.md C38, by hand (Trigg-Leach 1967, immediate).
   PolicySpec p = StepTestPolicy(false, 0.0, 1.0);
   SeriesState s = monitors::NewSeriesState(p);
   auto r = Feed(p, s, kStep);
@@ -57,7 +57,7 @@ TEST_CASE("Trigg-Leach immediate adaptive alpha on a step", "[reference]") {
 }
 
 TEST_CASE("Trigg-Leach lagged adaptive alpha on a step", "[reference]") {
-  // REFERENCES.md 9.5 #39 [derived], the one-period lag attributed to Shone (1967).
+  // REFERENCES.md C39, by hand; the one-period lag attributed to Shone (1967) (from memory).
   PolicySpec p = StepTestPolicy(true, 0.0, 1.0);
   SeriesState s = monitors::NewSeriesState(p);
   auto r = Feed(p, s, kStep);
@@ -71,7 +71,7 @@ TEST_CASE("Trigg-Leach lagged adaptive alpha on a step", "[reference]") {
 }
 
 TEST_CASE("Trigg-Leach alpha clamped to a floor and a cap", "[reference]") {
-  // REFERENCES.md 9.5 #40 [derived]: immediate, alpha within [0.05, 0.5].
+  // REFERENCES.md C40, by hand: immediate, alpha within [0.05, 0.5].
   PolicySpec p = StepTestPolicy(false, 0.05, 0.5);
   SeriesState s = monitors::NewSeriesState(p);
   auto r = Feed(p, s, kStep);
@@ -215,7 +215,7 @@ TEST_CASE("croston reports no forecast and no statistics before the first demand
 }
 
 TEST_CASE("through Step, the cumulative error of fixed-alpha ses is (F(n+1) - F(2)) / alpha", "[property]") {
-  // REFERENCES.md 2.3 identity [derived]; random data, first-actual start.
+  // REFERENCES.md F2 identity, by hand; random data, first-actual start.
   std::mt19937_64 gen(2024);
   std::uniform_real_distribution<double> u(0, 500);
   for (double alpha : {0.05, 0.3, 0.9}) {
@@ -286,7 +286,7 @@ TEST_CASE("alpha_at_cap holds after the adaptive constant stays at its cap", "[u
   p.signal_beta = 0.2;
   monitors::SeriesState s = monitors::NewSeriesState(p);
   monitors::StepResult r;
-  // a step from 10 to 20 drives |E/M| towards 1, so alpha sits at the 0.5 cap (REFERENCES #40)
+  // a step from 10 to 20 drives |E/M| towards 1, so alpha sits at the 0.5 cap (REFERENCES.md C40)
   long t = 1;
   std::uint64_t opened_at = 0;
   for (; t <= 10; ++t) REQUIRE(monitors::Step(p, s, t, 10, r) == monitors::StepStatus::kOk);

@@ -187,7 +187,7 @@ def case_croston_r(binary, tmp):
     bad = 0
     series = {
         "discoveries": r_series("discoveries"),   # R datasets: yearly counts 1860-1959, with zeros
-        "REFERENCES-9.6": [0, 0, 5, 0, 0, 0, 3, 0, 7, 0, 0, 0, 0, 4, 0],
+        "croston-C47": [0, 0, 5, 0, 0, 0, 3, 0, 7, 0, 0, 0, 0, 4, 0],
         "lynx-sparse": r_series("ifelse(lynx > 2000, lynx, 0)"),  # R datasets lynx, thinned
     }
     for name, x in series.items():
