@@ -28,29 +28,72 @@ using monitors::Method;
 // The keys each map of the settings file takes (also the README's settings reference, which a
 // test compares with these).
 const std::set<std::string> kTopKeys = {"policies", "server", "fallback_policy", "alerts"};
-const std::set<std::string> kServerKeys = {
-    "listen", "data", "token_file", "token_env", "synchronous", "max_body_bytes",
-    "max_rows_per_batch", "max_connections", "header_timeout_seconds", "idle_timeout_seconds",
-    "queue_depth", "shutdown_grace_seconds", "folder", "folder_poll_ms", "max_database_bytes",
-    "cache_bytes", "state_flush_seconds", "state_flush_series", "max_key_bytes", "max_labels",
-    "max_label_bytes", "max_series"};
-const std::set<std::string> kPolicyKeys = {
-    "name", "match", "period", "method", "alpha", "adaptive", "trend_beta", "damping",
-    "season_gamma", "season_length", "start", "signal_beta", "warmup", "gaps", "coverage",
-    "initial_mad", "max_gap", "rules", "history", "stale_after", "export_top_series",
-    "negative_actuals"};
+const std::set<std::string> kServerKeys = {"listen",
+                                           "data",
+                                           "token_file",
+                                           "token_env",
+                                           "synchronous",
+                                           "max_body_bytes",
+                                           "max_rows_per_batch",
+                                           "max_connections",
+                                           "header_timeout_seconds",
+                                           "idle_timeout_seconds",
+                                           "queue_depth",
+                                           "shutdown_grace_seconds",
+                                           "folder",
+                                           "folder_poll_ms",
+                                           "max_database_bytes",
+                                           "cache_bytes",
+                                           "state_flush_seconds",
+                                           "state_flush_series",
+                                           "max_key_bytes",
+                                           "max_labels",
+                                           "max_label_bytes",
+                                           "max_series"};
+const std::set<std::string> kPolicyKeys = {"name",
+                                           "match",
+                                           "period",
+                                           "method",
+                                           "alpha",
+                                           "adaptive",
+                                           "trend_beta",
+                                           "damping",
+                                           "season_gamma",
+                                           "season_length",
+                                           "start",
+                                           "signal_beta",
+                                           "warmup",
+                                           "gaps",
+                                           "coverage",
+                                           "initial_mad",
+                                           "max_gap",
+                                           "rules",
+                                           "history",
+                                           "stale_after",
+                                           "export_top_series",
+                                           "negative_actuals"};
 const std::set<std::string> kMatchKeys = {"key", "labels"};
 const std::set<std::string> kAdaptiveKeys = {"floor", "cap", "lag"};
 const std::set<std::string> kStartKeys = {"mean_of_first", "fitted", "level", "trend", "season"};
 const std::set<std::string> kExplicitStartKeys = {"level", "trend", "season"};
 const std::set<std::string> kRuleKeys = {
-    "name", "signal", "limit", "false_alert_every", "clear", "clear_fraction", "persistence",
-    "direction", "severity", "periods", "escalate_limit", "escalate_severity", "resolve_after"};
+    "name",         "signal",         "limit",          "false_alert_every",
+    "clear",        "clear_fraction", "persistence",    "direction",
+    "severity",     "periods",        "escalate_limit", "escalate_severity",
+    "resolve_after"};
 const std::set<std::string> kAlertsKeys = {
-    "storm_threshold", "sinks", "max_attempts", "initial_backoff_seconds", "max_backoff_seconds",
-    "batch", "resend_seconds", "public_url", "check_seconds"};
-const std::set<std::string> kSinkKeys = {"name", "type", "url", "secret_file", "secret_env",
-                                         "timeout_seconds"};
+    "storm_threshold",     "sinks", "max_attempts",   "initial_backoff_seconds",
+    "max_backoff_seconds", "batch", "resend_seconds", "public_url",
+    "check_seconds"};
+const std::set<std::string> kSinkKeys = {"name",
+                                         "type",
+                                         "url",
+                                         "secret_file",
+                                         "secret_env",
+                                         "timeout_seconds",
+                                         "key_id",
+                                         "previous_secret_file",
+                                         "previous_key_id"};
 
 class Reader {
  public:
@@ -195,7 +238,8 @@ void ReadStart(Reader& r, const YAML::Node& n, const std::string& path,
     } else {
       r.Add(n, path,
             "must be first-actual, {mean_of_first: k}, {level: .., trend: .., season: [..]} or "
-            "{fitted: n}, got '" + n.Scalar() + "'");
+            "{fitted: n}, got '" +
+                n.Scalar() + "'");
     }
     return;
   }
@@ -261,7 +305,8 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
   } else if (r.String(n["signal"], path + ".signal", text)) {
     auto s = monitors::ParseSignalKind(text);
     if (!s) {
-      r.Add(n["signal"], path + ".signal", std::string("must be ") + kSignals + ", got '" + text + "'");
+      r.Add(n["signal"], path + ".signal",
+            std::string("must be ") + kSignals + ", got '" + text + "'");
       return;
     }
     rule.signal = *s;
@@ -272,21 +317,24 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
   long periods = 0;
   if (windowed) {
     if (!n["periods"].IsDefined())
-      r.Add(n, path, std::string("a ") + text + " rule needs 'periods' (" +
-                         (sig == SignalKind::kStale         ? "periods past due"
-                          : sig == SignalKind::kAlphaAtCap ? "periods at the cap"
-                                                           : "periods averaged") +
-                         ")");
+      r.Add(n, path,
+            std::string("a ") + text + " rule needs 'periods' (" +
+                (sig == SignalKind::kStale        ? "periods past due"
+                 : sig == SignalKind::kAlphaAtCap ? "periods at the cap"
+                                                  : "periods averaged") +
+                ")");
     r.Int(n, "periods", path, periods, 1, 1000);
   } else if (sig == SignalKind::kCusum) {
     r.Int(n, "periods", path, periods, 1, 1000);  // optional: a windowed cumulative signal
   } else if (n["periods"].IsDefined()) {
-    r.Add(n["periods"], path + ".periods", "only bias, accuracy, cusum, alpha_at_cap and stale rules take 'periods'");
+    r.Add(n["periods"], path + ".periods",
+          "only bias, accuracy, cusum, alpha_at_cap and stale rules take 'periods'");
   }
   const bool takes_limit = sig != SignalKind::kAlphaAtCap && sig != SignalKind::kStale;
   const bool calibrated = n["false_alert_every"].IsDefined();
   if (!takes_limit) {
-    for (const char* key : {"limit", "false_alert_every", "clear", "clear_fraction", "escalate_limit"})
+    for (const char* key :
+         {"limit", "false_alert_every", "clear", "clear_fraction", "escalate_limit"})
       if (n[key].IsDefined())
         r.Add(n[key], Reader::Join(path, key),
               std::string("a ") + text + " rule takes 'periods', not '" + key + "'");
@@ -294,7 +342,8 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
     if (n["limit"].IsDefined())
       r.Add(n["limit"], path + ".limit", "give either 'limit' or 'false_alert_every', not both");
     if (n["clear"].IsDefined())
-      r.Add(n["clear"], path + ".clear", "with 'false_alert_every' the clear level is 'clear_fraction' of the derived limit");
+      r.Add(n["clear"], path + ".clear",
+            "with 'false_alert_every' the clear level is 'clear_fraction' of the derived limit");
     r.Range(n, "false_alert_every", path, every, 2.0, false, 100000.0, false);
     r.Range(n, "clear_fraction", path, clear_fraction, 0.0, true, 1.0, false);
   } else {
@@ -306,12 +355,14 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
       r.Range(n, "limit", path, rule.limit, 0.0, true, 1e6, false);
     }
     if (n["clear_fraction"].IsDefined())
-      r.Add(n["clear_fraction"], path + ".clear_fraction", "'clear_fraction' goes with 'false_alert_every'; give 'clear'");
+      r.Add(n["clear_fraction"], path + ".clear_fraction",
+            "'clear_fraction' goes with 'false_alert_every'; give 'clear'");
     rule.clear = rule.limit;
     r.Range(n, "clear", path, rule.clear, 0.0, false, 1e6, false);
     if (rule.clear > rule.limit && n["clear"].IsDefined())
-      r.Add(n["clear"], path + ".clear", "must not exceed the limit (it is the level below which "
-                                         "the rule stops holding)");
+      r.Add(n["clear"], path + ".clear",
+            "must not exceed the limit (it is the level below which "
+            "the rule stops holding)");
   }
   long persistence = 1;
   r.Int(n, "persistence", path, persistence, 1, 10000);
@@ -332,7 +383,8 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
       r.Add(n["direction"], path + ".direction",
             "must be both, under-forecast or over-forecast, got '" + text + "'");
     else if (*d != monitors::Direction::kBoth &&
-             (sig == SignalKind::kAccuracy || sig == SignalKind::kAlphaAtCap || sig == SignalKind::kStale))
+             (sig == SignalKind::kAccuracy || sig == SignalKind::kAlphaAtCap ||
+              sig == SignalKind::kStale))
       r.Add(n["direction"], path + ".direction", "this signal has no direction; leave it out");
     else
       rule.direction = *d;
@@ -342,7 +394,8 @@ void ReadRule(Reader& r, const YAML::Node& n, const std::string& path, monitors:
     if (n[key].IsDefined() && r.String(n[key], Reader::Join(path, key), text)) {
       auto s = monitors::ParseSeverity(text);
       if (!s)
-        r.Add(n[key], Reader::Join(path, key), "must be info, warning or critical, got '" + text + "'");
+        r.Add(n[key], Reader::Join(path, key),
+              "must be info, warning or critical, got '" + text + "'");
       else
         *out = *s;
     }
@@ -422,8 +475,9 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
   r.Int(n, "season_length", path, m, 2, 1000);
   s.constants.season_length = static_cast<int>(m);
   if (monitors::IsSeasonal(method) && !n["season_length"].IsDefined())
-    r.Add(n, path, "method " + std::string(monitors::MethodName(method)) +
-                       " needs 'season_length' (periods per season, e.g. 52 for weeks in a year)");
+    r.Add(n, path,
+          "method " + std::string(monitors::MethodName(method)) +
+              " needs 'season_length' (periods per season, e.g. 52 for weeks in a year)");
   if (!monitors::IsSeasonal(method) && n["season_length"].IsDefined())
     r.Add(n["season_length"], path + ".season_length",
           "only seasonal-add and seasonal-mul use a season_length");
@@ -515,7 +569,8 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       r.Add(n["gaps"], path + ".gaps", "must be zero or skip, got '" + text + "'");
   }
   r.Range(n, "coverage", path, s.coverage, 0.0, true, 1.0, true);
-  if (n["negative_actuals"].IsDefined() && r.String(n["negative_actuals"], path + ".negative_actuals", text)) {
+  if (n["negative_actuals"].IsDefined() &&
+      r.String(n["negative_actuals"], path + ".negative_actuals", text)) {
     if (text == "accept" && !monitors::MethodTakesNegative(method))
       r.Add(n["negative_actuals"], path + ".negative_actuals",
             "method " + std::string(monitors::MethodName(method)) +
@@ -523,7 +578,8 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
     else if (text == "accept")
       s.accept_negative = true;
     else if (text != "refuse")
-      r.Add(n["negative_actuals"], path + ".negative_actuals", "must be refuse or accept, got '" + text + "'");
+      r.Add(n["negative_actuals"], path + ".negative_actuals",
+            "must be refuse or accept, got '" + text + "'");
   }
   long history = p.history;
   r.Int(n, "history", path, history, 1, 100000);
@@ -581,8 +637,8 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
               << rule.limit;
           r.Add(rules[b.node]["escalate_limit"], rp + ".escalate_limit", msg.str());
         }
-        p.calibrations.push_back({rule.name, b.every, c.limit, c.rate,
-                                  monitors::PeriodsPerWeek(p.period) / b.every});
+        p.calibrations.push_back(
+            {rule.name, b.every, c.limit, c.rate, monitors::PeriodsPerWeek(p.period) / b.every});
       }
       if (rules.size() > monitors::kMaxRules)
         r.Add(rules, path + ".rules",
@@ -627,20 +683,29 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
     r.CheckKeys(k, sp, kSinkKeys);
     Sink sink;
     std::string type;
-    if (!k["name"].IsDefined()) r.Add(k, sp, "a sink needs a 'name'");
-    else r.String(k["name"], sp + ".name", sink.name);
+    if (!k["name"].IsDefined())
+      r.Add(k, sp, "a sink needs a 'name'");
+    else
+      r.String(k["name"], sp + ".name", sink.name);
     if (!sink.name.empty() && !names.insert(sink.name).second)
       r.Add(k["name"], sp + ".name", "sink name '" + sink.name + "' is used twice");
     if (!k["type"].IsDefined()) {
       r.Add(k, sp, "a sink needs a 'type' (webhook, alertmanager or log)");
     } else if (r.String(k["type"], sp + ".type", type)) {
-      if (type == "webhook") sink.kind = Sink::Kind::kWebhook;
-      else if (type == "alertmanager") sink.kind = Sink::Kind::kAlertmanager;
-      else if (type == "log") sink.kind = Sink::Kind::kLog;
-      else r.Add(k["type"], sp + ".type", "must be webhook, alertmanager or log, got '" + type + "'");
+      if (type == "webhook")
+        sink.kind = Sink::Kind::kWebhook;
+      else if (type == "alertmanager")
+        sink.kind = Sink::Kind::kAlertmanager;
+      else if (type == "log")
+        sink.kind = Sink::Kind::kLog;
+      else
+        r.Add(k["type"], sp + ".type", "must be webhook, alertmanager or log, got '" + type + "'");
     }
-    for (auto [key, out] : {std::pair{"url", &sink.url}, std::pair{"secret_file", &sink.secret_file},
-                            std::pair{"secret_env", &sink.secret_env}})
+    for (auto [key, out] :
+         {std::pair{"url", &sink.url}, std::pair{"secret_file", &sink.secret_file},
+          std::pair{"secret_env", &sink.secret_env}, std::pair{"key_id", &sink.key_id},
+          std::pair{"previous_secret_file", &sink.previous_secret_file},
+          std::pair{"previous_key_id", &sink.previous_key_id}})
       if (k[key].IsDefined()) r.String(k[key], Reader::Join(sp, key), *out);
     r.Int(k, "timeout_seconds", sp, sink.timeout_seconds, 1, 3600);
     if (sink.kind != Sink::Kind::kLog) {
@@ -650,10 +715,22 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
     } else if (!sink.url.empty()) {
       r.Add(k["url"], sp + ".url", "a log sink takes no url");
     }
-    if (sink.kind != Sink::Kind::kWebhook && (!sink.secret_file.empty() || !sink.secret_env.empty()))
+    if (sink.kind != Sink::Kind::kWebhook &&
+        (!sink.secret_file.empty() || !sink.secret_env.empty()))
       r.Add(k, sp, "only webhook sinks take a secret");
     if (!sink.secret_file.empty() && !sink.secret_env.empty())
       r.Add(k, sp, "give either secret_file or secret_env, not both");
+    for (auto [key, id] :
+         {std::pair{"key_id", &sink.key_id}, std::pair{"previous_key_id", &sink.previous_key_id}})
+      if (id->find_first_of("\"\\") != std::string::npos || id->size() > 200)
+        r.Add(k[key], Reader::Join(sp, key),
+              "a key id is at most 200 characters without quotes or backslashes");
+    if (sink.previous_secret_file.empty() != sink.previous_key_id.empty())
+      r.Add(k, sp, "previous_secret_file and previous_key_id come together (key rotation)");
+    if (!sink.previous_secret_file.empty() && sink.secret_file.empty() && sink.secret_env.empty())
+      r.Add(k, sp, "a previous key needs a current one (secret_file or secret_env)");
+    if (!sink.previous_key_id.empty() && sink.previous_key_id == sink.key_id)
+      r.Add(k["previous_key_id"], Reader::Join(sp, "previous_key_id"), "must differ from key_id");
     a.sinks.push_back(std::move(sink));
   }
 }
@@ -666,8 +743,8 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   }
   r.CheckKeys(n, path, kServerKeys);
   for (auto [key, out] : {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
-                          std::pair{"token_file", &s.token_file}, std::pair{"token_env", &s.token_env},
-                          std::pair{"folder", &s.folder}})
+                          std::pair{"token_file", &s.token_file},
+                          std::pair{"token_env", &s.token_env}, std::pair{"folder", &s.folder}})
     if (n[key].IsDefined()) r.String(n[key], Reader::Join(path, key), *out);
   if (n["listen"].IsDefined() && s.listen.rfind(':') == std::string::npos)
     r.Add(n["listen"], path + ".listen", "must be HOST:PORT, got '" + s.listen + "'");
@@ -679,7 +756,8 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
       else if (text == "normal")
         s.synchronous = Synchronous::kNormal;
       else
-        r.Add(n["synchronous"], path + ".synchronous", "must be full or normal, got '" + text + "'");
+        r.Add(n["synchronous"], path + ".synchronous",
+              "must be full or normal, got '" + text + "'");
     }
   }
   r.Int(n, "max_body_bytes", path, s.max_body_bytes, 1024, 1L << 31);
@@ -730,13 +808,17 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
   }
   r.CheckKeys(root, "", kTopKeys);
   if (root["server"].IsDefined()) ReadServer(r, root["server"], result.settings.server);
-  result.settings.alerts.sinks = {Sink{"log", Sink::Kind::kLog, "", "", "", 10}};
+  Sink log_sink;
+  log_sink.name = "log";
+  log_sink.kind = Sink::Kind::kLog;
+  result.settings.alerts.sinks = {log_sink};
   if (root["alerts"].IsDefined()) ReadAlerts(r, root["alerts"], result.settings.alerts);
   if (root["fallback_policy"].IsDefined())
     r.String(root["fallback_policy"], "fallback_policy", result.settings.fallback_policy);
   const YAML::Node policies = root["policies"];
   if (!policies.IsDefined() || !policies.IsSequence() || policies.size() == 0) {
-    r.Add(policies.IsDefined() ? policies : root, "policies", "must be a non-empty list of policies");
+    r.Add(policies.IsDefined() ? policies : root, "policies",
+          "must be a non-empty list of policies");
   } else {
     std::set<std::string> names;
     for (std::size_t i = 0; i < policies.size(); ++i) {
@@ -751,7 +833,8 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
   }
   if (!result.settings.fallback_policy.empty()) {
     bool found = false;
-    for (const Policy& p : result.settings.policies) found |= p.name == result.settings.fallback_policy;
+    for (const Policy& p : result.settings.policies)
+      found |= p.name == result.settings.fallback_policy;
     if (!found)
       r.Add(root["fallback_policy"], "fallback_policy",
             "names no policy: '" + result.settings.fallback_policy + "'");

@@ -21,10 +21,10 @@ struct Match {
 // A limit derived from a false-alarm budget (monitors/calibrate.h).
 struct RuleCalibration {
   std::string rule;
-  double every = 0.0;           // periods per false alert per series, as configured
-  double limit = 0.0;           // derived
-  double rate = 0.0;            // episodes per period at that limit, in the simulation
-  double per_series_week = 0.0; // expected false alerts per series per week
+  double every = 0.0;            // periods per false alert per series, as configured
+  double limit = 0.0;            // derived
+  double rate = 0.0;             // episodes per period at that limit, in the simulation
+  double per_series_week = 0.0;  // expected false alerts per series per week
 };
 
 struct Policy {
@@ -32,8 +32,8 @@ struct Policy {
   Match match;
   monitors::PeriodKind period = monitors::PeriodKind::kWeek;
   monitors::PolicySpec spec;
-  int history = 104;        // actuals kept per series for restatements and charts
-  int stale_after = 2;      // periods an actual may be overdue before the series is stale
+  int history = 104;    // actuals kept per series for restatements and charts
+  int stale_after = 2;  // periods an actual may be overdue before the series is stale
   // /metrics exports this many series with the largest |Trigg's signal| by key (0: none;
   // each costs two time series in Prometheus).
   int export_top_series = 0;
@@ -45,9 +45,13 @@ struct Sink {
   enum class Kind { kWebhook, kAlertmanager, kLog };
   std::string name;
   Kind kind = Kind::kLog;
-  std::string url;            // webhook: the endpoint; alertmanager: its base URL
-  std::string secret_file;    // webhook: HMAC-SHA256 key, read from this file...
-  std::string secret_env;     // ...or this environment variable
+  std::string url;                    // webhook: the endpoint; alertmanager: its base URL
+  std::string secret_file;            // webhook: HMAC-SHA256 key, read from this file...
+  std::string secret_env;             // ...or this environment variable
+  std::string key_id = "forewarden";  // the keyid the signature names
+  // Key rotation: while set, each message carries a second signature with the previous key.
+  std::string previous_secret_file;
+  std::string previous_key_id;
   long timeout_seconds = 10;
 };
 
@@ -56,14 +60,14 @@ struct Alerts {
   // More than this many series of one policy opening the same rule in one batch make one
   // grouped notification instead of one each (0: never group).
   long storm_threshold = 25;
-  std::vector<Sink> sinks;      // default: one log sink
-  long max_attempts = 20;       // deliveries of an event to a sink before it is dead-lettered
+  std::vector<Sink> sinks;  // default: one log sink
+  long max_attempts = 20;   // deliveries of an event to a sink before it is dead-lettered
   double initial_backoff_seconds = 1.0;
   double max_backoff_seconds = 600.0;
-  long batch = 100;             // events sent in one round per sink
-  long resend_seconds = 60;     // alertmanager: open alerts are re-sent this often
-  long check_seconds = 30;      // how often ended snoozes and stale rules are checked
-  std::string public_url;       // base URL of this service in notifications ("" = from listen)
+  long batch = 100;          // events sent in one round per sink
+  long resend_seconds = 60;  // alertmanager: open alerts are re-sent this often
+  long check_seconds = 30;   // how often ended snoozes and stale rules are checked
+  std::string public_url;    // base URL of this service in notifications ("" = from listen)
 };
 
 enum class Synchronous { kFull, kNormal };
@@ -73,28 +77,29 @@ enum class Synchronous { kFull, kNormal };
 struct Server {
   std::string listen = "127.0.0.1:8700";
   std::string data = "./forewarden-data";
-  std::string token_file;       // bearer token for write endpoints, read from this file...
-  std::string token_env;        // ...or from this environment variable
+  std::string token_file;  // bearer token for write endpoints, read from this file...
+  std::string token_env;   // ...or from this environment variable
   Synchronous synchronous = Synchronous::kFull;
   long max_body_bytes = 16 << 20;
   long max_rows_per_batch = 200000;
-  long max_key_bytes = 256;     // a series key
-  long max_labels = 16;         // labels on one row
-  long max_label_bytes = 256;   // a label's name and its value, each
-  long max_series = 10000000;   // series the service holds; a row of a new series beyond it is refused
+  long max_key_bytes = 256;    // a series key
+  long max_labels = 16;        // labels on one row
+  long max_label_bytes = 256;  // a label's name and its value, each
+  long max_series =
+      10000000;  // series the service holds; a row of a new series beyond it is refused
   long max_connections = 256;
   long header_timeout_seconds = 10;
   long idle_timeout_seconds = 60;
-  long queue_depth = 64;        // batches waiting for the engine
+  long queue_depth = 64;  // batches waiting for the engine
   long shutdown_grace_seconds = 10;
-  long long max_database_bytes = 0;  // cap on the database file (0 = none); over it writes fail
+  long long max_database_bytes = 0;    // cap on the database file (0 = none); over it writes fail
   long long cache_bytes = 64LL << 20;  // SQLite page cache
   // Series states are written with the batch that changes them only when needed (new series,
   // restatements, trimming); otherwise at most this many seconds or dirty series later (the
   // actuals themselves are always committed with their batch; a restart replays the rest).
   long state_flush_seconds = 5;
   long state_flush_series = 100000;
-  std::string folder;           // drop folder ("" = none): incoming files, done/, rejected/
+  std::string folder;  // drop folder ("" = none): incoming files, done/, rejected/
   long folder_poll_ms = 500;
 };
 

@@ -5,7 +5,8 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 
 deploy/setup.sh --test
-cmake -S . -B build/test -G Ninja -DCMAKE_BUILD_TYPE=RelWithDebInfo -DFOREWARDEN_SANITIZE=ON >/dev/null
+cmake -S . -B build/test -G Ninja -DCMAKE_BUILD_TYPE=RelWithDebInfo -DFOREWARDEN_SANITIZE=ON \
+  -DFOREWARDEN_WERROR="${CI:+ON}" >/dev/null
 cmake --build build/test
 cd build/test
 ctest --output-on-failure --timeout 600 -j 2

@@ -6,7 +6,8 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 deploy/setup.sh --test
-cmake -S . -B build/tsan -G Ninja -DCMAKE_BUILD_TYPE=RelWithDebInfo -DFOREWARDEN_TSAN=ON >/dev/null
+cmake -S . -B build/tsan -G Ninja -DCMAKE_BUILD_TYPE=RelWithDebInfo -DFOREWARDEN_TSAN=ON \
+  -DFOREWARDEN_WERROR="${CI:+ON}" >/dev/null
 cmake --build build/tsan --target forewarden forewarden_tests
 export TSAN_OPTIONS="halt_on_error=1 exitcode=66 second_deadlock_stack=1"
 build/tsan/tests/forewarden_tests "[integration]"

@@ -66,14 +66,18 @@ constexpr double kNoise = 10.0;
 constexpr double kSeasonAdd = 15.0;
 constexpr double kSeasonMul = 0.15;
 
-double SeasonShape(long t, int m) { return std::sin(2.0 * kPi * static_cast<double>(t % m) / m); }
+double SeasonShape(long t, int m) {
+  return std::sin(2.0 * kPi * static_cast<double>(t % m) / m);
+}
 
 double InControlValue(Method method, int m, long t, Random& rng) {
   switch (method) {
     case Method::kSes:
     case Method::kHolt:
-    case Method::kDamped: return kLevel + kNoise * rng.Normal();
-    case Method::kSeasonalAdd: return kLevel + kSeasonAdd * SeasonShape(t, m) + kNoise * rng.Normal();
+    case Method::kDamped:
+      return kLevel + kNoise * rng.Normal();
+    case Method::kSeasonalAdd:
+      return kLevel + kSeasonAdd * SeasonShape(t, m) + kNoise * rng.Normal();
     case Method::kSeasonalMul:
       return (kLevel + kNoise * rng.Normal()) * (1.0 + kSeasonMul * SeasonShape(t, m));
     case Method::kCroston:
@@ -100,9 +104,9 @@ PolicySpec InControlPolicy(const PolicySpec& policy, std::size_t rule, bool true
       const int m = p.constants.season_length;
       p.start.season.resize(static_cast<std::size_t>(m));
       for (int j = 0; j < m; ++j)
-        p.start.season[static_cast<std::size_t>(j)] =
-            p.method == Method::kSeasonalAdd ? kSeasonAdd * SeasonShape(j, m)
-                                             : 1.0 + kSeasonMul * SeasonShape(j, m);
+        p.start.season[static_cast<std::size_t>(j)] = p.method == Method::kSeasonalAdd
+                                                          ? kSeasonAdd * SeasonShape(j, m)
+                                                          : 1.0 + kSeasonMul * SeasonShape(j, m);
     }
   }
   return p;
@@ -128,7 +132,8 @@ float ExcursionOrNaN(Direction d, std::optional<double> v) {
 
 }  // namespace
 
-SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule, const SimulationSize& size) {
+SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule,
+                             const SimulationSize& size) {
   const PolicySpec p = InControlPolicy(policy, rule, size.true_start);
   const RuleSpec& watched = p.rules[0];
   SignalSample out = EmptySample(size);
@@ -160,7 +165,8 @@ SignalSample SampleIidErrors(double beta, SignalKind signal, Direction direction
     float* x = out.x.data() + static_cast<std::size_t>(path) * per_path;
     for (long t = 0; t < per_path; ++t) {
       UpdateErrorStats(s, beta, rng.Normal());
-      const std::optional<double> v = signal == SignalKind::kCusum ? CusumSignal(s) : TriggSignal(s);
+      const std::optional<double> v =
+          signal == SignalKind::kCusum ? CusumSignal(s) : TriggSignal(s);
       x[t] = ExcursionOrNaN(direction, v);
     }
   }
@@ -223,11 +229,14 @@ Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double eve
   static std::mutex mu;
   static std::map<std::string, Calibration> cache;
   Calibration c;
-  if (rule >= policy.rules.size() || !(every >= 1.0) || !(clear_fraction > 0.0) || clear_fraction > 1.0) {
-    c.problem = "calibration needs a rule, a budget of at least one period and a clear fraction in (0, 1]";
+  if (rule >= policy.rules.size() || !(every >= 1.0) || !(clear_fraction > 0.0) ||
+      clear_fraction > 1.0) {
+    c.problem =
+        "calibration needs a rule, a budget of at least one period and a clear fraction in (0, 1]";
     return c;
   }
-  if (!StepSignal(policy.rules[rule].signal) || policy.rules[rule].signal == SignalKind::kAlphaAtCap) {
+  if (!StepSignal(policy.rules[rule].signal) ||
+      policy.rules[rule].signal == SignalKind::kAlphaAtCap) {
     c.problem = std::string("a ") + SignalKindName(policy.rules[rule].signal) +
                 " rule cannot take a false-alarm budget; give it a limit";
     return c;
@@ -237,8 +246,8 @@ Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double eve
   SimulationSize size = size_in;
   size.true_start = false;
   size.burn_in = 0;
-  size.periods = StartWindow(policy.method, policy.start) + policy.warmup +
-                 static_cast<int>(std::ceil(every));
+  size.periods =
+      StartWindow(policy.method, policy.start) + policy.warmup + static_cast<int>(std::ceil(every));
   size.paths = std::max(size.paths, 200);
   const double needed = 200.0 * every;
   const double have = static_cast<double>(size.paths) * std::ceil(every);
@@ -297,9 +306,12 @@ Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double eve
 
 double PeriodsPerWeek(PeriodKind kind) {
   switch (kind) {
-    case PeriodKind::kDay: return 7.0;
-    case PeriodKind::kWeek: return 1.0;
-    case PeriodKind::kMonth: return 12.0 / 52.1775;
+    case PeriodKind::kDay:
+      return 7.0;
+    case PeriodKind::kWeek:
+      return 1.0;
+    case PeriodKind::kMonth:
+      return 12.0 / 52.1775;
   }
   return 1.0;
 }

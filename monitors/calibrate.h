@@ -49,12 +49,15 @@ struct SignalSample {
   int burn_in = 0;
   int periods = 0;
   std::vector<float> x;
-  const float* path(int p) const { return x.data() + static_cast<std::size_t>(p) * (burn_in + periods); }
+  const float* path(int p) const {
+    return x.data() + static_cast<std::size_t>(p) * (burn_in + periods);
+  }
 };
 
 // The policy's in-control process (above), observed through rule `rule` of the policy
 // (started by the policy's start rule unless size.true_start).
-SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule, const SimulationSize& size);
+SignalSample SampleInControl(const PolicySpec& policy, std::size_t rule,
+                             const SimulationSize& size);
 
 // The textbook setting of REFERENCES.md Table A: iid N(0, 1) errors fed straight into E, M and
 // C with monitoring constant beta, from E = C = 0 and M = E|e| = sqrt(2/pi). `signal` is trigg
@@ -80,8 +83,8 @@ struct Calibration {
 // The limit of rule `rule` for at most one false alert per `every` periods; the clear level
 // follows as clear_fraction * limit. `size` sets the number of paths (at least 200 expected
 // false alerts are simulated) and the seed; each path lives `every` periods plus the start
-// window and warm-up, counted from its first period. Results are cached for the process's lifetime (same
-// inputs, same answer), so reloads repeat no work. Thread-safe.
+// window and warm-up, counted from its first period. Results are cached for the process's lifetime
+// (same inputs, same answer), so reloads repeat no work. Thread-safe.
 Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double every,
                           double clear_fraction, const SimulationSize& size = {});
 

@@ -11,7 +11,9 @@ namespace {
 
 constexpr double kLo = 1e-4, kHi = 0.9999;
 
-double ToBounded(double x) { return kLo + (kHi - kLo) / (1.0 + std::exp(-x)); }
+double ToBounded(double x) {
+  return kLo + (kHi - kLo) / (1.0 + std::exp(-x));
+}
 double FromBounded(double p) {
   const double u = (p - kLo) / (kHi - kLo);
   return std::log(u / (1.0 - u));
@@ -249,7 +251,8 @@ FitResult FitStart(Method method, const Constants& base, const std::vector<doubl
       } else {
         for (int v = 0; v < nv; ++v) {
           if (v == lo) continue;
-          for (int k = 0; k < np; ++k) simplex[v][k] = simplex[lo][k] + 0.5 * (simplex[v][k] - simplex[lo][k]);
+          for (int k = 0; k < np; ++k)
+            simplex[v][k] = simplex[lo][k] + 0.5 * (simplex[v][k] - simplex[lo][k]);
           fv[v] = eval(simplex[v]);
         }
       }

@@ -24,10 +24,10 @@
 namespace monitors {
 
 struct FitResult {
-  Constants constants;       // fitted constants (phi and season_length as given)
-  ModelState start;          // state before the window's first period
-  double sse = 0.0;          // sum of squared one-step errors over the window
-  int evaluations = 0;       // objective evaluations used
+  Constants constants;  // fitted constants (phi and season_length as given)
+  ModelState start;     // state before the window's first period
+  double sse = 0.0;     // sum of squared one-step errors over the window
+  int evaluations = 0;  // objective evaluations used
 };
 
 // Requires y.size() >= 3 (+ 1 per trend, 2*m for seasonal: checked by config validation).

@@ -4,13 +4,20 @@ namespace monitors {
 
 std::string_view MethodName(Method method) {
   switch (method) {
-    case Method::kSes: return "ses";
-    case Method::kHolt: return "holt";
-    case Method::kDamped: return "damped";
-    case Method::kSeasonalAdd: return "seasonal-add";
-    case Method::kSeasonalMul: return "seasonal-mul";
-    case Method::kCroston: return "croston";
-    case Method::kSba: return "sba";
+    case Method::kSes:
+      return "ses";
+    case Method::kHolt:
+      return "holt";
+    case Method::kDamped:
+      return "damped";
+    case Method::kSeasonalAdd:
+      return "seasonal-add";
+    case Method::kSeasonalMul:
+      return "seasonal-mul";
+    case Method::kCroston:
+      return "croston";
+    case Method::kSba:
+      return "sba";
   }
   return "?";
 }
@@ -36,9 +43,11 @@ inline std::size_t Phase(long index, int m) {
 std::optional<double> ForecastNext(Method method, const Constants& c, const ModelState& s,
                                    long next_index) {
   switch (method) {
-    case Method::kSes: return s.level;
+    case Method::kSes:
+      return s.level;
     case Method::kHolt:
-    case Method::kDamped: return s.level + c.phi * s.trend;
+    case Method::kDamped:
+      return s.level + c.phi * s.trend;
     case Method::kSeasonalAdd:
       return s.level + c.phi * s.trend + s.season[Phase(next_index, c.season_length)];
     case Method::kSeasonalMul:
@@ -56,7 +65,9 @@ std::optional<double> ForecastNext(Method method, const Constants& c, const Mode
 void UpdateModel(Method method, const Constants& c, ModelState& s, long index, double y) {
   const double a = c.alpha;
   switch (method) {
-    case Method::kSes: s.level = a * y + (1.0 - a) * s.level; return;
+    case Method::kSes:
+      s.level = a * y + (1.0 - a) * s.level;
+      return;
     case Method::kHolt:
     case Method::kDamped: {
       const double lp = s.level, bp = s.trend;

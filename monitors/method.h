@@ -4,7 +4,8 @@
 //   ses          F(t+1) = l(t) = l(t-1) + alpha*(y(t) - l(t-1))            NIST e-Handbook 6.4.3.1
 //   holt/damped  l(t) = alpha*y(t) + (1-alpha)*(l(t-1) + phi*b(t-1))
 //                b(t) = beta*(l(t) - l(t-1)) + (1-beta)*phi*b(t-1)
-//                F(t+1) = l(t) + phi*b(t)                  (holt: phi = 1)   FPP3 8.2; R HoltWinters
+//                F(t+1) = l(t) + phi*b(t)                  (holt: phi = 1)   FPP3 8.2; R
+//                HoltWinters
 //   seasonal-add l(t) = alpha*(y(t) - s(t-m)) + (1-alpha)*(l(t-1) + phi*b(t-1))
 //                s(t) = gamma*(y(t) - l(t-1) - phi*b(t-1)) + (1-gamma)*s(t-m)
 //                F(t+1) = l(t) + phi*b(t) + s(t+1-m)
@@ -37,16 +38,20 @@ inline bool HasTrend(Method m) {
   return m == Method::kHolt || m == Method::kDamped || m == Method::kSeasonalAdd ||
          m == Method::kSeasonalMul;
 }
-inline bool IsSeasonal(Method m) { return m == Method::kSeasonalAdd || m == Method::kSeasonalMul; }
-inline bool IsIntermittent(Method m) { return m == Method::kCroston || m == Method::kSba; }
+inline bool IsSeasonal(Method m) {
+  return m == Method::kSeasonalAdd || m == Method::kSeasonalMul;
+}
+inline bool IsIntermittent(Method m) {
+  return m == Method::kCroston || m == Method::kSba;
+}
 
 // The smoothing constants of one series. alpha may change over time (adaptive policies).
 struct Constants {
-  double alpha = 0.2;      // level (croston/sba: sizes and intervals)
-  double beta = 0.1;       // trend, on level differences
-  double phi = 1.0;        // damping; 1 for every method but damped (seasonal-* may set it)
-  double gamma = 0.1;      // seasonal
-  int season_length = 1;   // m, seasonal methods only
+  double alpha = 0.2;     // level (croston/sba: sizes and intervals)
+  double beta = 0.1;      // trend, on level differences
+  double phi = 1.0;       // damping; 1 for every method but damped (seasonal-* may set it)
+  double gamma = 0.1;     // seasonal
+  int season_length = 1;  // m, seasonal methods only
 };
 
 // Model state after the last processed period. For seasonal methods season[j] holds the
@@ -56,8 +61,8 @@ struct ModelState {
   double trend = 0.0;
   std::vector<double> season;
   // croston / sba
-  double size = 0.0;       // smoothed demand size z
-  double interval = 0.0;   // smoothed inter-demand interval p
+  double size = 0.0;              // smoothed demand size z
+  double interval = 0.0;          // smoothed inter-demand interval p
   std::int32_t since_demand = 0;  // periods since the previous demand (or before the first period)
   bool has_demand = false;        // a demand has been seen: forecasts exist
 };

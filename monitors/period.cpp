@@ -15,11 +15,13 @@ bool ParseDigits(std::string_view text, int& out) {
   return res.ec == std::errc() && res.ptr == text.data() + text.size();
 }
 
-const char* const kMonthNames[] = {"January", "February", "March",     "April",
-                                   "May",     "June",     "July",      "August",
-                                   "September", "October", "November", "December"};
+const char* const kMonthNames[] = {"January",   "February", "March",    "April",
+                                   "May",       "June",     "July",     "August",
+                                   "September", "October",  "November", "December"};
 
-bool IsLeap(int y) { return (y % 4 == 0 && y % 100 != 0) || y % 400 == 0; }
+bool IsLeap(int y) {
+  return (y % 4 == 0 && y % 100 != 0) || y % 400 == 0;
+}
 
 // Monday (days since epoch) of ISO week 1 of an ISO year: the week holding January 4th.
 std::int64_t IsoWeekOneMonday(int iso_year) {
@@ -43,9 +45,12 @@ PeriodParse Fail(std::string message) {
 
 std::string_view PeriodKindName(PeriodKind kind) {
   switch (kind) {
-    case PeriodKind::kDay: return "day";
-    case PeriodKind::kWeek: return "week";
-    case PeriodKind::kMonth: return "month";
+    case PeriodKind::kDay:
+      return "day";
+    case PeriodKind::kWeek:
+      return "week";
+    case PeriodKind::kMonth:
+      return "month";
   }
   return "?";
 }
@@ -110,8 +115,7 @@ PeriodParse ParsePeriod(PeriodKind kind, std::string_view text) {
     if (week == 53 && IsoWeekOneMonday(year + 1) <= monday)
       return Fail("'" + shown + "' is not an ISO week: " + std::to_string(year) +
                   " has 52 ISO weeks");
-    if (week > 53)
-      return Fail("'" + shown + "' is not an ISO week: the week number must be 01-53");
+    if (week > 53) return Fail("'" + shown + "' is not an ISO week: the week number must be 01-53");
     PeriodParse p;
     p.ordinal = WeekOrdinalOfDay(monday);
     return p;
@@ -144,8 +148,10 @@ PeriodParse ParsePeriod(PeriodKind kind, std::string_view text) {
 
 PeriodOrdinal PeriodOfDay(PeriodKind kind, std::int64_t days) {
   switch (kind) {
-    case PeriodKind::kDay: return days;
-    case PeriodKind::kWeek: return WeekOrdinalOfDay(days);
+    case PeriodKind::kDay:
+      return days;
+    case PeriodKind::kWeek:
+      return WeekOrdinalOfDay(days);
     case PeriodKind::kMonth: {
       int y, m, d;
       CivilFromDays(days, y, m, d);
@@ -158,8 +164,12 @@ PeriodOrdinal PeriodOfDay(PeriodKind kind, std::int64_t days) {
 int FormatPeriodTo(PeriodKind kind, PeriodOrdinal ordinal, char* out) {
   int y = 0, m = 0, d = 1;
   switch (kind) {
-    case PeriodKind::kDay: CivilFromDays(ordinal, y, m, d); break;
-    case PeriodKind::kWeek: CivilFromDays(kMondayBefore1970 + ordinal * 7, y, m, d); break;
+    case PeriodKind::kDay:
+      CivilFromDays(ordinal, y, m, d);
+      break;
+    case PeriodKind::kWeek:
+      CivilFromDays(kMondayBefore1970 + ordinal * 7, y, m, d);
+      break;
     case PeriodKind::kMonth:
       y = static_cast<int>(ordinal >= 0 ? ordinal / 12 : (ordinal - 11) / 12);
       m = static_cast<int>(ordinal - static_cast<PeriodOrdinal>(y) * 12) + 1;

@@ -51,8 +51,12 @@ std::string FormatPeriod(PeriodKind kind, PeriodOrdinal ordinal);
 int FormatPeriodTo(PeriodKind kind, PeriodOrdinal ordinal, char* out);
 
 // Periods from a to b (b - a): 1 for consecutive periods, negative when b is earlier.
-inline std::int64_t PeriodDistance(PeriodOrdinal a, PeriodOrdinal b) { return b - a; }
-inline PeriodOrdinal NextPeriod(PeriodOrdinal p) { return p + 1; }
+inline std::int64_t PeriodDistance(PeriodOrdinal a, PeriodOrdinal b) {
+  return b - a;
+}
+inline PeriodOrdinal NextPeriod(PeriodOrdinal p) {
+  return p + 1;
+}
 
 // Civil-calendar helpers (proleptic Gregorian), exposed for tests and other callers.
 std::int64_t DaysFromCivil(int year, int month, int day);

@@ -3,29 +3,42 @@
 namespace monitors {
 const char* SignalKindName(SignalKind k) {
   switch (k) {
-    case SignalKind::kTrigg: return "trigg";
-    case SignalKind::kCusum: return "cusum";
-    case SignalKind::kError: return "error";
-    case SignalKind::kBias: return "bias";
-    case SignalKind::kAccuracy: return "accuracy";
-    case SignalKind::kAlphaAtCap: return "alpha_at_cap";
-    case SignalKind::kStale: return "stale";
+    case SignalKind::kTrigg:
+      return "trigg";
+    case SignalKind::kCusum:
+      return "cusum";
+    case SignalKind::kError:
+      return "error";
+    case SignalKind::kBias:
+      return "bias";
+    case SignalKind::kAccuracy:
+      return "accuracy";
+    case SignalKind::kAlphaAtCap:
+      return "alpha_at_cap";
+    case SignalKind::kStale:
+      return "stale";
   }
   return "?";
 }
 const char* DirectionName(Direction d) {
   switch (d) {
-    case Direction::kBoth: return "both";
-    case Direction::kUnder: return "under-forecast";
-    case Direction::kOver: return "over-forecast";
+    case Direction::kBoth:
+      return "both";
+    case Direction::kUnder:
+      return "under-forecast";
+    case Direction::kOver:
+      return "over-forecast";
   }
   return "?";
 }
 const char* SeverityName(Severity s) {
   switch (s) {
-    case Severity::kInfo: return "info";
-    case Severity::kWarning: return "warning";
-    case Severity::kCritical: return "critical";
+    case Severity::kInfo:
+      return "info";
+    case Severity::kWarning:
+      return "warning";
+    case Severity::kCritical:
+      return "critical";
   }
   return "?";
 }

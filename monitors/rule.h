@@ -48,15 +48,15 @@ struct RuleSpec {
   int persistence = 1;
   Direction direction = Direction::kBoth;
   Severity severity = Severity::kWarning;
-  int periods = 0;                      // bias, accuracy, windowed cusum: window length
+  int periods = 0;                       // bias, accuracy, windowed cusum: window length
   std::optional<double> escalate_limit;  // beyond it the episode takes escalate_severity
   Severity escalate_severity = Severity::kCritical;
-  int resolve_after = 1;                // periods clear before the episode ends
+  int resolve_after = 1;  // periods clear before the episode ends
 };
 
 struct RuleState {
-  std::uint16_t run = 0;   // consecutive periods beyond the limit (saturates at 65535)
-  std::uint8_t quiet = 0;  // consecutive evaluated periods without holding, while open (<= 255)
+  std::uint16_t run = 0;       // consecutive periods beyond the limit (saturates at 65535)
+  std::uint8_t quiet = 0;      // consecutive evaluated periods without holding, while open (<= 255)
   bool active : 1 = false;     // the rule holds
   bool open : 1 = false;       // an episode is open
   bool escalated : 1 = false;  // the open episode went beyond escalate_limit
@@ -122,9 +122,12 @@ enum class RuleChange { kNone, kOpened, kCleared };
 // The signal's excursion in the watched direction (positive = towards the limit).
 inline double Excursion(Direction d, double v) {
   switch (d) {
-    case Direction::kBoth: return v < 0 ? -v : v;
-    case Direction::kUnder: return v;
-    case Direction::kOver: return -v;
+    case Direction::kBoth:
+      return v < 0 ? -v : v;
+    case Direction::kUnder:
+      return v;
+    case Direction::kOver:
+      return -v;
   }
   return 0;
 }
@@ -160,7 +163,8 @@ inline RuleChange EvaluateRule(const RuleSpec& rule, RuleState& st, std::optiona
 }
 
 // Advances the episode after EvaluateRule with the same value (nothing when undefined).
-inline EpisodeChange AdvanceEpisode(const RuleSpec& rule, RuleState& st, std::optional<double> value) {
+inline EpisodeChange AdvanceEpisode(const RuleSpec& rule, RuleState& st,
+                                    std::optional<double> value) {
   EpisodeChange c;
   if (!value) return c;
   if (st.active) {
@@ -188,14 +192,15 @@ inline EpisodeChange AdvanceEpisode(const RuleSpec& rule, RuleState& st, std::op
   return c;
 }
 
-
 // The severity of an open episode.
 inline Severity EpisodeSeverity(const RuleSpec& rule, const RuleState& state) {
   return state.escalated ? rule.escalate_severity : rule.severity;
 }
 
 // Rules whose signal comes from the step's forecast error (everything but stale).
-inline bool StepSignal(SignalKind k) { return k != SignalKind::kStale; }
+inline bool StepSignal(SignalKind k) {
+  return k != SignalKind::kStale;
+}
 
 const char* SignalKindName(SignalKind k);
 const char* DirectionName(Direction d);

@@ -22,7 +22,8 @@ std::uint16_t RecentCapacity(const PolicySpec& policy) {
 
 std::optional<double> RuleValue(const RuleSpec& rule, const StepResult& r, const SeriesState& s) {
   switch (rule.signal) {
-    case SignalKind::kTrigg: return r.trigg;
+    case SignalKind::kTrigg:
+      return r.trigg;
     case SignalKind::kCusum: {
       if (rule.periods == 0) return r.cusum;
       // the errors of the newest `periods` periods in MADs from before them: a shift does not
@@ -31,17 +32,20 @@ std::optional<double> RuleValue(const RuleSpec& rule, const StepResult& r, const
       if (!r.cusum || !s.recent.Sum(rule.periods, w) || !(w.mad_before > 0.0)) return std::nullopt;
       return w.error / w.mad_before;
     }
-    case SignalKind::kError: return r.spike;
+    case SignalKind::kError:
+      return r.spike;
     case SignalKind::kAlphaAtCap:
       if (!r.has_forecast) return std::nullopt;
       return r.at_cap ? 1.0 : 0.0;
     case SignalKind::kBias:
     case SignalKind::kAccuracy: {
       RecentWindow::Sums w;
-      if (!r.has_forecast || !s.recent.Sum(rule.periods, w) || !(w.actual > 0.0)) return std::nullopt;
+      if (!r.has_forecast || !s.recent.Sum(rule.periods, w) || !(w.actual > 0.0))
+        return std::nullopt;
       return (rule.signal == SignalKind::kBias ? w.error : w.abs_error) / w.actual;
     }
-    case SignalKind::kStale: return std::nullopt;
+    case SignalKind::kStale:
+      return std::nullopt;
   }
   return std::nullopt;
 }
@@ -68,8 +72,6 @@ SeriesState NewSeriesState(const PolicySpec& policy) {
 }
 
 namespace {
-
-
 
 void StartSeries(const PolicySpec& p, SeriesState& s) {
   if (p.start.kind == StartKind::kFitted) {
@@ -211,8 +213,8 @@ StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, doubl
     out.opened = out.cleared = out.episodes_opened = out.episodes_escalated =
         out.episodes_resolved = 0;
   };
-  out.opened = out.cleared = out.episodes_opened = out.episodes_escalated =
-      out.episodes_resolved = 0;
+  out.opened = out.cleared = out.episodes_opened = out.episodes_escalated = out.episodes_resolved =
+      0;
   if (s.seen && gap > 0) {
     // The series went `gap` periods past due: what the service's clock would have seen.
     CheckStale(p, s, gap, out);
@@ -248,11 +250,14 @@ StepStatus Step(const PolicySpec& p, SeriesState& s, PeriodOrdinal period, doubl
   return StepStatus::kOk;
 }
 
-bool MethodTakesNegative(Method m) { return !IsIntermittent(m) && m != Method::kSeasonalMul; }
+bool MethodTakesNegative(Method m) {
+  return !IsIntermittent(m) && m != Method::kSeasonalMul;
+}
 
 const char* ActualProblem(const PolicySpec& p, double y) {
   if (!std::isfinite(y)) return "the value is not a finite number";
-  if (std::fabs(y) > kMaxActual) return "the value is beyond +/-1e15, the largest actual forewarden takes";
+  if (std::fabs(y) > kMaxActual)
+    return "the value is beyond +/-1e15, the largest actual forewarden takes";
   if (y < 0 && !(p.accept_negative && MethodTakesNegative(p.method)))
     return MethodTakesNegative(p.method)
                ? "the value is negative and the policy refuses negative actuals "

@@ -207,19 +207,19 @@ std::uint16_t RecentCapacity(const PolicySpec& policy);
 
 struct SeriesState {
   bool seen = false;
-  bool started = false;         // past the start window
-  std::int32_t forecasts = 0;   // periods that had a forecast
+  bool started = false;        // past the start window
+  std::int32_t forecasts = 0;  // periods that had a forecast
   PeriodOrdinal last_period = 0;
-  long next_index = 0;          // index of the next period (0 = the first period)
-  WindowValues window;          // start-window actuals (empty once started)
-  double alpha = 0.0;           // in force; changes under adaptive policies
-  OwnConstants own;             // fitted constants; else the policy's apply (with `alpha`)
+  long next_index = 0;  // index of the next period (0 = the first period)
+  WindowValues window;  // start-window actuals (empty once started)
+  double alpha = 0.0;   // in force; changes under adaptive policies
+  OwnConstants own;     // fitted constants; else the policy's apply (with `alpha`)
   ModelState model;
   ErrorStats stats;
-  std::int32_t missing = 0;     // periods skipped under gap rule "skip"
+  std::int32_t missing = 0;  // periods skipped under gap rule "skip"
   RuleStates rules;
-  std::uint64_t active = 0;     // bit i: rule i holds
-  RecentWindow recent;          // bias/accuracy rules only
+  std::uint64_t active = 0;  // bit i: rule i holds
+  RecentWindow recent;       // bias/accuracy rules only
 };
 
 // The constants in force for a series: its own (fitted) or the policy's, with its alpha.
@@ -251,7 +251,7 @@ struct StepResult {
   std::uint64_t episodes_opened = 0;
   std::uint64_t episodes_escalated = 0;
   std::uint64_t episodes_resolved = 0;
-  long filled = 0;              // gap periods filled with zero or skipped
+  long filled = 0;  // gap periods filled with zero or skipped
 };
 
 // The value rule `rule` watches after a step (`state` is the series' state after it), or
@@ -265,10 +265,10 @@ void CheckStale(const PolicySpec& policy, SeriesState& state, long overdue, Step
 
 enum class StepStatus {
   kOk,
-  kNotLater,      // period is not after the series' last period
-  kGapTooLong,    // more than max_gap missing periods
-  kBadValue,      // NaN/Inf, beyond kMaxActual, or negative where the policy refuses it
-  kNonFinite,     // the model state stopped being finite (seasonal-mul with level <= 0)
+  kNotLater,    // period is not after the series' last period
+  kGapTooLong,  // more than max_gap missing periods
+  kBadValue,    // NaN/Inf, beyond kMaxActual, or negative where the policy refuses it
+  kNonFinite,   // the model state stopped being finite (seasonal-mul with level <= 0)
 };
 
 // Applies one actual. On any status but kOk the state is unchanged and `problem` (if given)

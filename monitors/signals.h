@@ -1,11 +1,10 @@
 // Error statistics, tracking signals and the Trigg-Leach adaptive smoothing constant.
 //
-//   e(t) = A(t) - F(t)                               actual minus forecast (NIST e-Handbook 6.4.3.2)
-//   E(t) = beta*e(t)   + (1-beta)*E(t-1)             smoothed error          (Trigg 1964)
-//   M(t) = beta*|e(t)| + (1-beta)*M(t-1)             smoothed absolute error, "MAD"
-//   C(t) = C(t-1) + e(t)                             cumulative error (Brown 1959)
-//   Trigg's signal  T = E/M  (always within [-1, 1] when |E0| <= M0)
-//   cumulative signal = C/M, in MADs
+//   e(t) = A(t) - F(t)                               actual minus forecast (NIST
+//   e-Handbook 6.4.3.2) E(t) = beta*e(t)   + (1-beta)*E(t-1)             smoothed error (Trigg
+//   1964) M(t) = beta*|e(t)| + (1-beta)*M(t-1)             smoothed absolute error, "MAD" C(t) =
+//   C(t-1) + e(t)                             cumulative error (Brown 1959) Trigg's signal  T = E/M
+//   (always within [-1, 1] when |E0| <= M0) cumulative signal = C/M, in MADs
 // Both signals are undefined while M is 0. E, M and C start at 0 (M at the policy's
 // initial_mad when one is given) and carry no bias correction.
 //

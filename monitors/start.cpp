@@ -5,10 +5,13 @@ namespace monitors {
 int StartWindow(Method method, const StartSpec& start) {
   if (IsIntermittent(method)) return 0;
   switch (start.kind) {
-    case StartKind::kFirstActual: return 1;
+    case StartKind::kFirstActual:
+      return 1;
     case StartKind::kMeanOfFirst:
-    case StartKind::kFitted: return start.count;
-    case StartKind::kExplicit: return 0;
+    case StartKind::kFitted:
+      return start.count;
+    case StartKind::kExplicit:
+      return 0;
   }
   return 0;
 }

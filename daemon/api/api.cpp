@@ -26,8 +26,7 @@ std::string UrlDecode(std::string_view text, bool query) {
   out.reserve(text.size());
   for (std::size_t i = 0; i < text.size(); ++i) {
     const char c = text[i];
-    if (c == '%' && i + 2 < text.size() &&
-        std::isxdigit(static_cast<unsigned char>(text[i + 1])) &&
+    if (c == '%' && i + 2 < text.size() && std::isxdigit(static_cast<unsigned char>(text[i + 1])) &&
         std::isxdigit(static_cast<unsigned char>(text[i + 2]))) {
       out += static_cast<char>(hex(text[i + 1]) * 16 + hex(text[i + 2]));
       i += 2;
@@ -60,13 +59,20 @@ HttpResponse Error(int status, const std::string& message) {
 // The one place where a domain error becomes an HTTP status.
 int HttpStatusOf(ErrorKind kind) {
   switch (kind) {
-    case ErrorKind::kInvalid: return 400;
-    case ErrorKind::kForbidden: return 403;
-    case ErrorKind::kNotFound: return 404;
-    case ErrorKind::kConflict: return 409;
-    case ErrorKind::kBusy: return 503;
-    case ErrorKind::kStoreFailed: return 503;
-    case ErrorKind::kInternal: return 500;
+    case ErrorKind::kInvalid:
+      return 400;
+    case ErrorKind::kForbidden:
+      return 403;
+    case ErrorKind::kNotFound:
+      return 404;
+    case ErrorKind::kConflict:
+      return 409;
+    case ErrorKind::kBusy:
+      return 503;
+    case ErrorKind::kStoreFailed:
+      return 503;
+    case ErrorKind::kInternal:
+      return 500;
   }
   return 500;
 }
@@ -126,23 +132,29 @@ class Body {
       if (required) return Status::Invalid(std::string("field ") + field + ": missing; " + what);
       return std::string();
     }
-    if (!j_[field].is_string()) return Status::Invalid(std::string("field ") + field + ": must be a string; " + what);
+    if (!j_[field].is_string())
+      return Status::Invalid(std::string("field ") + field + ": must be a string; " + what);
     std::string v = j_[field].get<std::string>();
-    if (required && v.empty()) return Status::Invalid(std::string("field ") + field + ": empty; " + what);
-    if (v.size() > 4096) return Status::Invalid(std::string("field ") + field + ": longer than 4096 bytes");
+    if (required && v.empty())
+      return Status::Invalid(std::string("field ") + field + ": empty; " + what);
+    if (v.size() > 4096)
+      return Status::Invalid(std::string("field ") + field + ": longer than 4096 bytes");
     return v;
   }
   // A finite number.
   Result<double> Number(const char* field, const char* what) const {
     if (!Has(field)) return Status::Invalid(std::string("field ") + field + ": missing; " + what);
     const json& v = j_[field];
-    if (!v.is_number()) return Status::Invalid(std::string("field ") + field + ": must be a number; " + what);
+    if (!v.is_number())
+      return Status::Invalid(std::string("field ") + field + ": must be a number; " + what);
     const double d = v.get<double>();
-    if (!std::isfinite(d)) return Status::Invalid(std::string("field ") + field + ": not a finite number");
+    if (!std::isfinite(d))
+      return Status::Invalid(std::string("field ") + field + ": not a finite number");
     return d;
   }
   // A whole number in [lo, hi] (1.5, "3" and values beyond the range are refused, not cut).
-  Result<std::int64_t> Whole(const char* field, std::int64_t lo, std::int64_t hi, const char* what) const {
+  Result<std::int64_t> Whole(const char* field, std::int64_t lo, std::int64_t hi,
+                             const char* what) const {
     const std::string range = std::to_string(lo) + ".." + std::to_string(hi);
     if (!Has(field)) return Status::Invalid(std::string("field ") + field + ": missing; " + what);
     const json& v = j_[field];
@@ -156,9 +168,11 @@ class Body {
       out = v.get<std::int64_t>();
       in = out >= lo && out <= hi;
     } else {
-      return Status::Invalid(std::string("field ") + field + ": must be a whole number (" + range + "); " + what);
+      return Status::Invalid(std::string("field ") + field + ": must be a whole number (" + range +
+                             "); " + what);
     }
-    if (!in) return Status::Invalid(std::string("field ") + field + ": outside " + range + "; " + what);
+    if (!in)
+      return Status::Invalid(std::string("field ") + field + ": outside " + range + "; " + what);
     return out;
   }
 
@@ -167,7 +181,9 @@ class Body {
   json j_;
 };
 
-std::string SeriesStatusText(const SeriesView& v) { return StatusName(StatusOf(*v.state, *v.spec, v.stale)); }
+std::string SeriesStatusText(const SeriesView& v) {
+  return StatusName(StatusOf(*v.state, *v.spec, v.stale));
+}
 
 std::optional<double> Signal(const SeriesView& v, bool trigg) {
   if (Warming(*v.state, *v.spec)) return std::nullopt;
@@ -190,9 +206,12 @@ json SeriesSummary(const SeriesView& v) {
   json out{{"key", v.key},
            {"policy", v.policy},
            {"status", SeriesStatusText(v)},
-           {"last_period", s.seen ? json(monitors::FormatPeriod(v.spec->period, s.last_period)) : json(nullptr)}};
+           {"last_period",
+            s.seen ? json(monitors::FormatPeriod(v.spec->period, s.last_period)) : json(nullptr)}};
   std::optional<double> f;
-  if (s.started) f = monitors::ForecastNext(spec.method, monitors::EffectiveConstants(spec, s), s.model, s.next_index);
+  if (s.started)
+    f = monitors::ForecastNext(spec.method, monitors::EffectiveConstants(spec, s), s.model,
+                               s.next_index);
   out["forecast"] = Number(f);
   out["trigg_signal"] = Number(Signal(v, true));
   out["cusum_signal"] = Number(Signal(v, false));
@@ -206,7 +225,8 @@ json SeriesDetail(const SeriesView& v) {
   const monitors::PolicySpec& spec = v.spec->spec;
   out["labels"] = json::parse(v.labels, nullptr, false);
   out["stale"] = v.stale;
-  out["next_period"] = s.seen ? json(monitors::FormatPeriod(v.spec->period, s.last_period + 1)) : json(nullptr);
+  out["next_period"] =
+      s.seen ? json(monitors::FormatPeriod(v.spec->period, s.last_period + 1)) : json(nullptr);
   std::optional<double> lower, upper;
   if (out["forecast"].is_number() && s.stats.mad > 0) {
     const double f = out["forecast"].get<double>();
@@ -348,7 +368,10 @@ bool Match(std::string_view pattern, std::string_view path, std::string& key, st
 
 Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
          Metrics* metrics)
-    : engine_(engine), metrics_(metrics), settings_(std::move(settings)), token_(std::move(token)) {}
+    : engine_(engine),
+      metrics_(metrics),
+      settings_(std::move(settings)),
+      token_(std::move(token)) {}
 
 void Api::Update(std::shared_ptr<const config::Settings> settings, std::string token) {
   std::lock_guard lock(mu_);
@@ -378,9 +401,10 @@ bool Api::Authorized(const HttpRequest& request) {
 void Api::Internal(Call& call, const char* what) {
   counters_.internal_errors.fetch_add(1);
   // The request line only: bodies and headers may hold secrets.
-  WriteLog(std::cerr, LogLine("error", "request failed", {{"method", call.request.method.substr(0, 16)},
-                                                          {"target", call.request.target.substr(0, 512)},
-                                                          {"what", std::string(what).substr(0, 200)}}));
+  WriteLog(std::cerr, LogLine("error", "request failed",
+                              {{"method", call.request.method.substr(0, 16)},
+                               {"target", call.request.target.substr(0, 512)},
+                               {"what", std::string(what).substr(0, 200)}}));
   call.Answer(Error(500, "the request failed inside the service; it was logged"));
 }
 
@@ -439,7 +463,9 @@ void Api::OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job)
 
 // ---- handlers --------------------------------------------------------------------------------
 
-void Api::Health(const std::shared_ptr<Call>& c) { c->Answer(Json(200, {{"alive", true}})); }
+void Api::Health(const std::shared_ptr<Call>& c) {
+  c->Answer(Json(200, {{"alive", true}}));
+}
 
 void Api::Ready(const std::shared_ptr<Call>& c) {
   const std::string failure = engine_.failure();
@@ -459,47 +485,47 @@ void Api::MetricsText(const std::shared_ptr<Call>& c) {
 
 void Api::Policies(const std::shared_ptr<Call>& c) {
   OnEngine(c, [this, c] {
-      json list = json::array();
-      std::unordered_map<std::string, long> counts;
-      engine_.ForEachSeries([&](const SeriesView& v) { ++counts[v.policy]; });
-      for (const config::Policy& p : engine_.settings().policies) {
-        json labels = json::object();
-        for (auto& [k, v] : p.match.labels) labels[k] = v;
-        json rules = json::array();
-        for (const auto& r : p.spec.rules) {
-          json rule{{"name", r.name},
-                    {"signal", monitors::SignalKindName(r.signal)},
-                    {"limit", r.limit},
-                    {"clear", r.clear},
-                    {"persistence", r.persistence},
-                    {"direction", monitors::DirectionName(r.direction)},
-                    {"severity", monitors::SeverityName(r.severity)},
-                    {"resolve_after", r.resolve_after}};
-          if (r.periods > 0) rule["periods"] = r.periods;
-          if (r.escalate_limit)
-            rule["escalate"] = {{"limit", *r.escalate_limit},
-                                {"severity", monitors::SeverityName(r.escalate_severity)}};
-          for (const auto& cal : p.calibrations)
-            if (cal.rule == r.name)
-              rule["calibration"] = {
-                  {"false_alert_every", cal.every},
-                  {"derived_limit", cal.limit},
-                  {"simulated_rate", cal.rate},
-                  {"expected_false_alerts_per_week", cal.per_series_week * static_cast<double>(counts[p.name])}};
-          rules.push_back(std::move(rule));
-        }
-        const std::int64_t last = engine_.LastArrival(p.name);
-        list.push_back({{"name", p.name},
-                        {"match", {{"key", p.match.key}, {"labels", labels}}},
-                        {"period", monitors::PeriodKindName(p.period)},
-                        {"method", monitors::MethodName(p.spec.method)},
-                        {"history", p.history},
-                        {"stale_after", p.stale_after},
-                        {"series", counts[p.name]},
-                        {"last_actual_at", last ? json(IsoTime(last)) : json(nullptr)},
-                        {"rules", rules}});
+    json list = json::array();
+    std::unordered_map<std::string, long> counts;
+    engine_.ForEachSeries([&](const SeriesView& v) { ++counts[v.policy]; });
+    for (const config::Policy& p : engine_.settings().policies) {
+      json labels = json::object();
+      for (auto& [k, v] : p.match.labels) labels[k] = v;
+      json rules = json::array();
+      for (const auto& r : p.spec.rules) {
+        json rule{{"name", r.name},
+                  {"signal", monitors::SignalKindName(r.signal)},
+                  {"limit", r.limit},
+                  {"clear", r.clear},
+                  {"persistence", r.persistence},
+                  {"direction", monitors::DirectionName(r.direction)},
+                  {"severity", monitors::SeverityName(r.severity)},
+                  {"resolve_after", r.resolve_after}};
+        if (r.periods > 0) rule["periods"] = r.periods;
+        if (r.escalate_limit)
+          rule["escalate"] = {{"limit", *r.escalate_limit},
+                              {"severity", monitors::SeverityName(r.escalate_severity)}};
+        for (const auto& cal : p.calibrations)
+          if (cal.rule == r.name)
+            rule["calibration"] = {{"false_alert_every", cal.every},
+                                   {"derived_limit", cal.limit},
+                                   {"simulated_rate", cal.rate},
+                                   {"expected_false_alerts_per_week",
+                                    cal.per_series_week * static_cast<double>(counts[p.name])}};
+        rules.push_back(std::move(rule));
       }
-      c->Answer(Json(200, {{"policies", list}}));
+      const std::int64_t last = engine_.LastArrival(p.name);
+      list.push_back({{"name", p.name},
+                      {"match", {{"key", p.match.key}, {"labels", labels}}},
+                      {"period", monitors::PeriodKindName(p.period)},
+                      {"method", monitors::MethodName(p.spec.method)},
+                      {"history", p.history},
+                      {"stale_after", p.stale_after},
+                      {"series", counts[p.name]},
+                      {"last_actual_at", last ? json(IsoTime(last)) : json(nullptr)},
+                      {"rules", rules}});
+    }
+    c->Answer(Json(200, {{"policies", list}}));
   });
 }
 
@@ -512,10 +538,12 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
   const std::string status = c->ParamOr("status");
   const std::string sort = c->ParamOr("sort", "key");
   const std::string label = c->ParamOr("label");
-  if (!status.empty() && status != "ok" && status != "alerting" && status != "stale" && status != "warming")
+  if (!status.empty() && status != "ok" && status != "alerting" && status != "stale" &&
+      status != "warming")
     return c->Fail(Status::Invalid("status must be ok, alerting, stale or warming"));
   if (sort != "key" && sort != "trigg" && sort != "cusum")
-    return c->Fail(Status::Invalid("sort must be key, trigg or cusum (largest absolute signal first)"));
+    return c->Fail(
+        Status::Invalid("sort must be key, trigg or cusum (largest absolute signal first)"));
   std::string label_name, label_value;
   if (!label.empty()) {
     const std::size_t colon = label.find(':');
@@ -556,14 +584,17 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
       if (sort != "key" && a.order != b.order) return a.order > b.order;
       return a.view.key < b.view.key;
     };
-    const std::size_t end = std::min(rows.size(), static_cast<std::size_t>(off) + static_cast<std::size_t>(lim));
+    const std::size_t end =
+        std::min(rows.size(), static_cast<std::size_t>(off) + static_cast<std::size_t>(lim));
     if (end < rows.size())
       std::partial_sort(rows.begin(), rows.begin() + static_cast<long>(end), rows.end(), before);
     else
       std::sort(rows.begin(), rows.end(), before);
     json page = json::array();
-    for (std::size_t i = static_cast<std::size_t>(off); i < end; ++i) page.push_back(SeriesSummary(rows[i].view));
-    c->Answer(Json(200, {{"total", rows.size()}, {"offset", off}, {"limit", lim}, {"series", page}}));
+    for (std::size_t i = static_cast<std::size_t>(off); i < end; ++i)
+      page.push_back(SeriesSummary(rows[i].view));
+    c->Answer(
+        Json(200, {{"total", rows.size()}, {"offset", off}, {"limit", lim}, {"series", page}}));
   });
 }
 
@@ -592,30 +623,30 @@ void Api::SeriesHistory(const std::shared_ptr<Call>& c) {
     std::vector<HistoryRow> rows;
     std::string error;
     if (!engine_.History(key, lo, hi, rows, error)) return c->Fail(Status::StoreFailed(error));
-      json out = json::array();
-      for (const HistoryRow& h : rows) {
-        const monitors::StepResult& r = h.result;
-        json row{{"period", monitors::FormatPeriod(policy.period, h.period)},
-                 {"actual", h.observed ? json(h.actual) : json(nullptr)},
-                 {"filled", !h.observed}};
-        if (h.observed) {
-          row["forecast"] = r.has_forecast ? json(r.forecast) : json(nullptr);
-          row["error"] = r.has_forecast ? json(r.error) : json(nullptr);
-          row["alpha"] = r.alpha;
-          row["smoothed_error"] = r.stats.smoothed_error;
-          row["mad"] = r.stats.mad;
-          row["cusum"] = r.stats.cusum;
-          row["trigg_signal"] = Number(r.trigg);
-          row["cusum_signal"] = Number(r.cusum);
-          row["lower"] = Number(r.lower);
-          row["upper"] = Number(r.upper);
-          json names = json::array();
-          for (std::size_t i = 0; i < policy.spec.rules.size(); ++i)
-            if (r.active >> i & 1) names.push_back(policy.spec.rules[i].name);
-          row["alerts"] = names;
-        }
-        out.push_back(std::move(row));
+    json out = json::array();
+    for (const HistoryRow& h : rows) {
+      const monitors::StepResult& r = h.result;
+      json row{{"period", monitors::FormatPeriod(policy.period, h.period)},
+               {"actual", h.observed ? json(h.actual) : json(nullptr)},
+               {"filled", !h.observed}};
+      if (h.observed) {
+        row["forecast"] = r.has_forecast ? json(r.forecast) : json(nullptr);
+        row["error"] = r.has_forecast ? json(r.error) : json(nullptr);
+        row["alpha"] = r.alpha;
+        row["smoothed_error"] = r.stats.smoothed_error;
+        row["mad"] = r.stats.mad;
+        row["cusum"] = r.stats.cusum;
+        row["trigg_signal"] = Number(r.trigg);
+        row["cusum_signal"] = Number(r.cusum);
+        row["lower"] = Number(r.lower);
+        row["upper"] = Number(r.upper);
+        json names = json::array();
+        for (std::size_t i = 0; i < policy.spec.rules.size(); ++i)
+          if (r.active >> i & 1) names.push_back(policy.spec.rules[i].name);
+        row["alerts"] = names;
       }
+      out.push_back(std::move(row));
+    }
     c->Answer(Json(200, {{"key", key}, {"policy", policy.name}, {"rows", out}}));
   });
 }
@@ -639,7 +670,8 @@ void Api::SeriesReset(const std::shared_ptr<Call>& c) {
     if (!n) return c->Fail(n.status());
     k = static_cast<int>(*n);
   }
-  Result<std::string> who = body->Text("who", true, "say who re-levels the series (recorded in the audit log)");
+  Result<std::string> who =
+      body->Text("who", true, "say who re-levels the series (recorded in the audit log)");
   if (!who) return c->Fail(who.status());
   Result<std::string> note = body->Text("note", false, "a note for the audit log");
   if (!note) return c->Fail(note.status());
@@ -666,7 +698,8 @@ void Api::AlertList(const std::shared_ptr<Call>& c) {
   f.state = c->ParamOr("state");
   if (!f.state.empty() && f.state != "open" && f.state != "acknowledged" && f.state != "snoozed" &&
       f.state != "resolved" && f.state != "unresolved")
-    return c->Fail(Status::Invalid("state must be open, acknowledged, snoozed, resolved or unresolved"));
+    return c->Fail(
+        Status::Invalid("state must be open, acknowledged, snoozed, resolved or unresolved"));
   f.severity = c->ParamOr("severity");
   if (!f.severity.empty() && !monitors::ParseSeverity(f.severity))
     return c->Fail(Status::Invalid("severity must be info, warning or critical"));
@@ -681,8 +714,9 @@ void Api::AlertList(const std::shared_ptr<Call>& c) {
   OnEngine(c, [this, c, f] {
     Result<AlertPage> page = ListAlerts(engine_.db(), f);
     if (!page) return c->Fail(page.status());
-    c->Answer(Json(200, {{"alerts", page->alerts},
-                         {"next_before", page->next_before ? json(*page->next_before) : json(nullptr)}}));
+    c->Answer(
+        Json(200, {{"alerts", page->alerts},
+                   {"next_before", page->next_before ? json(*page->next_before) : json(nullptr)}}));
   });
 }
 
@@ -714,7 +748,8 @@ void Api::AlertAct(const std::shared_ptr<Call>& c) {
   const std::string action = pattern.substr(pattern.rfind('/') + 1);
   Result<Body> body = Body::Parse(c->request.body, "{\"by\": \"name\", \"note\": \"...\"}");
   if (!body) return c->Fail(body.status());
-  Result<std::string> by = body->Text("by", true, "say who does this (kept in the alert's history)");
+  Result<std::string> by =
+      body->Text("by", true, "say who does this (kept in the alert's history)");
   if (!by) return c->Fail(by.status());
   Result<std::string> note = body->Text("note", false, "a note kept in the alert's history");
   if (!note) return c->Fail(note.status());
@@ -722,13 +757,15 @@ void Api::AlertAct(const std::shared_ptr<Call>& c) {
   std::optional<std::int64_t> until_ms;
   if (action == "snooze") {
     Result<std::string> u = body->Text("until", true,
-        "a period of the series' policy (2026-W50, 2026-12, 2026-12-05) or an ISO 8601 time (2026-12-05T10:00:00Z)");
+                                       "a period of the series' policy (2026-W50, 2026-12, "
+                                       "2026-12-05) or an ISO 8601 time (2026-12-05T10:00:00Z)");
     if (!u) return c->Fail(u.status());
     until = *u;
     std::int64_t ms = 0;
     if (until.find('T') != std::string::npos) {
       if (!ParseIsoTime(until, ms))
-        return c->Fail(Status::Invalid("field until: not an ISO 8601 time with Z or an offset: " + until));
+        return c->Fail(
+            Status::Invalid("field until: not an ISO 8601 time with Z or an offset: " + until));
       until_ms = ms;
     }
   }
@@ -744,7 +781,8 @@ void Api::AlertAct(const std::shared_ptr<Call>& c) {
         const config::Policy* policy = nullptr;
         for (const auto& p : engine_.settings().policies)
           if (p.name == *policy_name) policy = &p;
-        if (!policy) return Status::NotFound("no alert " + std::to_string(id) + " of a known policy");
+        if (!policy)
+          return Status::NotFound("no alert " + std::to_string(id) + " of a known policy");
         const monitors::PeriodParse parsed = monitors::ParsePeriod(policy->period, until);
         if (!parsed.ok()) return Status::Invalid("field until: " + parsed.error);
         until_period = parsed.ordinal;
@@ -806,7 +844,7 @@ void Api::Ingest(const std::shared_ptr<Call>& c) {
   if (batch.too_many_rows) {
     counters_.rejected_too_many_rows.fetch_add(1);
     return c->Answer(Error(413, "more than max_rows_per_batch (" +
-                                  std::to_string(s->server.max_rows_per_batch) + ") rows"));
+                                    std::to_string(s->server.max_rows_per_batch) + ") rows"));
   }
   auto problems_json = [](const std::vector<RowProblem>& problems, long count) {
     json list = json::array();
@@ -828,15 +866,17 @@ void Api::Ingest(const std::shared_ptr<Call>& c) {
     switch (r.status) {
       case IngestReply::Status::kOk:
         if (metrics_)
-          metrics_->ObserveBatch(rows, std::chrono::duration<double>(std::chrono::steady_clock::now() - received).count());
+          metrics_->ObserveBatch(
+              rows,
+              std::chrono::duration<double>(std::chrono::steady_clock::now() - received).count());
         return c->Answer(Json(200, {{"rows", r.counts.rows},
-                                  {"applied", r.counts.applied},
-                                  {"unchanged", r.counts.unchanged},
-                                  {"restated", r.counts.restated},
-                                  {"gap_periods_filled", r.counts.filled},
-                                  {"new_series", r.counts.new_series},
-                                  {"alerts_opened", r.counts.alerts_opened},
-                                  {"alerts_resolved", r.counts.alerts_resolved}}));
+                                    {"applied", r.counts.applied},
+                                    {"unchanged", r.counts.unchanged},
+                                    {"restated", r.counts.restated},
+                                    {"gap_periods_filled", r.counts.filled},
+                                    {"new_series", r.counts.new_series},
+                                    {"alerts_opened", r.counts.alerts_opened},
+                                    {"alerts_resolved", r.counts.alerts_resolved}}));
       case IngestReply::Status::kRejected:
         counters_.rejected_bad_input.fetch_add(1);
         return c->Answer(Json(400, problems_json(r.problems, r.problem_count)));

@@ -1,19 +1,17 @@
 // The HTTP API of `forewarden serve` (shapes documented in the README, "HTTP API"):
 //   POST /v1/actuals                      CSV or NDJSON batch, all or nothing
-//   GET  /v1/series                       list: ?policy= &label=name:value &status= &sort= &limit= &offset=
-//   GET  /v1/series/{key}                 next forecast, interval, statistics, signals, alerts
-//   GET  /v1/series/{key}/history         ?from=&to= (ISO dates): what a chart needs
-//   POST /v1/series/{key}/reset           {"to": "value"|"last"|"mean", "value", "k", "who", "note"}
-//   GET  /v1/policies                     with derived limits and expected false alerts
-//   GET  /v1/alerts                       ?state= &policy= &rule= &severity= &series= &group= &limit= &before=
-//   GET  /v1/alerts/{id}                  with its history and deliveries
-//   POST /v1/alerts/{id}/acknowledge      {"by", "note"}
-//   POST /v1/alerts/{id}/snooze           {"until": period or ISO time, "by", "note"}
-//   POST /v1/alerts/{id}/resolve          {"by", "note"}
-//   GET  /v1/deliveries                   ?state=dead|pending|delivered &sink=
-//   POST /v1/deliveries/retry             ?sink=  dead deliveries back to pending
-//   GET  /healthz, /readyz
-//   GET  /metrics                         Prometheus text exposition (metrics.h)
+//   GET  /v1/series                       list: ?policy= &label=name:value &status= &sort= &limit=
+//   &offset= GET  /v1/series/{key}                 next forecast, interval, statistics, signals,
+//   alerts GET  /v1/series/{key}/history         ?from=&to= (ISO dates): what a chart needs POST
+//   /v1/series/{key}/reset           {"to": "value"|"last"|"mean", "value", "k", "who", "note"} GET
+//   /v1/policies                     with derived limits and expected false alerts GET  /v1/alerts
+//   ?state= &policy= &rule= &severity= &series= &group= &limit= &before= GET  /v1/alerts/{id} with
+//   its history and deliveries POST /v1/alerts/{id}/acknowledge      {"by", "note"} POST
+//   /v1/alerts/{id}/snooze           {"until": period or ISO time, "by", "note"} POST
+//   /v1/alerts/{id}/resolve          {"by", "note"} GET  /v1/deliveries
+//   ?state=dead|pending|delivered &sink= POST /v1/deliveries/retry             ?sink=  dead
+//   deliveries back to pending GET  /healthz, /readyz GET  /metrics Prometheus text exposition
+//   (metrics.h)
 // Write endpoints need "Authorization: Bearer TOKEN" when a token is configured (compared in
 // constant time, never logged). Reads run as jobs on the engine thread. Every route is one row of
 // the table in api.cpp (method, pattern, whether it writes, handler); the route label of the
@@ -32,7 +30,6 @@
 #include "daemon/observe/metrics.h"
 
 namespace forewarden {
-
 
 class Api {
  public:

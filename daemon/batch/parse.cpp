@@ -30,8 +30,8 @@ void Add(ParsedBatch& b, long line, const char* field, std::string message) {
 bool CheckPeriod(ParsedBatch& b, long line, const std::string& text) {
   using monitors::PeriodKind;
   const PeriodKind kind = text.size() == 8 && (text[5] == 'W' || text[5] == 'w') ? PeriodKind::kWeek
-                          : text.size() == 7                                     ? PeriodKind::kMonth
-                                                                                 : PeriodKind::kDay;
+                          : text.size() == 7 ? PeriodKind::kMonth
+                                             : PeriodKind::kDay;
   const monitors::PeriodParse p = monitors::ParsePeriod(kind, text);
   if (p.ok()) return true;
   Add(b, line, "period", p.error);
@@ -39,7 +39,6 @@ bool CheckPeriod(ParsedBatch& b, long line, const std::string& text) {
 }
 
 }  // namespace
-
 
 // The per-row bounds; false (with a problem) when the row breaks one.
 bool WithinLimits(ParsedBatch& b, long line, const IngestRow& row, const IngestLimits& limits) {
@@ -58,19 +57,22 @@ bool WithinLimits(ParsedBatch& b, long line, const IngestRow& row, const IngestL
     }
   }
   if (row.series.size() > limits.max_key_bytes) {
-    Add(b, line, "series", "the series key is " + std::to_string(row.series.size()) +
-                               " bytes; server.max_key_bytes is " + std::to_string(limits.max_key_bytes));
+    Add(b, line, "series",
+        "the series key is " + std::to_string(row.series.size()) +
+            " bytes; server.max_key_bytes is " + std::to_string(limits.max_key_bytes));
     ok = false;
   }
   if (row.labels.size() > limits.max_labels) {
-    Add(b, line, "labels", std::to_string(row.labels.size()) + " labels; server.max_labels is " +
-                               std::to_string(limits.max_labels));
+    Add(b, line, "labels",
+        std::to_string(row.labels.size()) + " labels; server.max_labels is " +
+            std::to_string(limits.max_labels));
     ok = false;
   }
   for (const auto& [name, value] : row.labels)
     if (name.size() > limits.max_label_bytes || value.size() > limits.max_label_bytes) {
-      Add(b, line, "labels", "label '" + name.substr(0, 40) + "' is longer than server.max_label_bytes (" +
-                                 std::to_string(limits.max_label_bytes) + ")");
+      Add(b, line, "labels",
+          "label '" + name.substr(0, 40) + "' is longer than server.max_label_bytes (" +
+              std::to_string(limits.max_label_bytes) + ")");
       ok = false;
       break;
     }
@@ -83,15 +85,18 @@ ParsedBatch ParseCsvBatch(std::string_view body, const IngestLimits& limits) {
   CsvReader in(CsvReader::FromText{}, body);
   std::vector<std::string_view> fields;
   if (!in.Next(fields)) {
-    Add(b, 1, "header", in.ok() ? "the body is empty: expected a header series,period,value"
-                                : in.error());
+    Add(b, 1, "header",
+        in.ok() ? "the body is empty: expected a header series,period,value" : in.error());
     return b;
   }
   int c_series = -1, c_period = -1, c_value = -1;
   std::vector<std::string> names;
   for (std::size_t i = 0; i < fields.size(); ++i) {
     const std::string name(fields[i]);
-    int* slot = name == "series" ? &c_series : name == "period" ? &c_period : name == "value" ? &c_value : nullptr;
+    int* slot = name == "series"   ? &c_series
+                : name == "period" ? &c_period
+                : name == "value"  ? &c_value
+                                   : nullptr;
     if (slot) {
       if (*slot >= 0) Add(b, in.line(), "header", "column '" + name + "' appears twice");
       *slot = static_cast<int>(i);
@@ -100,8 +105,8 @@ ParsedBatch ParseCsvBatch(std::string_view body, const IngestLimits& limits) {
     }
     names.push_back(name);
   }
-  for (auto [col, name] : {std::pair{c_series, "series"}, std::pair{c_period, "period"},
-                           std::pair{c_value, "value"}})
+  for (auto [col, name] :
+       {std::pair{c_series, "series"}, std::pair{c_period, "period"}, std::pair{c_value, "value"}})
     if (col < 0)
       Add(b, in.line(), "header",
           std::string("the header has no '") + name + "' column; expected series,period,value");
@@ -114,7 +119,8 @@ ParsedBatch ParseCsvBatch(std::string_view body, const IngestLimits& limits) {
     }
     if (fields.size() != names.size()) {
       Add(b, line, "row",
-          "expected " + std::to_string(names.size()) + " fields, found " + std::to_string(fields.size()));
+          "expected " + std::to_string(names.size()) + " fields, found " +
+              std::to_string(fields.size()));
       continue;
     }
     IngestRow row;
@@ -186,7 +192,9 @@ ParsedBatch ParseNdjsonBatch(std::string_view body, const IngestLimits& limits) 
       }
       out = it->get<std::string>();
       if (out.empty()) {
-        Add(b, line, name, std::string("the ") + name + (std::string(name) == "series" ? " key" : "") + " is empty");
+        Add(b, line, name,
+            std::string("the ") + name + (std::string(name) == "series" ? " key" : "") +
+                " is empty");
         return false;
       }
       return true;

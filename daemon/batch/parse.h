@@ -18,8 +18,8 @@ struct ParsedBatch {
   std::vector<IngestRow> rows;
   std::vector<RowProblem> problems;  // the first 100
   long problem_count = 0;
-  long data_rows = 0;                // rows read (good and bad), for the metrics
-  bool too_many_rows = false;        // more than max_rows: parsing stopped
+  long data_rows = 0;          // rows read (good and bad), for the metrics
+  bool too_many_rows = false;  // more than max_rows: parsing stopped
 };
 
 // Bounds on what one row may bring (server settings); a row beyond them is a problem naming

@@ -1,18 +1,18 @@
 #include "daemon/cli/commands.h"
 
+#include <cstdio>
 #include <cstdlib>
 #include <iostream>
-#include <cstdio>
 #include <map>
 #include <sstream>
 
 #include "config/load.h"
-#include "daemon/store/backup.h"
 #include "daemon/cli/push.h"
 #include "daemon/cli/replay.h"
 #include "daemon/cli/serve.h"
 #include "daemon/cli/simulate.h"
 #include "daemon/cli/text_out.h"
+#include "daemon/store/backup.h"
 
 namespace forewarden {
 namespace {
@@ -86,10 +86,14 @@ bool LoadOrReport(const std::string& path, config::Settings& settings, std::ostr
 std::string DescribeStart(const monitors::PolicySpec& s) {
   if (monitors::IsIntermittent(s.method)) return "first demand";
   switch (s.start.kind) {
-    case monitors::StartKind::kFirstActual: return "first-actual";
-    case monitors::StartKind::kMeanOfFirst: return "mean of first " + std::to_string(s.start.count);
-    case monitors::StartKind::kFitted: return "fitted on first " + std::to_string(s.start.count);
-    case monitors::StartKind::kExplicit: return "explicit level " + FormatNumber(s.start.level);
+    case monitors::StartKind::kFirstActual:
+      return "first-actual";
+    case monitors::StartKind::kMeanOfFirst:
+      return "mean of first " + std::to_string(s.start.count);
+    case monitors::StartKind::kFitted:
+      return "fitted on first " + std::to_string(s.start.count);
+    case monitors::StartKind::kExplicit:
+      return "explicit level " + FormatNumber(s.start.level);
   }
   return "?";
 }
@@ -197,11 +201,11 @@ bool ToNumber(const std::string& text, double& out) {
 
 int Simulate(const std::vector<std::string>& args, std::ostream& err) {
   std::map<std::string, std::string> flags;
-  if (!ParseFlags(args, 1,
-                  {"series", "periods", "seed", "period", "start", "intermittent-share",
-                   "seasonal-share", "change-share", "level-min", "level-max", "noise", "output",
-                   "truth"},
-                  flags, err))
+  if (!ParseFlags(
+          args, 1,
+          {"series", "periods", "seed", "period", "start", "intermittent-share", "seasonal-share",
+           "change-share", "level-min", "level-max", "noise", "output", "truth"},
+          flags, err))
     return 2;
   SimulateOptions o;
   for (const auto& [name, value] : flags) {

@@ -54,7 +54,8 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
   const auto started = std::chrono::steady_clock::now();
   long batches = 0, rows = 0, line_no = 1;
   long totals[6] = {0, 0, 0, 0, 0, 0};
-  const char* names[6] = {"applied", "unchanged", "restated", "gap_periods_filled", "new_series", "alerts_opened"};
+  const char* names[6] = {"applied",    "unchanged",    "restated", "gap_periods_filled",
+                          "new_series", "alerts_opened"};
   std::string line;
   bool more = true;
   while (more) {
@@ -85,14 +86,16 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
       return 1;
     }
     nlohmann::json reply = nlohmann::json::parse(r.body, nullptr, false);
-    if (r.status == 400 && reply.is_object() && reply.contains("problems") && reply["problems"].is_array()) {
+    if (r.status == 400 && reply.is_object() && reply.contains("problems") &&
+        reply["problems"].is_array()) {
       err << "forewarden push: lines " << first_line << "-" << line_no << " of " << o.file
           << " were rejected; nothing of them was applied:\n";
       for (const auto& p : reply["problems"]) {
         const long batch_line = Field(p, "line", 0L);
         // line 1 of the batch is the header; its line 2 is first_line of the file
-        err << "  line " << (batch_line >= 2 ? first_line + batch_line - 2 : batch_line) << ", field "
-            << Field(p, "field", std::string()) << ": " << Field(p, "message", std::string()) << '\n';
+        err << "  line " << (batch_line >= 2 ? first_line + batch_line - 2 : batch_line)
+            << ", field " << Field(p, "field", std::string()) << ": "
+            << Field(p, "message", std::string()) << '\n';
       }
       err << "earlier batches (" << batches << ", " << rows << " rows) were applied\n";
       return 2;
@@ -110,7 +113,8 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
       std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   out << "pushed " << rows << " rows in " << batches << " batches to " << endpoint << " in "
       << static_cast<long>(seconds * 1000) / 1000.0 << " s";
-  if (seconds > 0) out << " (" << static_cast<long>(static_cast<double>(rows) / seconds) << " rows/s)";
+  if (seconds > 0)
+    out << " (" << static_cast<long>(static_cast<double>(rows) / seconds) << " rows/s)";
   out << '\n';
   for (int i = 0; i < 6; ++i) out << "  " << names[i] << ": " << totals[i] << '\n';
   return 0;

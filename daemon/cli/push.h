@@ -10,10 +10,10 @@ namespace forewarden {
 
 struct PushOptions {
   std::string file;
-  std::string url;          // base URL, e.g. http://127.0.0.1:8700
-  long batch = 5000;        // rows per request
-  std::string token_file;   // bearer token for the write endpoint
-  int max_attempts = 10;    // per batch, while the service answers 503
+  std::string url;         // base URL, e.g. http://127.0.0.1:8700
+  long batch = 5000;       // rows per request
+  std::string token_file;  // bearer token for the write endpoint
+  int max_attempts = 10;   // per batch, while the service answers 503
 };
 
 int RunPush(const PushOptions& options, std::ostream& out, std::ostream& err);

@@ -1,23 +1,23 @@
 #include "daemon/cli/replay.h"
 
+#include <algorithm>
 #include <atomic>
 #include <chrono>
-#include <condition_variable>
-#include <deque>
-#include <algorithm>
-#include <mutex>
-#include <thread>
 #include <cmath>
+#include <condition_variable>
 #include <cstdio>
 #include <cstring>
+#include <deque>
 #include <memory>
+#include <mutex>
 #include <sstream>
+#include <thread>
 #include <unordered_map>
 
-#include "daemon/common/csv.h"
-#include "daemon/common/key_text.h"
-#include "daemon/common/key_arena.h"
 #include "daemon/cli/text_out.h"
+#include "daemon/common/csv.h"
+#include "daemon/common/key_arena.h"
+#include "daemon/common/key_text.h"
 #include "monitors/series.h"
 
 namespace forewarden {
@@ -346,7 +346,10 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   std::vector<std::string> label_names(fields.size());  // other columns are labels
   for (std::size_t i = 0; i < fields.size(); ++i) {
     std::string_view f = fields[i];
-    int* slot = f == "series" ? &col_series : f == "period" ? &col_period : f == "value" ? &col_value : nullptr;
+    int* slot = f == "series"   ? &col_series
+                : f == "period" ? &col_period
+                : f == "value"  ? &col_value
+                                : nullptr;
     if (!slot) {
       if (f.empty()) {
         error = "line " + std::to_string(in.line()) + ": column " + std::to_string(i + 1) +
@@ -357,7 +360,8 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
       continue;
     }
     if (*slot >= 0) {
-      error = "line " + std::to_string(in.line()) + ": column '" + std::string(f) + "' appears twice";
+      error =
+          "line " + std::to_string(in.line()) + ": column '" + std::string(f) + "' appears twice";
       return 2;
     }
     *slot = static_cast<int>(i);
@@ -429,7 +433,8 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
           error = Where(line, "series") + "no policy matches the series '" + std::string(key) + "'";
           return 2;
         }
-        slots.push_back(SeriesSlot{keys.Add(key), policy, nullptr, monitors::NewSeriesState(policy->spec), {}});
+        slots.push_back(
+            SeriesSlot{keys.Add(key), policy, nullptr, monitors::NewSeriesState(policy->spec), {}});
         found = &slots.back();
         series.emplace(found->key, found);
       }
@@ -488,7 +493,8 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
         }
         if (r.episodes_opened & bit) {
           slot.open.push_back({i, episodes.size()});
-          episodes.push_back({slot.key, &policy, i, rules[i].severity, std::string(parsed.text, sizeof parsed.text), "", ""});
+          episodes.push_back({slot.key, &policy, i, rules[i].severity,
+                              std::string(parsed.text, sizeof parsed.text), "", ""});
           it = slot.open.end() - 1;
           if (slot.state.rules[i].escalated && slot.state.rules[i].open) {
             episodes.back().severity = rules[i].escalate_severity;
@@ -534,8 +540,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   for (const auto& [policy, counts] : opened_counts)
     for (std::size_t i = 0; i < counts.size(); ++i)
       summary.alerts_opened[policy->name + "/" + policy->spec.rules[i].name] += counts[i];
-  summary.seconds =
-      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  summary.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   return 0;
 }
 

@@ -1,5 +1,6 @@
 // `forewarden replay`: runs an actuals CSV through the monitoring engine and writes one output
-// row per input row (ARCHITECTURE.md, "The replay contract"). Memory grows with the number of series, not rows.
+// row per input row (ARCHITECTURE.md, "The replay contract"). Memory grows with the number of
+// series, not rows.
 #pragma once
 
 #include <iosfwd>

@@ -1,28 +1,28 @@
 #include "daemon/cli/serve.h"
 
+#include <sys/stat.h>
 #include <atomic>
 #include <chrono>
-#include <sys/stat.h>
 
 #include <condition_variable>
 #include <csignal>
-#include <thread>
 #include <cstdlib>
 #include <ctime>
 #include <fstream>
 #include <iostream>
 #include <mutex>
 #include <sstream>
+#include <thread>
 
 #include "config/load.h"
 #include "daemon/api/api.h"
-#include "daemon/feeds/drop_folder.h"
-#include "daemon/notify/delivery.h"
-#include "daemon/engine/engine.h"
 #include "daemon/common/log.h"
+#include "daemon/engine/engine.h"
+#include "daemon/feeds/drop_folder.h"
+#include "daemon/http/http_server.h"
+#include "daemon/notify/delivery.h"
 #include "daemon/observe/metrics.h"
 #include "daemon/observe/systemd_notify.h"
-#include "daemon/http/http_server.h"
 
 namespace forewarden {
 
@@ -30,10 +30,12 @@ bool SplitListen(const std::string& listen, std::string& host, std::uint16_t& po
   const std::size_t colon = listen.rfind(':');
   if (colon == std::string::npos || colon + 1 >= listen.size()) return false;
   host = listen.substr(0, colon);
-  if (host.size() >= 2 && host.front() == '[' && host.back() == ']') host = host.substr(1, host.size() - 2);
+  if (host.size() >= 2 && host.front() == '[' && host.back() == ']')
+    host = host.substr(1, host.size() - 2);
   if (host.empty()) return false;
   const std::string digits = listen.substr(colon + 1);
-  if (digits.find_first_not_of("0123456789") != std::string::npos || digits.size() > 5) return false;
+  if (digits.find_first_not_of("0123456789") != std::string::npos || digits.size() > 5)
+    return false;
   const long p = std::stol(digits);
   if (p > 65535) return false;
   port = static_cast<std::uint16_t>(p);
@@ -77,12 +79,14 @@ bool LoadToken(const config::Server& s, std::string& token, std::string& error) 
   return true;
 }
 
-bool LoadSettings(const ServeOptions& o, std::shared_ptr<const config::Settings>& out, std::string& error) {
+bool LoadSettings(const ServeOptions& o, std::shared_ptr<const config::Settings>& out,
+                  std::string& error) {
   config::LoadResult r = config::LoadSettingsFile(o.config);
   if (!r.ok()) {
     std::ostringstream msg;
     for (const auto& p : r.problems) msg << p.ToString() << "\n";
-    msg << r.problems.size() << (r.problems.size() == 1 ? " problem" : " problems") << " in " << o.config;
+    msg << r.problems.size() << (r.problems.size() == 1 ? " problem" : " problems") << " in "
+        << o.config;
     error = msg.str();
     return false;
   }
@@ -148,7 +152,9 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   http.max_connections = static_cast<std::size_t>(srv.max_connections);
   http.header_timeout = std::chrono::seconds(srv.header_timeout_seconds);
   http.idle_timeout = std::chrono::seconds(srv.idle_timeout_seconds);
-  HttpServer server(http, [&api](HttpRequest&& r, Respond respond) { api.Handle(std::move(r), std::move(respond)); });
+  HttpServer server(http, [&api](HttpRequest&& r, Respond respond) {
+    api.Handle(std::move(r), std::move(respond));
+  });
   if (!server.Start(error)) {
     err << "forewarden serve: " << error << '\n';
     engine.Stop();
@@ -157,12 +163,13 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   }
   std::unique_ptr<DropFolder> folder;
   if (!srv.folder.empty()) {
-    folder = std::make_unique<DropFolder>(engine, srv.folder,
-                                          IngestLimits{srv.max_rows_per_batch, static_cast<std::size_t>(srv.max_key_bytes),
-                                                       static_cast<std::size_t>(srv.max_labels),
-                                                       static_cast<std::size_t>(srv.max_label_bytes)},
-                                          std::chrono::milliseconds(srv.folder_poll_ms),
-                                          [&err](const std::string& line) { Log(err, line); });
+    folder = std::make_unique<DropFolder>(
+        engine, srv.folder,
+        IngestLimits{srv.max_rows_per_batch, static_cast<std::size_t>(srv.max_key_bytes),
+                     static_cast<std::size_t>(srv.max_labels),
+                     static_cast<std::size_t>(srv.max_label_bytes)},
+        std::chrono::milliseconds(srv.folder_poll_ms),
+        [&err](const std::string& line) { Log(err, line); });
     if (!folder->Start(error)) {
       err << "forewarden serve: " << error << '\n';
       server.Shutdown(std::chrono::seconds(0));
@@ -203,10 +210,12 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
           for (const auto& p : next->policies)
             if (p.name == v.policy) np = &p;
           if (!np)
-            problem = "policy '" + v.policy + "' holds series (e.g. '" + std::string(v.key) + "') but is gone";
+            problem = "policy '" + v.policy + "' holds series (e.g. '" + std::string(v.key) +
+                      "') but is gone";
           else if (np->period != v.spec->period || np->spec.method != v.spec->spec.method ||
                    np->spec.constants.season_length != v.spec->spec.constants.season_length)
-            problem = "policy '" + v.policy + "' changed its period, method or season length; "
+            problem = "policy '" + v.policy +
+                      "' changed its period, method or season length; "
                       "that needs a new policy name";
         });
         if (!problem.empty()) {
@@ -222,8 +231,10 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
         engine.Reload(next);
         api.Update(next, next_token);
         ++reloads_ok;
-        NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(next->policies.size()) + " policies");
-        Log(err, "reloaded " + o.config + " (" + std::to_string(next->policies.size()) + " policies)");
+        NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(next->policies.size()) +
+                             " policies");
+        Log(err,
+            "reloaded " + o.config + " (" + std::to_string(next->policies.size()) + " policies)");
       });
       if (!queued) {
         ++reloads_failed;
@@ -241,8 +252,9 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
                  std::to_string(grace.count()) + " s)");
     server.Shutdown(grace);
   });
-  out << "forewarden: listening on " << (host.find(':') != std::string::npos ? "[" + host + "]" : host)
-      << ":" << server.port() << std::endl;
+  out << "forewarden: listening on "
+      << (host.find(':') != std::string::npos ? "[" + host + "]" : host) << ":" << server.port()
+      << std::endl;
   if (engine.recovered_series())
     Log(err, "recovered " + std::to_string(engine.recovered_series()) +
                  " series by replaying actuals committed after their last saved state");
@@ -253,7 +265,8 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
     if (stat(srv.token_file.c_str(), &st) == 0 && (st.st_mode & (S_IROTH | S_IWOTH)))
       Log(err,
           "the token file " + srv.token_file +
-              " is readable or writable by other users; chmod o-rw it (the token itself is never logged)",
+              " is readable or writable by other users; chmod o-rw it (the token itself is never "
+              "logged)",
           "warn");
   }
   NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(settings->policies.size()) +

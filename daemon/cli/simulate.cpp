@@ -33,11 +33,16 @@ enum class Change { kNone, kStepUp, kStepDown, kTrendStart, kSpike };
 
 const char* ChangeName(Change c) {
   switch (c) {
-    case Change::kStepUp: return "step-up";
-    case Change::kStepDown: return "step-down";
-    case Change::kTrendStart: return "trend-start";
-    case Change::kSpike: return "spike";
-    case Change::kNone: break;
+    case Change::kStepUp:
+      return "step-up";
+    case Change::kStepDown:
+      return "step-down";
+    case Change::kTrendStart:
+      return "trend-start";
+    case Change::kSpike:
+      return "spike";
+    case Change::kNone:
+      break;
   }
   return "none";
 }
@@ -53,9 +58,12 @@ struct SimSeries {
 
 int SeasonPeriods(monitors::PeriodKind k) {
   switch (k) {
-    case monitors::PeriodKind::kDay: return 7;  // a weekly shopping cycle
-    case monitors::PeriodKind::kWeek: return 52;
-    case monitors::PeriodKind::kMonth: return 12;
+    case monitors::PeriodKind::kDay:
+      return 7;  // a weekly shopping cycle
+    case monitors::PeriodKind::kWeek:
+      return 52;
+    case monitors::PeriodKind::kMonth:
+      return 12;
   }
   return 52;
 }
@@ -93,13 +101,15 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
   for (long i = 0; i < o.series; ++i) {
     SimSeries& s = all[static_cast<std::size_t>(i)];
     const double u = rng.Uniform();
-    s.kind = u < o.intermittent_share                    ? Kind::kSlow
+    s.kind = u < o.intermittent_share                      ? Kind::kSlow
              : u < o.intermittent_share + o.seasonal_share ? Kind::kSeasonal
                                                            : Kind::kSteady;
     const char* region = kRegions[i % 4];
     const long store = 1 + (i / 4) % 250;
     const long item = i / 1000;  // unique with region and store
-    const long first_digit = s.kind == Kind::kSlow ? 9 : s.kind == Kind::kSeasonal ? 5 : 1 + (i / 4) % 4;
+    const long first_digit = s.kind == Kind::kSlow       ? 9
+                             : s.kind == Kind::kSeasonal ? 5
+                                                         : 1 + (i / 4) % 4;
     char key[96];
     std::snprintf(key, sizeof key, "%s/store-%03ld/sku-%ld%04ld", region, store, first_digit,
                   item % 10000);
@@ -115,11 +125,20 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
       s.change = static_cast<Change>(1 + rng.Below(4));
       s.change_at = o.periods / 4 + rng.Below(o.periods - o.periods / 4);
       switch (s.change) {
-        case Change::kStepUp: s.change_size = rng.Uniform(0.4, 0.8); break;
-        case Change::kStepDown: s.change_size = -rng.Uniform(0.3, 0.6); break;
-        case Change::kTrendStart: s.change_size = rng.Uniform(0.01, 0.03); break;
-        case Change::kSpike: s.change_size = rng.Uniform(2.0, 4.0); break;
-        case Change::kNone: break;
+        case Change::kStepUp:
+          s.change_size = rng.Uniform(0.4, 0.8);
+          break;
+        case Change::kStepDown:
+          s.change_size = -rng.Uniform(0.3, 0.6);
+          break;
+        case Change::kTrendStart:
+          s.change_size = rng.Uniform(0.01, 0.03);
+          break;
+        case Change::kSpike:
+          s.change_size = rng.Uniform(2.0, 4.0);
+          break;
+        case Change::kNone:
+          break;
       }
     }
   }
@@ -136,23 +155,27 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
     char period_text[16];
     for (long t = 0; t < o.periods; ++t) {
       const monitors::PeriodOrdinal p = first.ordinal + t;
-      const std::string_view pt(period_text, static_cast<std::size_t>(
-                                                 monitors::FormatPeriodTo(o.period, p, period_text)));
+      const std::string_view pt(period_text, static_cast<std::size_t>(monitors::FormatPeriodTo(
+                                                 o.period, p, period_text)));
       for (SimSeries& s : all) {
         double mean = s.level;
         if (s.kind == Kind::kSeasonal)
-          mean *= 1.0 + s.amplitude * std::sin(2.0 * M_PI * static_cast<double>(t) / season + s.phase);
+          mean *=
+              1.0 + s.amplitude * std::sin(2.0 * M_PI * static_cast<double>(t) / season + s.phase);
         if (s.change != Change::kNone && t >= s.change_at) {
           switch (s.change) {
             case Change::kStepUp:
-            case Change::kStepDown: mean *= 1.0 + s.change_size; break;
+            case Change::kStepDown:
+              mean *= 1.0 + s.change_size;
+              break;
             case Change::kTrendStart:
               mean *= 1.0 + s.change_size * static_cast<double>(t - s.change_at + 1);
               break;
             case Change::kSpike:
               if (t == s.change_at) mean *= 1.0 + s.change_size;
               break;
-            case Change::kNone: break;
+            case Change::kNone:
+              break;
           }
         }
         double v = mean + s.cv * mean * rng.Normal();
@@ -168,8 +191,10 @@ int RunSimulate(const SimulateOptions& o, std::string& error) {
     }
     ok = out.Flush();
   }
-  if (f != stdout) ok = std::fclose(f) == 0 && ok;
-  else ok = std::fflush(f) == 0 && ok;
+  if (f != stdout)
+    ok = std::fclose(f) == 0 && ok;
+  else
+    ok = std::fflush(f) == 0 && ok;
   if (!ok) {
     error = o.output + ": write failed: " + std::strerror(errno);
     return 1;

@@ -29,9 +29,9 @@ struct SimulateOptions {
   double change_share = 0.3;  // share of series with one injected change
   double level_min = 5.0;     // steady and seasonal levels: log-uniform in [min, max] units
   double level_max = 400.0;
-  double noise = 0.3;         // noise s.d. as a share of the level: uniform in [noise/3, noise]
-  std::string output = "-";   // actuals CSV: series,period,value (period-major order)
-  std::string truth;          // optional: series,period,kind of each injected change
+  double noise = 0.3;        // noise s.d. as a share of the level: uniform in [noise/3, noise]
+  std::string output = "-";  // actuals CSV: series,period,value (period-major order)
+  std::string truth;         // optional: series,period,kind of each injected change
 };
 
 // Returns 0 on success; otherwise `error` says what went wrong (1: I/O, 2: bad option).

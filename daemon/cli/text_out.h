@@ -62,7 +62,8 @@ class TextOut {
   void RepeatedNumber(double v) {
     if (!(v == last_value_) || last_len_ == 0) {
       char* at = last_text_;
-      last_len_ = static_cast<std::size_t>(std::to_chars(at, at + sizeof last_text_, v == 0.0 ? 0.0 : v).ptr - at);
+      last_len_ = static_cast<std::size_t>(
+          std::to_chars(at, at + sizeof last_text_, v == 0.0 ? 0.0 : v).ptr - at);
       last_value_ = v;
     }
     Put(std::string_view(last_text_, last_len_));

@@ -21,12 +21,12 @@ std::string IsoTime(std::int64_t ms) {
   return buf;
 }
 
-
 bool ParseIsoTime(const std::string& t, std::int64_t& ms) {
   int y = 0, mo = 0, d = 0, h = 0, mi = 0, sec = 0, n = 0;
   if (std::sscanf(t.c_str(), "%4d-%2d-%2dT%2d:%2d:%2d%n", &y, &mo, &d, &h, &mi, &sec, &n) != 6) {
     sec = 0;
-    if (std::sscanf(t.c_str(), "%4d-%2d-%2dT%2d:%2d%n", &y, &mo, &d, &h, &mi, &n) != 5) return false;
+    if (std::sscanf(t.c_str(), "%4d-%2d-%2dT%2d:%2d%n", &y, &mo, &d, &h, &mi, &n) != 5)
+      return false;
   }
   std::string rest = t.substr(static_cast<std::size_t>(n));
   if (!rest.empty() && rest[0] == '.') {  // fractions of a second are ignored

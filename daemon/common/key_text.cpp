@@ -17,9 +17,12 @@ std::string KeyTextProblem(std::string_view text) {
     // Length and the smallest code point of each form (overlong forms are invalid).
     std::size_t len = 0;
     unsigned cp = 0, min = 0;
-    if ((c & 0xE0) == 0xC0) len = 2, cp = c & 0x1F, min = 0x80;
-    else if ((c & 0xF0) == 0xE0) len = 3, cp = c & 0x0F, min = 0x800;
-    else if ((c & 0xF8) == 0xF0) len = 4, cp = c & 0x07, min = 0x10000;
+    if ((c & 0xE0) == 0xC0)
+      len = 2, cp = c & 0x1F, min = 0x80;
+    else if ((c & 0xF0) == 0xE0)
+      len = 3, cp = c & 0x0F, min = 0x800;
+    else if ((c & 0xF8) == 0xF0)
+      len = 4, cp = c & 0x07, min = 0x10000;
     bool ok = len > 0 && i + len <= n;
     for (std::size_t k = 1; ok && k < len; ++k) {
       ok = (s[i + k] & 0xC0) == 0x80;

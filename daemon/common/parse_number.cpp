@@ -20,7 +20,8 @@ Result<std::int64_t> ParseWholeNumber(std::string_view text, std::int64_t lo, st
   auto r = std::from_chars(text.data(), text.data() + text.size(), v);
   if (text.empty() || r.ptr != text.data() + text.size() ||
       (r.ec != std::errc() && r.ec != std::errc::result_out_of_range))
-    return Status::Invalid("'" + std::string(text.substr(0, 40)) + "' is not a whole number (" + range + ")");
+    return Status::Invalid("'" + std::string(text.substr(0, 40)) + "' is not a whole number (" +
+                           range + ")");
   if (r.ec == std::errc::result_out_of_range || v < lo || v > hi)
     return Status::Invalid(std::string(text.substr(0, 40)) + " is outside " + range);
   return v;

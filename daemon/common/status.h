@@ -24,7 +24,8 @@ enum class ErrorKind {
 class [[nodiscard]] Status {
  public:
   Status() = default;  // success
-  Status(ErrorKind kind, std::string message) : failed_(true), kind_(kind), message_(std::move(message)) {}
+  Status(ErrorKind kind, std::string message)
+      : failed_(true), kind_(kind), message_(std::move(message)) {}
 
   static Status Ok() { return {}; }
   static Status Invalid(std::string m) { return {ErrorKind::kInvalid, std::move(m)}; }
@@ -52,7 +53,7 @@ class [[nodiscard]] Status {
 template <typename T>
 class [[nodiscard]] Result {
  public:
-  Result(T value) : value_(std::move(value)) {}  // NOLINT(google-explicit-constructor)
+  Result(T value) : value_(std::move(value)) {}          // NOLINT(google-explicit-constructor)
   Result(Status status) : status_(std::move(status)) {}  // NOLINT(google-explicit-constructor)
 
   bool ok() const { return value_.has_value(); }
@@ -71,6 +72,8 @@ class [[nodiscard]] Result {
 };
 
 // The message of the engine's full queue, in one place.
-inline Status EngineBusy() { return Status::Busy("the engine is busy; retry later"); }
+inline Status EngineBusy() {
+  return Status::Busy("the engine is busy; retry later");
+}
 
 }  // namespace forewarden

@@ -24,7 +24,8 @@ bool Compatible(const monitors::SeriesState& s, const config::Policy& p) {
 // itself).
 void FitConstants(monitors::SeriesState& s, const config::Policy& p) {
   const monitors::PolicySpec& spec = p.spec;
-  const bool fitted = spec.start.kind == monitors::StartKind::kFitted && !monitors::IsIntermittent(spec.method);
+  const bool fitted =
+      spec.start.kind == monitors::StartKind::kFitted && !monitors::IsIntermittent(spec.method);
   if (!fitted) s.own.reset();
   if (!fitted && !spec.adaptive.enabled) s.alpha = spec.constants.alpha;
 }
@@ -62,7 +63,9 @@ Engine::Engine(std::shared_ptr<const config::Settings> settings, Clock clock)
       queue_depth_(static_cast<std::size_t>(settings_->server.queue_depth)),
       clock_(std::move(clock)) {}
 
-Engine::~Engine() { Stop(); }
+Engine::~Engine() {
+  Stop();
+}
 
 bool Engine::Start(std::string& error) {
   const config::Server& srv = settings_->server;
@@ -104,7 +107,8 @@ bool Engine::Start(std::string& error) {
     FitRules(s.state, *policy);
     FitConstants(s.state, *policy);
     s.retained = static_cast<std::int32_t>(row.retained);
-    const bool behind = row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
+    const bool behind =
+        row.retained > 0 && (!s.state.seen || row.newest_period > s.state.last_period);
     series_.push_back(std::move(s));
     if (behind) stale_states.push_back(series_.size() - 1);
     index_.Insert(series_.back().key, series_.size() - 1);
@@ -134,7 +138,8 @@ bool Engine::Start(std::string& error) {
       }
       monitors::StepResult r;
       for (const StoredActual& a : newer)
-        if (monitors::Step(s.policy->spec, s.state, a.period, a.value, r) != monitors::StepStatus::kOk) {
+        if (monitors::Step(s.policy->spec, s.state, a.period, a.value, r) !=
+            monitors::StepStatus::kOk) {
           error = "series '" + std::string(s.key) + "': its stored actuals cannot be replayed";
           return false;
         }
@@ -176,14 +181,16 @@ bool Engine::OpenAlerts(std::string& error) {
   }
   alerts_.Configure(*settings_);
   alerts_.Index(
-      [&](long index, const std::string& rule) -> std::optional<std::pair<std::size_t, std::size_t>> {
+      [&](long index,
+          const std::string& rule) -> std::optional<std::pair<std::size_t, std::size_t>> {
         const auto& rules = series_[static_cast<std::size_t>(index)].policy->spec.rules;
         for (std::size_t r = 0; r < rules.size(); ++r)
           if (rules[r].name == rule) return std::pair{static_cast<std::size_t>(index), r};
         return std::nullopt;
       },
       [&](long index, const std::string& text) -> std::int64_t {
-        const auto parsed = monitors::ParsePeriod(series_[static_cast<std::size_t>(index)].policy->period, text);
+        const auto parsed =
+            monitors::ParsePeriod(series_[static_cast<std::size_t>(index)].policy->period, text);
         return parsed.ok() ? parsed.ordinal : INT64_MAX;
       });
   return true;
@@ -266,7 +273,8 @@ void Engine::Housekeeping() {
   const std::int64_t today = Today();
   for (const config::Policy& p : settings_->policies)
     for (const monitors::RuleSpec& r : p.spec.rules)
-      if (r.signal == monitors::SignalKind::kStale) current[&p] = monitors::PeriodOfDay(p.period, today);
+      if (r.signal == monitors::SignalKind::kStale)
+        current[&p] = monitors::PeriodOfDay(p.period, today);
   if (current.empty() && !alerts_.AnySnoozed()) return;  // nothing to check: no transaction
   std::vector<AlertChange> changes;
   struct Saved {
@@ -292,9 +300,10 @@ void Engine::Housekeeping() {
   }
   const std::size_t mark = alerts_.Mark();
   AlertCounts counts;
-  const bool ok = store_.Begin() && alerts_.Apply(changes, [this](std::size_t i) { return Info(i); }, now, counts) &&
-                  alerts_.WakeSnoozed(now, counts) &&
-                  store_.Commit();
+  const bool ok = store_.Begin() &&
+                  alerts_.Apply(
+                      changes, [this](std::size_t i) { return Info(i); }, now, counts) &&
+                  alerts_.WakeSnoozed(now, counts) && store_.Commit();
   if (!ok) {
     Fail("store: alerts: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
     store_.Rollback();
@@ -426,7 +435,8 @@ void Engine::Run() {
     std::vector<Job> group;
     {
       std::unique_lock lock(mu_);
-      const auto flush_every = std::chrono::seconds(std::max<long>(1, settings_->server.state_flush_seconds));
+      const auto flush_every =
+          std::chrono::seconds(std::max<long>(1, settings_->server.state_flush_seconds));
       if (!wake_.wait_for(lock, flush_every, [this] { return stopping_ || !queue_.empty(); })) {
         lock.unlock();
         Housekeeping();
@@ -473,14 +483,15 @@ void Engine::Run() {
     } else {
       for (Pending& p : pending) ApplyBatch(p);
       const config::Server& srv = settings_->server;
-      const bool flush = failure().empty() &&
-                         (static_cast<long>(dirty_count_) >= srv.state_flush_series ||
-                          clock_() - last_flush_ms_ >= srv.state_flush_seconds * 1000);
+      const bool flush =
+          failure().empty() && (static_cast<long>(dirty_count_) >= srv.state_flush_series ||
+                                clock_() - last_flush_ms_ >= srv.state_flush_seconds * 1000);
       if (flush) FlushDirty();
       const auto commit_start = std::chrono::steady_clock::now();
       if (failure().empty() && !store_.Commit()) Fail("store: commit: " + store_.error());
       if (on_commit_ && failure().empty())
-        on_commit_(std::chrono::duration<double>(std::chrono::steady_clock::now() - commit_start).count());
+        on_commit_(
+            std::chrono::duration<double>(std::chrono::steady_clock::now() - commit_start).count());
       if (flush && failure().empty()) ClearDirty();
     }
     const std::string failed = failure();
@@ -501,7 +512,8 @@ void Engine::Run() {
       for (const Pending& p : pending) {
         if (p.reply.status == IngestReply::Status::kOk) {
           for (const config::Policy* policy : p.policies) last_arrival_[policy->name] = now;
-          for (const auto& [policy, sum] : p.bias) bias_[policy].Add(sum.period, sum.errors, sum.actuals);
+          for (const auto& [policy, sum] : p.bias)
+            bias_[policy].Add(sum.period, sum.errors, sum.actuals);
           committed.opened += p.alert_counts.opened;
           committed.escalated += p.alert_counts.escalated;
           committed.resolved += p.alert_counts.resolved;
@@ -636,7 +648,8 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     if (static_cast<long>(series_.size()) >= settings_->server.max_series) {
       counters_.series_refused.fetch_add(1);
       return problem("series", "a new series, but the service holds server.max_series (" +
-                                   std::to_string(settings_->server.max_series) + ") series already");
+                                   std::to_string(settings_->server.max_series) +
+                                   ") series already");
     }
     Series s;
     s.key = keys_.Add(row.series);
@@ -666,7 +679,8 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   const config::Policy& policy = *s.policy;
   const monitors::PeriodParse period = monitors::ParsePeriod(policy.period, row.period);
   if (!period.ok()) return problem("period", period.error);
-  if (const char* why = monitors::ActualProblem(policy.spec, row.value)) return problem("value", why);
+  if (const char* why = monitors::ActualProblem(policy.spec, row.value))
+    return problem("value", why);
   // an actual for the policy arrived (new, duplicate or restated): the feed is alive
   if (std::find(p.policies.begin(), p.policies.end(), &policy) == p.policies.end())
     p.policies.push_back(&policy);
@@ -684,7 +698,8 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     p.reply.counts.filled += r.filled;
     CollectChanges(index, r, period.ordinal, p.alert_changes);
     if (r.has_forecast) {
-      auto it = std::find_if(p.bias.begin(), p.bias.end(), [&](const auto& b) { return b.first == &policy; });
+      auto it = std::find_if(p.bias.begin(), p.bias.end(),
+                             [&](const auto& b) { return b.first == &policy; });
       if (it == p.bias.end()) it = p.bias.insert(p.bias.end(), {&policy, BiasSum{}});
       it->second.Add(period.ordinal, r.error, row.value);
     }
@@ -702,12 +717,12 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   bool any = false;
   if (!store_.OldestActual(s.id, any, oldest)) return store_error();
   if (!any || period.ordinal < oldest)
-    return problem("period", "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
-                                 " is older than the retained history of '" + std::string(s.key) +
-                                 "' (oldest kept: " +
-                                 (any ? monitors::FormatPeriod(policy.period, oldest)
-                                             : std::string("none")) +
-                                 "); raise the policy's history to restate it");
+    return problem("period",
+                   "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
+                       " is older than the retained history of '" + std::string(s.key) +
+                       "' (oldest kept: " +
+                       (any ? monitors::FormatPeriod(policy.period, oldest) : std::string("none")) +
+                       "); raise the policy's history to restate it");
   if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
   if (!found) ++s.retained;
   monitors::SeriesState recomputed;
@@ -734,7 +749,8 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
   const std::size_t first_change = p.alert_changes.size();
   CollectChanges(index, diff, s.state.last_period, p.alert_changes);
   for (std::size_t k = first_change; k < p.alert_changes.size(); ++k)
-    if (p.alert_changes[k].kind == AlertChange::Kind::kResolved) p.alert_changes[k].reason = "restated";
+    if (p.alert_changes[k].kind == AlertChange::Kind::kResolved)
+      p.alert_changes[k].reason = "restated";
   ++p.reply.counts.restated;
   return true;
 }
@@ -743,8 +759,7 @@ bool Engine::ReplayCheckpoint(const Series& s, std::size_t leave_last,
                               std::vector<StoredActual>& actuals, monitors::SeriesState& state,
                               std::vector<HistoryRow>* rows) {
   std::vector<Adjustment> adjustments;
-  if (!store_.LoadCheckpoint(s.id, state) ||
-      !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) ||
+  if (!store_.LoadCheckpoint(s.id, state) || !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) ||
       !store_.Adjustments(s.id, adjustments)) {
     Fail("store: " + store_.error());
     return false;
@@ -787,7 +802,8 @@ bool Engine::Trim(Series& s, bool& trimmed) {
   std::vector<StoredActual> actuals;
   monitors::SeriesState checkpoint;
   if (!ReplayCheckpoint(s, static_cast<std::size_t>(keep), actuals, checkpoint, nullptr)) {
-    Fail("series '" + std::string(s.key) + "': its retained actuals cannot be replayed into the checkpoint");
+    Fail("series '" + std::string(s.key) +
+         "': its retained actuals cannot be replayed into the checkpoint");
     return false;
   }
   const std::size_t first_kept = actuals.size() - static_cast<std::size_t>(keep);
@@ -811,8 +827,8 @@ bool Engine::IsStale(const Series& s, std::int64_t today) const {
 }
 
 SeriesView Engine::View(const Series& s, std::int64_t today) const {
-  return SeriesView{s.key, s.policy->name, label_sets_[s.labels], &s.state, s.policy,
-                    IsStale(s, today)};
+  return SeriesView{s.key,    s.policy->name, label_sets_[s.labels],
+                    &s.state, s.policy,       IsStale(s, today)};
 }
 
 void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {
@@ -879,8 +895,8 @@ Result<double> Engine::Reset(const std::string& key, const std::string& how, dou
     return Status::Invalid("field value: the new level must be a finite number within +/-" +
                            std::to_string(monitors::kMaxActual));
   const Adjustment adj{s.state.last_period, new_level};
-  const std::string detail = "level " + std::to_string(new_level) + " (" + how + ")" +
-                             (note.empty() ? "" : ": " + note);
+  const std::string detail =
+      "level " + std::to_string(new_level) + " (" + how + ")" + (note.empty() ? "" : ": " + note);
   if (!store_.Begin() || !store_.PutAdjustment(s.id, adj) ||
       !store_.Audit(clock_(), who, "reset", std::string(s.key), detail)) {
     Fail("store: " + store_.error());
@@ -891,8 +907,9 @@ Result<double> Engine::Reset(const std::string& key, const std::string& how, dou
   Relevel(next, new_level);
   const std::size_t mark = alerts_.Mark();
   AlertCounts counts;
-  if (!alerts_.ResolveSeries(static_cast<std::size_t>(pos), "reset", who,
-                             [this](std::size_t i) { return Info(i); }, clock_(), counts) ||
+  if (!alerts_.ResolveSeries(
+          static_cast<std::size_t>(pos), "reset", who, [this](std::size_t i) { return Info(i); },
+          clock_(), counts) ||
       !store_.UpdateState(s.id, next) || !store_.Commit()) {
     Fail("store: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
     store_.Rollback();
@@ -973,12 +990,15 @@ EngineSnapshot Engine::Snapshot() const {
   }
   for (std::size_t p = 0; p < out.policies.size(); ++p) {
     PolicyHealth& h = out.policies[p];
-    for (std::size_t k = 1; k < h.trigg_at_most.size(); ++k) h.trigg_at_most[k] += h.trigg_at_most[k - 1];
-    for (std::size_t k = 1; k < h.cusum_at_most.size(); ++k) h.cusum_at_most[k] += h.cusum_at_most[k - 1];
+    for (std::size_t k = 1; k < h.trigg_at_most.size(); ++k)
+      h.trigg_at_most[k] += h.trigg_at_most[k - 1];
+    for (std::size_t k = 1; k < h.cusum_at_most.size(); ++k)
+      h.cusum_at_most[k] += h.cusum_at_most[k - 1];
     std::sort_heap(top[p].begin(), top[p].end(), smaller);
     h.top = std::move(top[p]);
   }
-  alerts_.Tally([&](std::size_t index, std::size_t rule, const char* state, monitors::Severity severity) {
+  alerts_.Tally([&](std::size_t index, std::size_t rule, const char* state,
+                    monitors::Severity severity) {
     const Series& s = series_[index];
     const std::string& rule_name = s.policy->spec.rules[rule].name;
     for (AlertTally& t : out.alerts)

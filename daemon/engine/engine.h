@@ -30,10 +30,10 @@
 
 #include "config/settings.h"
 #include "daemon/batch/rows.h"
-#include "daemon/store/alert_book.h"
 #include "daemon/common/chunked_vector.h"
 #include "daemon/common/key_arena.h"
 #include "daemon/engine/series_index.h"
+#include "daemon/store/alert_book.h"
 #include "daemon/store/store.h"
 
 namespace forewarden {
@@ -43,7 +43,7 @@ struct IngestCounts {
   long applied = 0;
   long unchanged = 0;
   long restated = 0;
-  long filled = 0;           // gap periods filled with zero or skipped
+  long filled = 0;  // gap periods filled with zero or skipped
   long new_series = 0;
   long alerts_opened = 0;    // alert episodes opened
   long alerts_resolved = 0;  // alert episodes resolved
@@ -55,7 +55,7 @@ struct IngestReply {
   IngestCounts counts;
   std::vector<RowProblem> problems;  // kRejected: the first 100
   long problem_count = 0;
-  std::string error;                 // kUnavailable: why
+  std::string error;  // kUnavailable: why
 };
 
 // One series as the read API sees it.
@@ -189,7 +189,7 @@ class Engine {
  private:
   struct Series {
     std::int64_t id = 0;
-    std::string_view key;  // in keys_
+    std::string_view key;      // in keys_
     std::uint32_t labels = 0;  // index into label_sets_ (series share identical label sets)
     std::int32_t retained = 0;
     const config::Policy* policy = nullptr;
@@ -222,7 +222,7 @@ class Engine {
     IngestReply reply;
     std::vector<Undo> undo;
     std::size_t series_before = 0;
-    std::unordered_set<std::size_t> must_write;  // restated series: state written with the batch
+    std::unordered_set<std::size_t> must_write;   // restated series: state written with the batch
     std::vector<const config::Policy*> policies;  // that received new actuals (a few)
     std::vector<AlertChange> alert_changes;
     std::size_t alert_mark = 0;
@@ -260,7 +260,7 @@ class Engine {
                         monitors::SeriesState& state, std::vector<HistoryRow>* rows);
 
   std::shared_ptr<const config::Settings> settings_;  // engine thread only after Start
-  const std::size_t queue_depth_;                       // read by Submit/Post on any thread
+  const std::size_t queue_depth_;                     // read by Submit/Post on any thread
   Clock clock_;
   Store store_;
   struct KeyOf {
@@ -274,8 +274,8 @@ class Engine {
   ChunkedVector<Series> series_;
   SeriesIndex<KeyOf> index_{KeyOf{&series_}};
   std::unordered_map<std::string, std::int64_t> last_arrival_;
-  std::vector<char> dirty_;               // per series: state not yet written
-  std::vector<char> touched_;             // per series: changed by the batch being applied
+  std::vector<char> dirty_;    // per series: state not yet written
+  std::vector<char> touched_;  // per series: changed by the batch being applied
   std::size_t dirty_count_ = 0;
   std::int64_t last_flush_ms_ = 0;
   long recovered_ = 0;

@@ -50,7 +50,8 @@ class SeriesIndex {
     const long found = Find(key);
     if (found < 0) return;
     std::size_t i = Hash(key) & mask_;
-    while (static_cast<std::uint32_t>(slots_[i]) - 1 != static_cast<std::size_t>(found)) i = (i + 1) & mask_;
+    while (static_cast<std::uint32_t>(slots_[i]) - 1 != static_cast<std::size_t>(found))
+      i = (i + 1) & mask_;
     for (std::size_t j = (i + 1) & mask_;; j = (j + 1) & mask_) {
       if (slots_[j] == 0) break;
       const std::size_t home = Hash(key_at_(static_cast<std::uint32_t>(slots_[j]) - 1)) & mask_;

@@ -22,7 +22,9 @@ DropFolder::DropFolder(Engine& engine, std::string incoming, IngestLimits limits
       poll_(poll),
       log_(std::move(log)) {}
 
-DropFolder::~DropFolder() { Stop(); }
+DropFolder::~DropFolder() {
+  Stop();
+}
 
 bool DropFolder::Start(std::string& error) {
   std::error_code ec;
@@ -81,7 +83,8 @@ void DropFolder::ProcessFile(const std::string& name) {
   std::ostringstream text;
   text << in.rdbuf();
   ParsedBatch batch = ParseCsvBatch(text.str(), limits_);
-  auto reject = [&](const std::vector<RowProblem>& problems, long count, const std::string& headline) {
+  auto reject = [&](const std::vector<RowProblem>& problems, long count,
+                    const std::string& headline) {
     std::ofstream report(fs::path(rejected_) / (name + ".problems"), std::ios::trunc);
     report << name << ": " << headline << "; nothing was applied\n";
     for (const RowProblem& p : problems)
@@ -105,7 +108,8 @@ void DropFolder::ProcessFile(const std::string& name) {
   const long rows = static_cast<long>(batch.rows.size());
   std::promise<IngestReply> promise;
   auto future = promise.get_future();
-  if (!engine_.Submit(std::move(batch.rows), [&promise](IngestReply r) { promise.set_value(std::move(r)); })) {
+  if (!engine_.Submit(std::move(batch.rows),
+                      [&promise](IngestReply r) { promise.set_value(std::move(r)); })) {
     counters_.retried.fetch_add(1);
     return;  // queue full or stopping: next scan
   }
@@ -122,7 +126,8 @@ void DropFolder::ProcessFile(const std::string& name) {
       return;
     }
     case IngestReply::Status::kRejected:
-      reject(reply.problems, reply.problem_count, std::to_string(reply.problem_count) + " problems");
+      reject(reply.problems, reply.problem_count,
+             std::to_string(reply.problem_count) + " problems");
       return;
     case IngestReply::Status::kUnavailable:
       counters_.retried.fetch_add(1);

@@ -15,8 +15,8 @@
 #include <string>
 #include <thread>
 
-#include "daemon/engine/engine.h"
 #include "daemon/batch/parse.h"
+#include "daemon/engine/engine.h"
 
 namespace forewarden {
 
@@ -29,8 +29,8 @@ struct DropFolderCounters {
 class DropFolder {
  public:
   using Log = std::function<void(const std::string&)>;
-  DropFolder(Engine& engine, std::string incoming, IngestLimits limits, std::chrono::milliseconds poll,
-             Log log);
+  DropFolder(Engine& engine, std::string incoming, IngestLimits limits,
+             std::chrono::milliseconds poll, Log log);
   ~DropFolder();
   // Creates incoming/, done/ and rejected/ and starts polling; false with a reason.
   bool Start(std::string& error);

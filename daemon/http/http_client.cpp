@@ -12,8 +12,8 @@ namespace beast = boost::beast;
 namespace http = beast::http;
 
 HttpResult HttpPost(const std::string& url, const std::string& content_type,
-                    const std::string& body, const std::string& token,
-                    std::chrono::seconds timeout, const HttpHeaders& headers) {
+                    const std::string& body, const std::string& token, std::chrono::seconds timeout,
+                    const HttpHeaders& headers) {
   HttpResult result;
   const std::string scheme = "http://";
   if (url.rfind(scheme, 0) != 0) {

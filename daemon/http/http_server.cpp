@@ -177,31 +177,33 @@ struct HttpServer::Impl::Session : std::enable_shared_from_this<Session> {
 };
 
 void HttpServer::Impl::Accept() {
-  acceptor.async_accept(net::make_strand(ioc), [self = shared_from_this()](beast::error_code ec,
-                                                                           tcp::socket socket) {
-    if (ec || self->stopping) return;  // closed
-    if (static_cast<std::size_t>(self->counters.connections.load()) >= self->options.max_connections) {
-      self->counters.too_many_connections.fetch_add(1);
-      // (the length is computed: a hand-written 46 for this 45-byte body once cut clients' reads)
-      static const std::string kBody = "{\"error\":\"too many connections; retry later\"}\n";
-      static const std::string kBusy =
-          "HTTP/1.1 503 Service Unavailable\r\nContent-Type: application/json\r\n"
-          "Retry-After: 1\r\nConnection: close\r\nContent-Length: " +
-          std::to_string(kBody.size()) + "\r\n\r\n" + kBody;
-      beast::error_code ignored;
-      net::write(socket, net::buffer(kBusy), ignored);
-      socket.shutdown(tcp::socket::shutdown_both, ignored);
-    } else {
-      auto session = std::make_shared<Session>(self, std::move(socket));
-      {
-        std::lock_guard lock(self->sessions_mu);
-        self->sessions.push_front(session);
-        session->registration = self->sessions.begin();
-      }
-      net::dispatch(session->stream.get_executor(), [session] { session->Read(); });
-    }
-    self->Accept();
-  });
+  acceptor.async_accept(
+      net::make_strand(ioc), [self = shared_from_this()](beast::error_code ec, tcp::socket socket) {
+        if (ec || self->stopping) return;  // closed
+        if (static_cast<std::size_t>(self->counters.connections.load()) >=
+            self->options.max_connections) {
+          self->counters.too_many_connections.fetch_add(1);
+          // (the length is computed: a hand-written 46 for this 45-byte body once cut clients'
+          // reads)
+          static const std::string kBody = "{\"error\":\"too many connections; retry later\"}\n";
+          static const std::string kBusy =
+              "HTTP/1.1 503 Service Unavailable\r\nContent-Type: application/json\r\n"
+              "Retry-After: 1\r\nConnection: close\r\nContent-Length: " +
+              std::to_string(kBody.size()) + "\r\n\r\n" + kBody;
+          beast::error_code ignored;
+          net::write(socket, net::buffer(kBusy), ignored);
+          socket.shutdown(tcp::socket::shutdown_both, ignored);
+        } else {
+          auto session = std::make_shared<Session>(self, std::move(socket));
+          {
+            std::lock_guard lock(self->sessions_mu);
+            self->sessions.push_front(session);
+            session->registration = self->sessions.begin();
+          }
+          net::dispatch(session->stream.get_executor(), [session] { session->Read(); });
+        }
+        self->Accept();
+      });
 }
 
 void HttpServer::Impl::CloseIdle() {
@@ -214,7 +216,8 @@ void HttpServer::Impl::CloseIdle() {
 }
 
 void HttpServer::Impl::MaybeFinish() {
-  if (counters.connections.load() == 0) net::post(ioc, [self = shared_from_this()] { self->ioc.stop(); });
+  if (counters.connections.load() == 0)
+    net::post(ioc, [self = shared_from_this()] { self->ioc.stop(); });
 }
 
 HttpServer::HttpServer(HttpOptions options, Handler handler)
@@ -243,7 +246,9 @@ bool HttpServer::Start(std::string& error) {
   return true;
 }
 
-std::uint16_t HttpServer::port() const { return impl_->acceptor.local_endpoint().port(); }
+std::uint16_t HttpServer::port() const {
+  return impl_->acceptor.local_endpoint().port();
+}
 
 void HttpServer::OnSignals(std::function<void(int)> on_signal) {
   impl_->on_signal = std::move(on_signal);
@@ -261,7 +266,9 @@ void HttpServer::OnSignals(std::function<void(int)> on_signal) {
   impl_->signals.async_wait(Waiter{impl_});
 }
 
-void HttpServer::Run() { impl_->ioc.run(); }
+void HttpServer::Run() {
+  impl_->ioc.run();
+}
 
 void HttpServer::Shutdown(std::chrono::seconds grace) {
   net::post(impl_->ioc, [impl = impl_, grace] {
@@ -277,6 +284,8 @@ void HttpServer::Shutdown(std::chrono::seconds grace) {
   });
 }
 
-const HttpCounters& HttpServer::counters() const { return impl_->counters; }
+const HttpCounters& HttpServer::counters() const {
+  return impl_->counters;
+}
 
 }  // namespace forewarden

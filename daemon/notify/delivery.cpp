@@ -15,10 +15,10 @@
 #include <sstream>
 #include <vector>
 
-#include "daemon/store/alert_reads.h"
-#include "daemon/http/http_client.h"
 #include "daemon/common/iso_time.h"
 #include "daemon/common/log.h"
+#include "daemon/http/http_client.h"
+#include "daemon/store/alert_reads.h"
 #include "daemon/store/sqlite.h"
 #include "daemon/store/store.h"
 
@@ -26,16 +26,57 @@ namespace forewarden {
 
 using nlohmann::json;
 
-std::string HmacSha256Hex(const std::string& key, const std::string& body) {
+namespace {
+
+std::string Base64(const unsigned char* data, std::size_t n) {
+  std::string out(4 * ((n + 2) / 3), '\0');
+  const int len =
+      EVP_EncodeBlock(reinterpret_cast<unsigned char*>(out.data()), data, static_cast<int>(n));
+  out.resize(static_cast<std::size_t>(len));
+  return out;
+}
+
+std::string HmacSha256Base64(const std::string& key, const std::string& data) {
   unsigned char mac[EVP_MAX_MD_SIZE];
   unsigned int len = 0;
   HMAC(EVP_sha256(), key.data(), static_cast<int>(key.size()),
-       reinterpret_cast<const unsigned char*>(body.data()), body.size(), mac, &len);
-  static const char* kHex = "0123456789abcdef";
-  std::string out;
-  for (unsigned int i = 0; i < len; ++i) {
-    out += kHex[mac[i] >> 4];
-    out += kHex[mac[i] & 15];
+       reinterpret_cast<const unsigned char*>(data.data()), data.size(), mac, &len);
+  return Base64(mac, len);
+}
+
+}  // namespace
+
+std::string ContentDigest(const std::string& body) {
+  unsigned char md[EVP_MAX_MD_SIZE];
+  unsigned int len = 0;
+  EVP_Digest(body.data(), body.size(), md, &len, EVP_sha256(), nullptr);
+  return "sha-256=:" + Base64(md, len) + ":";
+}
+
+std::vector<std::pair<std::string, std::string>> SignatureHeaders(
+    const std::string& target_uri, const std::string& content_type, const std::string& body,
+    std::int64_t created_s, const std::vector<SigningKey>& keys) {
+  const std::string digest = ContentDigest(body);
+  std::string inputs, signatures;
+  for (std::size_t i = 0; i < keys.size(); ++i) {
+    const std::string label = i == 0 ? "forewarden" : "forewarden-previous";
+    const std::string params =
+        "(\"@method\" \"@target-uri\" \"content-digest\" \"content-type\");created=" +
+        std::to_string(created_s) + ";keyid=\"" + keys[i].id + "\";alg=\"hmac-sha256\"";
+    const std::string base =
+        "\"@method\": POST\n\"@target-uri\": " + target_uri + "\n\"content-digest\": " + digest +
+        "\n\"content-type\": " + content_type + "\n\"@signature-params\": " + params;
+    if (i) {
+      inputs += ", ";
+      signatures += ", ";
+    }
+    inputs += label + "=" + params;
+    signatures += label + "=:" + HmacSha256Base64(keys[i].secret, base) + ":";
+  }
+  std::vector<std::pair<std::string, std::string>> out{{"Content-Digest", digest}};
+  if (!keys.empty()) {
+    out.emplace_back("Signature-Input", inputs);
+    out.emplace_back("Signature", signatures);
   }
   return out;
 }
@@ -44,7 +85,8 @@ namespace {
 
 struct SinkConfig {
   config::Sink sink;
-  std::string secret;  // never logged
+  std::vector<SigningKey>
+      keys;  // the current key, then the previous one while rotating; never logged
 };
 
 struct Event {
@@ -54,21 +96,22 @@ struct Event {
   std::string kind;
 };
 
-bool ReadSecret(const config::Sink& s, std::string& secret, std::string& error) {
+bool ReadSecret(const config::Sink& s, const std::string& file, const std::string& env,
+                std::string& secret, std::string& error) {
   secret.clear();
-  if (!s.secret_file.empty()) {
-    std::ifstream in(s.secret_file, std::ios::binary);
+  if (!file.empty()) {
+    std::ifstream in(file, std::ios::binary);
     if (!in) {
-      error = "sink " + s.name + ": cannot read secret_file " + s.secret_file;
+      error = "sink " + s.name + ": cannot read " + file;
       return false;
     }
     std::ostringstream text;
     text << in.rdbuf();
     secret = text.str();
-  } else if (!s.secret_env.empty()) {
-    const char* v = std::getenv(s.secret_env.c_str());
+  } else if (!env.empty()) {
+    const char* v = std::getenv(env.c_str());
     if (!v) {
-      error = "sink " + s.name + ": environment variable " + s.secret_env + " is not set";
+      error = "sink " + s.name + ": environment variable " + env + " is not set";
       return false;
     }
     secret = v;
@@ -142,7 +185,8 @@ struct Delivery::Impl {
   void Run();
   void Round(std::int64_t now);
   void Refresh();
-  void Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error, std::int64_t now);
+  void Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error,
+              std::int64_t now);
   bool SendWebhook(const SinkConfig& s, const Event& e, std::string& error);
   bool SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes, std::string& error);
   void Resend(std::int64_t now);
@@ -154,13 +198,21 @@ Delivery::Delivery(std::shared_ptr<const config::Settings> settings, Clock clock
   impl_->clock = std::move(clock);
 }
 
-Delivery::~Delivery() { Stop(); }
+Delivery::~Delivery() {
+  Stop();
+}
 
 bool Delivery::Update(std::shared_ptr<const config::Settings> settings, std::string& error) {
   std::vector<SinkConfig> sinks;
   for (const config::Sink& s : settings->alerts.sinks) {
-    SinkConfig c{s, ""};
-    if (!ReadSecret(s, c.secret, error)) return false;
+    SinkConfig c{s, {}};
+    std::string secret;
+    if (!ReadSecret(s, s.secret_file, s.secret_env, secret, error)) return false;
+    if (!secret.empty()) c.keys.push_back({s.key_id, secret});
+    if (!s.previous_secret_file.empty()) {
+      if (!ReadSecret(s, s.previous_secret_file, "", secret, error)) return false;
+      c.keys.push_back({s.previous_key_id, secret});
+    }
     sinks.push_back(std::move(c));
   }
   std::lock_guard lock(impl_->mu);
@@ -207,7 +259,8 @@ bool Delivery::Start(std::string& error) {
       "SELECT sum(d.state = 'pending'), sum(d.state = 'dead'), "
       "min(CASE WHEN d.state = 'pending' THEN e.at_ms END) FROM deliveries d "
       "JOIN alert_events e ON e.id = d.event_id WHERE d.state != 'delivered'");
-  m.open_alerts = m.db.Prepare("SELECT id FROM alerts WHERE state != 'resolved' AND group_id IS NULL");
+  m.open_alerts =
+      m.db.Prepare("SELECT id FROM alerts WHERE state != 'resolved' AND group_id IS NULL");
   m.open_groups = m.db.Prepare("SELECT id FROM alert_groups WHERE resolved_ms IS NULL");
   for (const Stmt* s : {&m.pending, &m.mark_delivered, &m.mark_failed, &m.next_due, &m.backlog_q,
                         &m.open_alerts, &m.open_groups})
@@ -296,17 +349,23 @@ void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const 
   const int attempts = e.attempts + 1;
   const bool dead = attempts >= a.max_attempts;
   // deterministic jitter in [0.5, 1.5) from the event and attempt
-  std::uint64_t h = static_cast<std::uint64_t>(e.id) * 0x9e3779b97f4a7c15ULL + static_cast<std::uint64_t>(attempts);
+  std::uint64_t h = static_cast<std::uint64_t>(e.id) * 0x9e3779b97f4a7c15ULL +
+                    static_cast<std::uint64_t>(attempts);
   h ^= h >> 29;
   h *= 0xbf58476d1ce4e5b9ULL;
   h ^= h >> 32;
   const double jitter = 0.5 + static_cast<double>(h % 10000) / 10000.0;
   const double backoff =
-      std::min(a.max_backoff_seconds, a.initial_backoff_seconds * std::pow(2.0, attempts - 1)) * jitter;
+      std::min(a.max_backoff_seconds, a.initial_backoff_seconds * std::pow(2.0, attempts - 1)) *
+      jitter;
   mark_failed.Reset();
-  mark_failed.Bind(1, e.id).Bind(2, s.sink.name).Bind(3, std::string(dead ? "dead" : "pending"))
+  mark_failed.Bind(1, e.id)
+      .Bind(2, s.sink.name)
+      .Bind(3, std::string(dead ? "dead" : "pending"))
       .Bind(4, static_cast<std::int64_t>(attempts))
-      .Bind(5, now + static_cast<std::int64_t>(backoff * 1000.0)).Bind(6, error.substr(0, 500)).Run();
+      .Bind(5, now + static_cast<std::int64_t>(backoff * 1000.0))
+      .Bind(6, error.substr(0, 500))
+      .Run();
   std::lock_guard lock(mu);
   ++counters[s.sink.name].failed;
   if (dead) ++counters[s.sink.name].dead;
@@ -316,9 +375,10 @@ bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::strin
   json note;
   if (!notifications.Event(e.id, note, error)) return false;
   const std::string body = note.dump(-1, ' ', false, json::error_handler_t::replace);
-  HttpHeaders headers{{"X-Forewarden-Event", e.kind},
-                      {"X-Forewarden-Delivery", install_id + "-" + std::to_string(e.id)}};
-  if (!s.secret.empty()) headers.push_back({"X-Forewarden-Signature", "sha256=" + HmacSha256Hex(s.secret, body)});
+  HttpHeaders headers;
+  for (auto& [name, value] :
+       SignatureHeaders(s.sink.url, "application/json", body, clock() / 1000, s.keys))
+    headers.push_back({name, value});
   const HttpResult r = HttpPost(s.sink.url, "application/json", body, "",
                                 std::chrono::seconds(s.sink.timeout_seconds), headers);
   if (r.status >= 200 && r.status < 300) return true;
@@ -342,7 +402,8 @@ bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<jso
         a["annotations"]["summary"] = summary;
         list.push_back(a);
         if (kind == "escalated" && body.contains("previous_severity"))
-          list.push_back(AmAlert(alert, body["previous_severity"].get<std::string>(), false, now, ends));
+          list.push_back(
+              AmAlert(alert, body["previous_severity"].get<std::string>(), false, now, ends));
       } else if (kind == "resolved") {
         json a = AmAlert(alert, severity, false, now, ends);
         a["annotations"]["summary"] = summary;
@@ -391,9 +452,10 @@ void Delivery::Impl::Round(std::int64_t now) {
           std::string error;
           const bool ok = notifications.Event(e.id, note, error);
           if (ok)
-            WriteLog(std::cerr, LogLine("info", "alert", {{"event", std::to_string(e.id)},
-                                                          {"kind", e.kind},
-                                                          {"summary", note.value("summary", "")}}));
+            WriteLog(std::cerr, LogLine("info", "alert",
+                                        {{"event", std::to_string(e.id)},
+                                         {"kind", e.kind},
+                                         {"summary", note.value("summary", "")}}));
           Finish(s, e, ok, error, now);
         }
         break;

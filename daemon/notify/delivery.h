@@ -12,9 +12,12 @@
 //
 // Sinks:
 //   webhook       one POST per event, JSON body {"event_id", "idempotency_key", "kind", "at",
-//                 "summary", "alert" | "group", ...}; headers X-Forewarden-Event (the kind),
-//                 X-Forewarden-Delivery (the idempotency key) and, with a secret,
-//                 X-Forewarden-Signature: sha256=HEX (HMAC-SHA256 of the exact body bytes).
+//                 "summary", "alert" | "group", ...}; signed on open standards: Content-Digest
+//                 (RFC 9530, sha-256 of the exact body) and, with a secret, an HTTP Message
+//                 Signature (RFC 9421, hmac-sha256) over the method, the target URI, the
+//                 digest and the content type, with the created time and a key id; while a key
+//                 rotates, a second signature with the previous key (README, "Webhook
+//                 signatures"; deploy/webhook/receiver.py verifies them).
 //   alertmanager  POST {url}/api/v2/alerts with the events of a round as one array; labels
 //                 alertname (the rule), forewarden_alert (id), series, policy, rule, severity;
 //                 annotations summary and url; resolved alerts carry endsAt. Alertmanager
@@ -33,16 +36,17 @@
 #include <mutex>
 #include <string>
 #include <thread>
+#include <vector>
 
 #include "config/settings.h"
 
 namespace forewarden {
 
 struct SinkCounters {
-  long delivered = 0;      // events
-  long failed = 0;         // attempts that failed
-  long dead = 0;           // deliveries given up
-  long resent = 0;         // alertmanager re-sends of open alerts
+  long delivered = 0;  // events
+  long failed = 0;     // attempts that failed
+  long dead = 0;       // deliveries given up
+  long resent = 0;     // alertmanager re-sends of open alerts
 };
 
 class Delivery {
@@ -70,7 +74,17 @@ class Delivery {
   std::unique_ptr<Impl> impl_;
 };
 
-// HMAC-SHA256 of `body` with `key`, lowercase hex (OpenSSL).
-std::string HmacSha256Hex(const std::string& key, const std::string& body);
+// One signing key of a webhook sink.
+struct SigningKey {
+  std::string id;
+  std::string secret;
+};
+// The Content-Digest header value of `body` (RFC 9530): sha-256=:BASE64:.
+std::string ContentDigest(const std::string& body);
+// Content-Digest, and with keys Signature-Input and Signature (RFC 9421, alg hmac-sha256;
+// labels "forewarden" and, for a second key, "forewarden-previous") for a POST of `body`.
+std::vector<std::pair<std::string, std::string>> SignatureHeaders(
+    const std::string& target_uri, const std::string& content_type, const std::string& body,
+    std::int64_t created_s, const std::vector<SigningKey>& keys);
 
 }  // namespace forewarden

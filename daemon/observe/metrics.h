@@ -38,7 +38,7 @@ struct ApiCounters {
   std::atomic<long> rejected_too_many_rows{0};
   std::atomic<long> rejected_queue_full{0};
   std::atomic<long> rejected_unavailable{0};
-  std::atomic<long> rejected_rows{0};     // rows of batches refused before the engine (bad input)
+  std::atomic<long> rejected_rows{0};  // rows of batches refused before the engine (bad input)
   std::atomic<long> rejected_batches{0};
   std::atomic<long> internal_errors{0};  // handlers that threw: answered 500
 };

@@ -7,7 +7,8 @@
 #include "monitors/period.h"
 
 namespace forewarden {
-bool AlertBook::Open(Db& db, const std::function<long(std::int64_t)>& index_of, std::string& error) {
+bool AlertBook::Open(Db& db, const std::function<long(std::int64_t)>& index_of,
+                     std::string& error) {
   db_ = &db;
   insert_alert_ = db.Prepare(
       "INSERT INTO alerts(series_id, series_key, policy, rule, signal, severity, state, "
@@ -38,8 +39,9 @@ bool AlertBook::Open(Db& db, const std::function<long(std::int64_t)>& index_of, 
       "RETURNING open_members, policy, rule, severity, members");
   select_alert_ = db.Prepare(
       "SELECT series_id, rule, state, severity, group_id, policy FROM alerts WHERE id = ?1");
-  for (const Stmt* s : {&insert_alert_, &update_alert_state_, &set_severity_, &resolve_alert_,
-                        &insert_event_, &insert_delivery_, &insert_group_, &group_left_, &select_alert_})
+  for (const Stmt* s :
+       {&insert_alert_, &update_alert_state_, &set_severity_, &resolve_alert_, &insert_event_,
+        &insert_delivery_, &insert_group_, &group_left_, &select_alert_})
     if (!s->valid()) {
       error = db.error();
       return false;
@@ -78,9 +80,10 @@ void AlertBook::IndexReset() {
   snoozed_ = 0;
 }
 
-void AlertBook::Index(const std::function<std::optional<std::pair<std::size_t, std::size_t>>(
-                          long index, const std::string& rule)>& locate,
-                      const std::function<std::int64_t(long index, const std::string& text)>& period_of) {
+void AlertBook::Index(
+    const std::function<std::optional<std::pair<std::size_t, std::size_t>>(
+        long index, const std::string& rule)>& locate,
+    const std::function<std::int64_t(long index, const std::string& text)>& period_of) {
   IndexReset();
   for (const Loaded& l : loaded_) {
     const auto where = locate(l.index, l.rule);
@@ -125,11 +128,14 @@ void AlertBook::RollbackTo(std::size_t mark) {
   }
 }
 
-void AlertBook::Tally(
-    const std::function<void(std::size_t, std::size_t, const char*, monitors::Severity)>& each) const {
+void AlertBook::Tally(const std::function<void(std::size_t, std::size_t, const char*,
+                                               monitors::Severity)>& each) const {
   for (const auto& [key, live] : open_)
     each(static_cast<std::size_t>(key >> 8), static_cast<std::size_t>(key & 0xff),
-         live.state == 'a' ? "acknowledged" : live.state == 's' ? "snoozed" : "open", live.severity);
+         live.state == 'a'   ? "acknowledged"
+         : live.state == 's' ? "snoozed"
+                             : "open",
+         live.severity);
 }
 
 bool AlertBook::Fail(const std::string& what) {
@@ -141,15 +147,35 @@ bool AlertBook::Event(std::int64_t alert, std::int64_t group, const std::string&
                       std::int64_t now_ms, const std::string& actor, const std::string& note,
                       const EventFacts& facts, bool notify) {
   insert_event_.Reset();
-  if (alert) insert_event_.Bind(1, alert); else insert_event_.BindNull(1);
-  if (group) insert_event_.Bind(2, group); else insert_event_.BindNull(2);
+  if (alert)
+    insert_event_.Bind(1, alert);
+  else
+    insert_event_.BindNull(1);
+  if (group)
+    insert_event_.Bind(2, group);
+  else
+    insert_event_.BindNull(2);
   insert_event_.Bind(3, kind).Bind(4, now_ms);
-  if (actor.empty()) insert_event_.BindNull(5); else insert_event_.Bind(5, actor);
-  if (note.empty()) insert_event_.BindNull(6); else insert_event_.Bind(6, note);
-  if (facts.severity) insert_event_.Bind(7, std::string(monitors::SeverityName(*facts.severity)));
-  else insert_event_.BindNull(7);
-  if (facts.value) insert_event_.Bind(8, *facts.value); else insert_event_.BindNull(8);
-  if (facts.detail.empty()) insert_event_.BindNull(9); else insert_event_.Bind(9, facts.detail);
+  if (actor.empty())
+    insert_event_.BindNull(5);
+  else
+    insert_event_.Bind(5, actor);
+  if (note.empty())
+    insert_event_.BindNull(6);
+  else
+    insert_event_.Bind(6, note);
+  if (facts.severity)
+    insert_event_.Bind(7, std::string(monitors::SeverityName(*facts.severity)));
+  else
+    insert_event_.BindNull(7);
+  if (facts.value)
+    insert_event_.Bind(8, *facts.value);
+  else
+    insert_event_.BindNull(8);
+  if (facts.detail.empty())
+    insert_event_.BindNull(9);
+  else
+    insert_event_.Bind(9, facts.detail);
   if (!insert_event_.Run()) return Fail("alert event");
   if (!notify) return true;
   const std::int64_t event = db_->LastInsertId();
@@ -168,20 +194,25 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
   std::map<std::pair<const config::Policy*, std::size_t>, std::vector<std::size_t>> openings;
   if (storm_threshold_ > 0)
     for (std::size_t i = 0; i < changes.size(); ++i)
-      if (changes[i].kind == AlertChange::Kind::kOpened && !open_.count(Key(changes[i].series, changes[i].rule)))
+      if (changes[i].kind == AlertChange::Kind::kOpened &&
+          !open_.count(Key(changes[i].series, changes[i].rule)))
         openings[{info(changes[i].series).policy, changes[i].rule}].push_back(i);
   std::vector<std::int64_t> group_of(changes.size(), 0);
   for (auto& [where, members] : openings) {
     if (static_cast<long>(members.size()) <= storm_threshold_) continue;
     const monitors::RuleSpec& rule = where.first->spec.rules[where.second];
     insert_group_.Reset();
-    if (!insert_group_.Bind(1, where.first->name).Bind(2, rule.name)
+    if (!insert_group_.Bind(1, where.first->name)
+             .Bind(2, rule.name)
              .Bind(3, std::string(monitors::SeverityName(rule.severity)))
-             .Bind(4, static_cast<std::int64_t>(members.size())).Bind(5, now_ms).Run())
+             .Bind(4, static_cast<std::int64_t>(members.size()))
+             .Bind(5, now_ms)
+             .Run())
       return Fail("alert group");
     const std::int64_t group = db_->LastInsertId();
     for (std::size_t m : members) group_of[m] = group;
-    if (!Event(0, group, "group_opened", now_ms, "", "", EventFacts{rule.severity, std::nullopt, ""}, true))
+    if (!Event(0, group, "group_opened", now_ms, "", "",
+               EventFacts{rule.severity, std::nullopt, ""}, true))
       return false;
     ++counts.grouped;
     ++counts.notified;
@@ -197,24 +228,36 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
     if (c.kind == AlertChange::Kind::kOpened) {
       if (it != open_.end()) continue;  // already recorded (a restart's catch-up, a hand resolve)
       insert_alert_.Reset();
-      insert_alert_.Bind(1, s.id).Bind(2, s.key).Bind(3, s.policy->name).Bind(4, rule.name)
+      insert_alert_.Bind(1, s.id)
+          .Bind(2, s.key)
+          .Bind(3, s.policy->name)
+          .Bind(4, rule.name)
           .Bind(5, std::string(monitors::SignalKindName(rule.signal)))
-          .Bind(6, std::string(monitors::SeverityName(c.severity))).Bind(7, period).Bind(8, now_ms);
-      if (c.value) insert_alert_.Bind(9, *c.value); else insert_alert_.BindNull(9);
+          .Bind(6, std::string(monitors::SeverityName(c.severity)))
+          .Bind(7, period)
+          .Bind(8, now_ms);
+      if (c.value)
+        insert_alert_.Bind(9, *c.value);
+      else
+        insert_alert_.BindNull(9);
       if (rule.signal == monitors::SignalKind::kStale)
         insert_alert_.Bind(10, rule.limit + 0.5);
       else if (rule.signal == monitors::SignalKind::kAlphaAtCap)
         insert_alert_.Bind(10, static_cast<double>(rule.persistence));
       else
         insert_alert_.Bind(10, rule.limit);
-      if (group_of[i]) insert_alert_.Bind(11, group_of[i]); else insert_alert_.BindNull(11);
+      if (group_of[i])
+        insert_alert_.Bind(11, group_of[i]);
+      else
+        insert_alert_.BindNull(11);
       if (!insert_alert_.Run()) return Fail("alert");
       Live o;
       o.id = db_->LastInsertId();
       o.group = group_of[i];
       o.severity = c.severity;
       Set(key, o);
-      if (!Event(o.id, o.group, "opened", now_ms, "", "", EventFacts{c.severity, c.value, ""}, o.group == 0))
+      if (!Event(o.id, o.group, "opened", now_ms, "", "", EventFacts{c.severity, c.value, ""},
+                 o.group == 0))
         return false;
       ++counts.opened;
       if (!o.group) ++counts.notified;
@@ -226,8 +269,13 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
       o.state = 'o';
       o.snooze_ms = o.snooze_period = INT64_MAX;
       set_severity_.Reset();
-      set_severity_.Bind(1, o.id).Bind(2, std::string(monitors::SeverityName(c.severity))).Bind(3, now_ms);
-      if (c.value) set_severity_.Bind(4, *c.value); else set_severity_.BindNull(4);
+      set_severity_.Bind(1, o.id)
+          .Bind(2, std::string(monitors::SeverityName(c.severity)))
+          .Bind(3, now_ms);
+      if (c.value)
+        set_severity_.Bind(4, *c.value);
+      else
+        set_severity_.BindNull(4);
       if (!set_severity_.Run()) return Fail("alert escalation");
       Set(key, o);
       // detail: the severity it had (Alertmanager resolves the alert under its old labels)
@@ -240,11 +288,16 @@ bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo&
       if (it == open_.end()) continue;
       const Live o = it->second;
       resolve_alert_.Reset();
-      resolve_alert_.Bind(1, o.id).Bind(2, now_ms).Bind(3, period).BindNull(4).Bind(5, c.reason).BindNull(6);
+      resolve_alert_.Bind(1, o.id)
+          .Bind(2, now_ms)
+          .Bind(3, period)
+          .BindNull(4)
+          .Bind(5, c.reason)
+          .BindNull(6);
       if (!resolve_alert_.Run()) return Fail("alert resolution");
       Set(key, std::nullopt);
-      if (!Event(o.id, o.group, "resolved", now_ms, "", "", EventFacts{o.severity, c.value, c.reason},
-                 o.group == 0))
+      if (!Event(o.id, o.group, "resolved", now_ms, "", "",
+                 EventFacts{o.severity, c.value, c.reason}, o.group == 0))
         return false;
       ++counts.resolved;
       if (!o.group) {
@@ -287,7 +340,8 @@ Status AlertBook::LoadAlert(std::int64_t id, std::uint64_t& key, Live& open) {
 bool AlertBook::Transition(std::int64_t id, const std::string& kind, const Live& alert,
                            std::int64_t now_ms, const std::string& actor, const std::string& note,
                            const std::string& detail) {
-  return Event(id, 0, kind, now_ms, actor, note, EventFacts{alert.severity, std::nullopt, detail}, true);
+  return Event(id, 0, kind, now_ms, actor, note, EventFacts{alert.severity, std::nullopt, detail},
+               true);
 }
 
 Status AlertBook::Acknowledge(std::int64_t id, const std::string& by, const std::string& note,
@@ -297,7 +351,10 @@ Status AlertBook::Acknowledge(std::int64_t id, const std::string& by, const std:
   if (Status loaded = LoadAlert(id, key, o); !loaded) return loaded;
   update_alert_state_.Reset();
   update_alert_state_.Bind(1, id).Bind(2, std::string("acknowledged")).Bind(3, now_ms).Bind(4, by);
-  if (note.empty()) update_alert_state_.BindNull(5); else update_alert_state_.Bind(5, note);
+  if (note.empty())
+    update_alert_state_.BindNull(5);
+  else
+    update_alert_state_.Bind(5, note);
   update_alert_state_.BindNull(6).BindNull(7);
   if (!update_alert_state_.Run() || !Transition(id, "acknowledged", o, now_ms, by, note, "")) {
     return Status::StoreFailed(error_);
@@ -309,17 +366,28 @@ Status AlertBook::Acknowledge(std::int64_t id, const std::string& by, const std:
 }
 
 Status AlertBook::Snooze(std::int64_t id, std::optional<std::int64_t> until_period,
-                       const std::string& until_period_text, std::optional<std::int64_t> until_ms,
+                         const std::string& until_period_text, std::optional<std::int64_t> until_ms,
                          const std::string& by, const std::string& note, std::int64_t now_ms) {
   std::uint64_t key = 0;
   Live o;
   if (Status loaded = LoadAlert(id, key, o); !loaded) return loaded;
   update_alert_state_.Reset();
   update_alert_state_.Bind(1, id).Bind(2, std::string("snoozed")).Bind(3, now_ms).BindNull(4);
-  if (note.empty()) update_alert_state_.BindNull(5); else update_alert_state_.Bind(5, note);
-  if (until_period) update_alert_state_.Bind(6, until_period_text); else update_alert_state_.BindNull(6);
-  if (until_ms) update_alert_state_.Bind(7, *until_ms); else update_alert_state_.BindNull(7);
-  if (!update_alert_state_.Run() || !Transition(id, "snoozed", o, now_ms, by, note, until_ms ? IsoTime(*until_ms) : until_period_text)) {
+  if (note.empty())
+    update_alert_state_.BindNull(5);
+  else
+    update_alert_state_.Bind(5, note);
+  if (until_period)
+    update_alert_state_.Bind(6, until_period_text);
+  else
+    update_alert_state_.BindNull(6);
+  if (until_ms)
+    update_alert_state_.Bind(7, *until_ms);
+  else
+    update_alert_state_.BindNull(7);
+  if (!update_alert_state_.Run() ||
+      !Transition(id, "snoozed", o, now_ms, by, note,
+                  until_ms ? IsoTime(*until_ms) : until_period_text)) {
     return Status::StoreFailed(error_);
   }
   o.state = 's';
@@ -334,7 +402,10 @@ bool AlertBook::Resolve(std::uint64_t key, const Live& o, const std::string& by,
                         AlertCounts& counts) {
   resolve_alert_.Reset();
   resolve_alert_.Bind(1, o.id).Bind(2, now_ms).BindNull(3).Bind(4, by).Bind(5, reason);
-  if (note.empty()) resolve_alert_.BindNull(6); else resolve_alert_.Bind(6, note);
+  if (note.empty())
+    resolve_alert_.BindNull(6);
+  else
+    resolve_alert_.Bind(6, note);
   if (!resolve_alert_.Run()) return Fail("alert resolution");
   if (!Transition(o.id, "resolved", o, now_ms, by, note, reason) ||
       (o.group && !GroupMemberLeft(o.group, now_ms, counts)))
@@ -366,14 +437,20 @@ Result<long> AlertBook::RequeueDead(const std::string& sink, std::int64_t now_ms
   Stmt q = db_->Prepare(
       "UPDATE deliveries SET state = 'pending', attempts = 0, next_ms = ?1 "
       "WHERE state = 'dead' AND (?2 = '' OR sink = ?2)");
-  if (!q.valid() || !q.Bind(1, now_ms).Bind(2, sink).Run()) return Status::StoreFailed(db_->error());
+  if (!q.valid() || !q.Bind(1, now_ms).Bind(2, sink).Run())
+    return Status::StoreFailed(db_->error());
   return static_cast<long>(db_->Changes());
 }
 
 bool AlertBook::Unsnooze(std::uint64_t key, Live o, std::int64_t now_ms, AlertCounts& counts) {
   update_alert_state_.Reset();
-  update_alert_state_.Bind(1, o.id).Bind(2, std::string("open")).Bind(3, now_ms).BindNull(4)
-      .BindNull(5).BindNull(6).BindNull(7);
+  update_alert_state_.Bind(1, o.id)
+      .Bind(2, std::string("open"))
+      .Bind(3, now_ms)
+      .BindNull(4)
+      .BindNull(5)
+      .BindNull(6)
+      .BindNull(7);
   if (!update_alert_state_.Run() || !Transition(o.id, "snooze_ended", o, now_ms, "", "", ""))
     return false;
   o.state = 'o';

@@ -41,7 +41,7 @@ struct AlertChange {
   std::int64_t period = 0;
   std::optional<double> value;
   monitors::Severity severity = monitors::Severity::kWarning;  // the episode's, after the step
-  std::string reason;  // kResolved: "clear", "restated"
+  std::string reason;                                          // kResolved: "clear", "restated"
 };
 
 // The engine's facts about a series.
@@ -75,11 +75,13 @@ class AlertBook {
 
   // Lifecycle by hand, inside the caller's transaction: not found (no such alert), conflict
   // (resolved already) or store failed.
-  Status Acknowledge(std::int64_t id, const std::string& by, const std::string& note, std::int64_t now_ms);
+  Status Acknowledge(std::int64_t id, const std::string& by, const std::string& note,
+                     std::int64_t now_ms);
   Status Snooze(std::int64_t id, std::optional<std::int64_t> until_period,
                 const std::string& until_period_text, std::optional<std::int64_t> until_ms,
                 const std::string& by, const std::string& note, std::int64_t now_ms);
-  Status ResolveByHand(std::int64_t id, const std::string& by, const std::string& note, std::int64_t now_ms);
+  Status ResolveByHand(std::int64_t id, const std::string& by, const std::string& note,
+                       std::int64_t now_ms);
   // The policy name of alert `id` (resolved or not).
   Result<std::string> PolicyOf(std::int64_t id);
   // Dead deliveries (of `sink`, or every sink when empty) back to pending, due at `now_ms`;
@@ -94,7 +96,8 @@ class AlertBook {
                      const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts);
 
   // Calls `each` for every unresolved alert: (series index, rule index, state name, severity).
-  void Tally(const std::function<void(std::size_t, std::size_t, const char*, monitors::Severity)>& each) const;
+  void Tally(const std::function<void(std::size_t, std::size_t, const char*, monitors::Severity)>&
+                 each) const;
 
   std::size_t Mark() const { return undo_.size(); }
   // Whether any unresolved alert is snoozed (kept by Set; cheap).
@@ -116,7 +119,7 @@ class AlertBook {
   static std::uint64_t Key(std::size_t index, std::size_t rule) {
     return (static_cast<std::uint64_t>(index) << 8) | rule;
   }
-  void Set(std::uint64_t key, std::optional<Live> value);  // with undo
+  void Set(std::uint64_t key, std::optional<Live> value);         // with undo
   void Put(std::uint64_t key, const std::optional<Live>& value);  // without
   void IndexReset();
   // What an event records besides kind, time, actor and note: the alert's severity and signal
@@ -132,9 +135,8 @@ class AlertBook {
              bool notify);
   bool Fail(const std::string& what);
   Status LoadAlert(std::int64_t id, std::uint64_t& key, Live& open);
-  bool Transition(std::int64_t id, const std::string& kind, const Live& alert,
-                  std::int64_t now_ms, const std::string& actor, const std::string& note,
-                  const std::string& detail);
+  bool Transition(std::int64_t id, const std::string& kind, const Live& alert, std::int64_t now_ms,
+                  const std::string& actor, const std::string& note, const std::string& detail);
 
   struct Loaded {
     std::int64_t id;

@@ -15,7 +15,8 @@ namespace {
 constexpr const char* kAlertColumns =
     "SELECT id, series_key, policy, rule, signal, severity, state, opened_period, opened_ms, "
     "updated_ms, value, limit_value, ack_by, note, snooze_until_period, snooze_until_ms, "
-    "resolved_period, resolved_ms, resolved_by, resolved_reason, group_id FROM alerts WHERE id = ?1";
+    "resolved_period, resolved_ms, resolved_by, resolved_reason, group_id FROM alerts WHERE id = "
+    "?1";
 
 // The alert object of a row selected with kAlertColumns.
 json AlertRow(const Stmt& q) {
@@ -82,7 +83,8 @@ namespace {
 
 json DeliveryRows(Db& db, std::int64_t event, std::string& error) {
   json list = json::array();
-  Stmt q = db.Prepare("SELECT sink, state, attempts, last_error FROM deliveries WHERE event_id = ?1 ORDER BY sink");
+  Stmt q = db.Prepare(
+      "SELECT sink, state, attempts, last_error FROM deliveries WHERE event_id = ?1 ORDER BY sink");
   if (!q.valid() || !q.Bind(1, event).Step()) {
     error = db.error();
     return list;
@@ -101,7 +103,8 @@ Result<json> AlertWithHistory(Db& db, std::int64_t id) {
   Result<json> alert = AlertObject(db, id);
   if (!alert) return alert;
   json history = json::array();
-  Stmt q = db.Prepare("SELECT id, kind, at_ms, actor, note FROM alert_events WHERE alert_id = ?1 ORDER BY id");
+  Stmt q = db.Prepare(
+      "SELECT id, kind, at_ms, actor, note FROM alert_events WHERE alert_id = ?1 ORDER BY id");
   if (!q.valid() || !q.Bind(1, id).Step()) return Status::StoreFailed(db.error());
   std::vector<std::int64_t> events;
   for (; q.Row(); q.Step()) {
@@ -140,7 +143,8 @@ Result<AlertPage> ListAlerts(Db& db, const AlertFilter& f) {
   filter(f.severity, "severity");
   if (!f.series.empty()) {  // through the series' id (indexed), not its key
     values.push_back(f.series);
-    sql += " AND series_id = (SELECT id FROM series WHERE key = ?" + std::to_string(values.size() + 1) + ")";
+    sql += " AND series_id = (SELECT id FROM series WHERE key = ?" +
+           std::to_string(values.size() + 1) + ")";
   }
   if (f.group) {
     values.push_back(std::to_string(*f.group));
@@ -211,7 +215,8 @@ std::string PublicUrl(const config::Settings& settings) {
   return url;
 }
 
-bool Notifications::Open(Db& db, std::string install_id, std::string public_url, std::string& error) {
+bool Notifications::Open(Db& db, std::string install_id, std::string public_url,
+                         std::string& error) {
   db_ = &db;
   install_id_ = std::move(install_id);
   public_url_ = std::move(public_url);
@@ -219,7 +224,9 @@ bool Notifications::Open(Db& db, std::string install_id, std::string public_url,
       "SELECT kind, at_ms, actor, note, severity, value, detail, alert_id, group_id "
       "FROM alert_events WHERE id = ?1");
   alert_ = db.Prepare(kAlertColumns);
-  group_ = db.Prepare("SELECT policy, rule, severity, members, opened_ms, resolved_ms FROM alert_groups WHERE id = ?1");
+  group_ = db.Prepare(
+      "SELECT policy, rule, severity, members, opened_ms, resolved_ms FROM alert_groups WHERE id = "
+      "?1");
   sample_ = db.Prepare("SELECT series_key FROM alerts WHERE group_id = ?1 ORDER BY id LIMIT 20");
   for (const Stmt* q : {&event_, &alert_, &group_, &sample_})
     if (!q->valid()) {
@@ -246,7 +253,8 @@ const char* StateAfter(const std::string& kind) {
 
 }  // namespace
 
-bool Notifications::Group(std::int64_t group, const std::string& kind, json& out, std::string& error) {
+bool Notifications::Group(std::int64_t group, const std::string& kind, json& out,
+                          std::string& error) {
   group_.Reset();
   if (!group_.Bind(1, group).Step() || !group_.Row()) {
     error = "no alert group " + std::to_string(group) + " " + db_->error();
@@ -268,9 +276,9 @@ bool Notifications::Group(std::int64_t group, const std::string& kind, json& out
   sample_.Reset();
   g["series_sample"] = sample;
   out["summary"] = kind == "group_opened"
-                       ? std::to_string(g["series_count"].get<std::int64_t>()) + " series of policy " +
-                             g["policy"].get<std::string>() + " opened " + g["rule"].get<std::string>() +
-                             " in one batch (a whole-feed problem?)"
+                       ? std::to_string(g["series_count"].get<std::int64_t>()) +
+                             " series of policy " + g["policy"].get<std::string>() + " opened " +
+                             g["rule"].get<std::string>() + " in one batch (a whole-feed problem?)"
                        : "every series of group " + std::to_string(group) + " (" +
                              g["policy"].get<std::string>() + ", " + g["rule"].get<std::string>() +
                              ") is clear again";
@@ -315,7 +323,8 @@ bool Notifications::Event(std::int64_t event, json& out, std::string& error) {
                         a["signal"].get<std::string>();
   // appended piece by piece (GCC 12 warns wrongly about `"literal" + std::string&&`)
   if (a["value"].is_number()) summary.append(" ").append(Short(a["value"].get<double>()));
-  if (a["limit"].is_number()) summary.append(" (limit ").append(Short(a["limit"].get<double>())).append(")");
+  if (a["limit"].is_number())
+    summary.append(" (limit ").append(Short(a["limit"].get<double>())).append(")");
   summary.append(" since ").append(a["opened_period"].get<std::string>());
   if (!actor.empty()) summary.append(", by ").append(actor);
   if (kind == "snoozed" && !detail.empty()) summary.append(" until ").append(detail);

@@ -35,7 +35,8 @@ BackupResult BackupStore(const std::string& data_dir, const std::string& to, int
     std::filesystem::remove(partial, ec);
     return result;
   };
-  if (sqlite3_open_v2(partial.c_str(), &dest, SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE, nullptr) != SQLITE_OK)
+  if (sqlite3_open_v2(partial.c_str(), &dest, SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE,
+                      nullptr) != SQLITE_OK)
     return fail(partial + ": " + sqlite3_errmsg(dest));
   sqlite3_backup* b = sqlite3_backup_init(dest, "main", source, "main");
   if (!b) return fail(partial + ": " + sqlite3_errmsg(dest));

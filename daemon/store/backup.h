@@ -17,6 +17,7 @@ struct BackupResult {
 
 // `pages_per_step` pages are copied per step; between steps the source is free for the
 // service's writer.
-BackupResult BackupStore(const std::string& data_dir, const std::string& to, int pages_per_step = 256);
+BackupResult BackupStore(const std::string& data_dir, const std::string& to,
+                         int pages_per_step = 256);
 
 }  // namespace forewarden

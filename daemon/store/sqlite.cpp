@@ -35,9 +35,9 @@ void Stmt::Reset() {
 
 bool Db::Open(const std::string& path) {
   sqlite3* raw = nullptr;
-  const int rc = sqlite3_open_v2(path.c_str(), &raw,
-                                 SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE | SQLITE_OPEN_NOMUTEX,
-                                 nullptr);
+  const int rc =
+      sqlite3_open_v2(path.c_str(), &raw,
+                      SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE | SQLITE_OPEN_NOMUTEX, nullptr);
   db_.reset(raw);
   if (rc != SQLITE_OK) return Fail("open " + path);
   sqlite3_extended_result_codes(raw, 1);
@@ -52,7 +52,9 @@ void Db::WaitForLocks(int ms) {
       [](void* steps, int count) -> int {
         if (count >= static_cast<int>(reinterpret_cast<std::intptr_t>(steps))) return 0;
         sqlite3_sleep(0);  // yield
-        struct timespec t{0, 100000};
+        struct timespec t {
+          0, 100000
+        };
         nanosleep(&t, nullptr);
         return 1;
       },

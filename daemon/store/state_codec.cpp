@@ -55,8 +55,8 @@ std::string EncodeState(const monitors::SeriesState& s) {
   Writer w;
   w.Put(kVersion);
   const monitors::Constants* own = s.own.get();
-  const std::uint8_t flags = static_cast<std::uint8_t>((s.seen ? 1 : 0) | (s.started ? 2 : 0) |
-                                                       (s.model.has_demand ? 4 : 0) | (own ? 8 : 0));
+  const std::uint8_t flags = static_cast<std::uint8_t>(
+      (s.seen ? 1 : 0) | (s.started ? 2 : 0) | (s.model.has_demand ? 4 : 0) | (own ? 8 : 0));
   w.Put(flags);
   w.Put<std::int64_t>(s.last_period);
   w.Put<std::int64_t>(s.next_index);
@@ -82,8 +82,8 @@ std::string EncodeState(const monitors::SeriesState& s) {
   w.Put(static_cast<std::uint32_t>(s.rules.size()));
   for (const auto& r : s.rules) {
     w.Put<std::int32_t>(r.run);
-    w.Put<std::uint8_t>(static_cast<std::uint8_t>((r.active ? 1 : 0) | (r.open ? 2 : 0) |
-                                                  (r.escalated ? 4 : 0)));
+    w.Put<std::uint8_t>(
+        static_cast<std::uint8_t>((r.active ? 1 : 0) | (r.open ? 2 : 0) | (r.escalated ? 4 : 0)));
     w.Put<std::uint8_t>(r.quiet);
   }
   w.Put<std::uint64_t>(s.active);
@@ -118,11 +118,10 @@ bool DecodeState(std::string_view bytes, monitors::SeriesState& out) {
     own.season_length = season_length;
     s.own.set(own);
   }
-  if (!r.Get(s.model.level) || !r.Get(s.model.trend) ||
-      !r.Doubles(s.model.season) || !r.Get(s.model.size) || !r.Get(s.model.interval) ||
-      !r.Get(since) || !r.Get(s.stats.smoothed_error) || !r.Get(s.stats.mad) ||
-      !r.Get(s.stats.cusum) || !r.Get(forecasts) || !r.Get(missing) || !r.Get(nrules) ||
-      nrules > monitors::kMaxRules)
+  if (!r.Get(s.model.level) || !r.Get(s.model.trend) || !r.Doubles(s.model.season) ||
+      !r.Get(s.model.size) || !r.Get(s.model.interval) || !r.Get(since) ||
+      !r.Get(s.stats.smoothed_error) || !r.Get(s.stats.mad) || !r.Get(s.stats.cusum) ||
+      !r.Get(forecasts) || !r.Get(missing) || !r.Get(nrules) || nrules > monitors::kMaxRules)
     return false;
   s.rules.resize(nrules);
   for (auto& rule : s.rules) {

@@ -117,7 +117,8 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
   if (ec) return db_.Fail("create data folder " + dir + ": " + ec.message());
   if (!db_.Open(DatabasePath(dir))) return false;
   if (!db_.Exec("PRAGMA journal_mode=WAL;") ||
-      !db_.Exec(std::string("PRAGMA synchronous=") + (synchronous_full ? "FULL" : "NORMAL") + ";") ||
+      !db_.Exec(std::string("PRAGMA synchronous=") + (synchronous_full ? "FULL" : "NORMAL") +
+                ";") ||
       !db_.Exec("PRAGMA foreign_keys=ON;"))
     return false;
   db_.WaitForLocks(5000);
@@ -138,12 +139,14 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
   savepoint_ = db_.Prepare("SAVEPOINT batch");
   release_ = db_.Prepare("RELEASE batch");
   rollback_to_ = db_.Prepare("ROLLBACK TO batch");
-  insert_series_ = db_.Prepare("INSERT INTO series(key, policy, labels, state) VALUES(?1, ?2, ?3, ?4)");
+  insert_series_ =
+      db_.Prepare("INSERT INTO series(key, policy, labels, state) VALUES(?1, ?2, ?3, ?4)");
   insert_checkpoint_ = db_.Prepare("INSERT INTO checkpoints(series_id, state) VALUES(?1, ?2)");
   update_state_ = db_.Prepare("UPDATE series SET state = ?2 WHERE id = ?1");
   update_checkpoint_ = db_.Prepare("UPDATE checkpoints SET state = ?2 WHERE series_id = ?1");
   load_checkpoint_ = db_.Prepare("SELECT state FROM checkpoints WHERE series_id = ?1");
-  put_actual_ = db_.Prepare("INSERT OR REPLACE INTO actuals(series_id, period, value) VALUES(?1, ?2, ?3)");
+  put_actual_ =
+      db_.Prepare("INSERT OR REPLACE INTO actuals(series_id, period, value) VALUES(?1, ?2, ?3)");
   get_actual_ = db_.Prepare("SELECT value FROM actuals WHERE series_id = ?1 AND period = ?2");
   oldest_actual_ = db_.Prepare("SELECT min(period) FROM actuals WHERE series_id = ?1");
   actuals_ = db_.Prepare(
@@ -151,15 +154,32 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
       "ORDER BY period");
   drop_actuals_ = db_.Prepare("DELETE FROM actuals WHERE series_id = ?1 AND period < ?2");
   drop_adjustments_ = db_.Prepare("DELETE FROM adjustments WHERE series_id = ?1 AND period < ?2");
-  put_adjustment_ = db_.Prepare("INSERT INTO adjustments(series_id, period, level) VALUES(?1, ?2, ?3)");
+  put_adjustment_ =
+      db_.Prepare("INSERT INTO adjustments(series_id, period, level) VALUES(?1, ?2, ?3)");
   adjustments_ = db_.Prepare(
       "SELECT period, level FROM adjustments WHERE series_id = ?1 ORDER BY period, seq");
   audit_ = db_.Prepare(
       "INSERT INTO audit(at_ms, who, action, series_key, detail) VALUES(?1, ?2, ?3, ?4, ?5)");
-  for (const Stmt* s : {&begin_, &commit_, &rollback_, &savepoint_, &release_, &rollback_to_,
-                        &insert_series_, &insert_checkpoint_, &update_state_, &update_checkpoint_, &load_checkpoint_,
-                        &put_actual_, &get_actual_, &oldest_actual_, &actuals_, &drop_actuals_, &drop_adjustments_,
-                        &put_adjustment_, &adjustments_, &audit_})
+  for (const Stmt* s : {&begin_,
+                        &commit_,
+                        &rollback_,
+                        &savepoint_,
+                        &release_,
+                        &rollback_to_,
+                        &insert_series_,
+                        &insert_checkpoint_,
+                        &update_state_,
+                        &update_checkpoint_,
+                        &load_checkpoint_,
+                        &put_actual_,
+                        &get_actual_,
+                        &oldest_actual_,
+                        &actuals_,
+                        &drop_actuals_,
+                        &drop_adjustments_,
+                        &put_adjustment_,
+                        &adjustments_,
+                        &audit_})
     if (!s->valid()) return false;
   return true;
 }
@@ -188,12 +208,24 @@ bool Store::Migrate() {
   return true;
 }
 
-bool Store::Begin() { return begin_.Run(); }
-bool Store::Commit() { return commit_.Run(); }
-bool Store::Rollback() { return rollback_.Run(); }
-bool Store::Savepoint() { return savepoint_.Run(); }
-bool Store::ReleaseSavepoint() { return release_.Run(); }
-bool Store::RollbackToSavepoint() { return rollback_to_.Run() && release_.Run(); }
+bool Store::Begin() {
+  return begin_.Run();
+}
+bool Store::Commit() {
+  return commit_.Run();
+}
+bool Store::Rollback() {
+  return rollback_.Run();
+}
+bool Store::Savepoint() {
+  return savepoint_.Run();
+}
+bool Store::ReleaseSavepoint() {
+  return release_.Run();
+}
+bool Store::RollbackToSavepoint() {
+  return rollback_to_.Run() && release_.Run();
+}
 
 bool Store::CountSeries(std::int64_t& count) {
   Stmt q = db_.Prepare("SELECT count(*) FROM series");
@@ -260,7 +292,8 @@ bool Store::UpdateCheckpoint(std::int64_t id, const monitors::SeriesState& check
 bool Store::LoadCheckpoint(std::int64_t id, monitors::SeriesState& checkpoint) {
   load_checkpoint_.Bind(1, id);
   if (!load_checkpoint_.Step()) return false;
-  if (!load_checkpoint_.Row()) return db_.Fail("series " + std::to_string(id) + " has no checkpoint");
+  if (!load_checkpoint_.Row())
+    return db_.Fail("series " + std::to_string(id) + " has no checkpoint");
   const bool ok = DecodeState(load_checkpoint_.Blob(0), checkpoint);
   load_checkpoint_.Reset();
   return ok ? true : db_.Fail("series " + std::to_string(id) + ": the checkpoint cannot be read");
@@ -320,7 +353,12 @@ bool Store::Adjustments(std::int64_t id, std::vector<Adjustment>& out) {
 
 bool Store::Audit(std::int64_t at_unix_ms, const std::string& who, const std::string& action,
                   const std::string& series_key, const std::string& detail) {
-  return audit_.Bind(1, at_unix_ms).Bind(2, who).Bind(3, action).Bind(4, series_key).Bind(5, detail).Run();
+  return audit_.Bind(1, at_unix_ms)
+      .Bind(2, who)
+      .Bind(3, action)
+      .Bind(4, series_key)
+      .Bind(5, detail)
+      .Run();
 }
 
 }  // namespace forewarden

@@ -25,9 +25,9 @@ struct StoredSeries {
   std::string policy;
   std::string labels;  // JSON object text
   monitors::SeriesState state;
-  std::int64_t retained = 0;          // actuals kept
-  std::int64_t oldest_period = 0;     // oldest retained actual's period (when retained > 0)
-  std::int64_t newest_period = 0;     // newest retained actual's period (when retained > 0)
+  std::int64_t retained = 0;       // actuals kept
+  std::int64_t oldest_period = 0;  // oldest retained actual's period (when retained > 0)
+  std::int64_t newest_period = 0;  // newest retained actual's period (when retained > 0)
 };
 
 struct StoredActual {

@@ -34,11 +34,12 @@ int main(int argc, char** argv) {
   }
   sqlite3* db = nullptr;
   if (sqlite3_open(argv[2], &db) != SQLITE_OK) return 1;
-  sqlite3_exec(db,
-               "PRAGMA journal_mode=WAL; PRAGMA synchronous=FULL;"
-               "CREATE TABLE IF NOT EXISTS actuals(series_id INTEGER NOT NULL, period TEXT NOT NULL,"
-               " value REAL NOT NULL, PRIMARY KEY(series_id, period)) WITHOUT ROWID;",
-               nullptr, nullptr, nullptr);
+  sqlite3_exec(
+      db,
+      "PRAGMA journal_mode=WAL; PRAGMA synchronous=FULL;"
+      "CREATE TABLE IF NOT EXISTS actuals(series_id INTEGER NOT NULL, period TEXT NOT NULL,"
+      " value REAL NOT NULL, PRIMARY KEY(series_id, period)) WITHOUT ROWID;",
+      nullptr, nullptr, nullptr);
   sqlite3_stmt* insert = nullptr;
   sqlite3_prepare_v2(db, "INSERT OR REPLACE INTO actuals VALUES(?1, ?2, ?3)", -1, &insert, nullptr);
   const auto t0 = std::chrono::steady_clock::now();
@@ -46,7 +47,8 @@ int main(int argc, char** argv) {
     sqlite3_exec(db, "BEGIN", nullptr, nullptr, nullptr);
     for (long n = 0; n < batch && i < rows.size(); ++n, ++i) {
       sqlite3_bind_int64(insert, 1, rows[i].series);
-      sqlite3_bind_text(insert, 2, rows[i].period.data(), static_cast<int>(rows[i].period.size()), SQLITE_STATIC);
+      sqlite3_bind_text(insert, 2, rows[i].period.data(), static_cast<int>(rows[i].period.size()),
+                        SQLITE_STATIC);
       sqlite3_bind_double(insert, 3, rows[i].value);
       if (sqlite3_step(insert) != SQLITE_DONE) return 1;
       sqlite3_reset(insert);

@@ -48,7 +48,9 @@ TEST_CASE("every problem is reported with file, line, column and key path", "[un
       "bad.yaml");
   REQUIRE(r.problems.size() == 5);
   const std::string all = AllProblems(r);
-  CHECK_THAT(all, Catch::Contains("bad.yaml:4:13: policies[0].period: must be day, week or month, got 'fortnight'"));
+  CHECK_THAT(all,
+             Catch::Contains(
+                 "bad.yaml:4:13: policies[0].period: must be day, week or month, got 'fortnight'"));
   CHECK_THAT(all, Catch::Contains("bad.yaml:5:13: policies[0].method: must be ses, holt"));
   CHECK_THAT(all, Catch::Contains("bad.yaml:6:12: policies[0].alpha: must be in [0, 1], got 1.5"));
   CHECK_THAT(all, Catch::Contains("bad.yaml:7:5: policies[0].colour: unknown key"));
@@ -86,34 +88,46 @@ TEST_CASE("settings that cannot work are refused", "[unit]") {
        "alpha: must be a number, got 'abc'"},
       {"policies:\n  - {name: a, match: '*', period: week, alpha: .nan}\n",
        "alpha: must be a finite number"},
-      {"policies:\n  - {name: a, match: '*', period: week}\n  - {name: a, match: '*', period: day}\n",
+      {"policies:\n  - {name: a, match: '*', period: week}\n  - {name: a, match: '*', period: "
+       "day}\n",
        "policy name 'a' is used twice"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: 4, clear: 5}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: "
+       "4, clear: 5}]}\n",
        "clear: must not exceed the limit"},
       {"policies:\n  - {name: a, match: '*', period: week, start: {fitted: 2}}\n",
        "fitted needs at least 3 periods"},
       {"policies:\n  - {name: a, match: '*', period: week, gaps: fill}\n",
        "gaps: must be zero or skip"},
       {"policies: [\n", "not valid YAML"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: bias, limit: 0.2}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: bias, limit: "
+       "0.2}]}\n",
        "a bias rule needs 'periods'"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: stale, periods: 3, limit: 2}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: stale, "
+       "periods: 3, limit: 2}]}\n",
        "a stale rule takes 'periods', not 'limit'"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: alpha_at_cap, periods: 3}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: alpha_at_cap, "
+       "periods: 3}]}\n",
        "an alpha_at_cap rule needs an adaptive policy"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: trigg, limit: 0.5, false_alert_every: 52}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: trigg, limit: "
+       "0.5, false_alert_every: 52}]}\n",
        "give either 'limit' or 'false_alert_every'"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: 4, escalate_limit: 3}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: "
+       "4, escalate_limit: 3}]}\n",
        "escalate_limit: must be beyond the limit"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: 4, severity: critical, escalate_limit: 6}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: cusum, limit: "
+       "4, severity: critical, escalate_limit: 6}]}\n",
        "escalate_severity must be above"},
-      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: accuracy, periods: 4, limit: 0.3, direction: over-forecast}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: accuracy, "
+       "periods: 4, limit: 0.3, direction: over-forecast}]}\n",
        "this signal has no direction"},
-      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: w, type: webhook, url: 'https://x'}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: w, type: "
+       "webhook, url: 'https://x'}]}\n",
        "needs an http:// URL"},
-      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: l, type: log, secret_env: X}]}\n",
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: l, type: log, "
+       "secret_env: X}]}\n",
        "only webhook sinks take a secret"},
-      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {initial_backoff_seconds: 10, max_backoff_seconds: 5}\n",
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {initial_backoff_seconds: 10, "
+       "max_backoff_seconds: 5}\n",
        "must not be below initial_backoff_seconds"},
   };
   for (const Case& c : cases) {
@@ -130,7 +144,8 @@ TEST_CASE("series take the first policy whose key glob and labels match", "[unit
       "policies:\n"
       "  - {name: web, match: {key: 'north/*', labels: {channel: web}}, period: day}\n"
       "  - {name: north, match: 'north/*', period: week}\n"
-      "  - {name: slow, match: '*/sku-9????" "', period: week}\n",
+      "  - {name: slow, match: '*/sku-9????"
+      "', period: week}\n",
       "m.yaml");
   REQUIRE(r.ok());
   auto name = [&](const char* key, std::vector<std::pair<std::string, std::string>> labels = {}) {
@@ -146,7 +161,8 @@ TEST_CASE("series take the first policy whose key glob and labels match", "[unit
   CHECK_FALSE(config::GlobMatch("a*b*c", "a-x-c-y-b"));
 }
 
-TEST_CASE("the server section and the fallback policy load with their defaults and bounds", "[unit]") {
+TEST_CASE("the server section and the fallback policy load with their defaults and bounds",
+          "[unit]") {
   auto r = LoadSettingsText(
       "server:\n"
       "  listen: 127.0.0.1:9100\n"
@@ -192,8 +208,9 @@ TEST_CASE("a false-alarm budget becomes a derived limit, shown with its expected
   REQUIRE(p.calibrations.size() == 1);
   const monitors::RuleSpec& drift = p.spec.rules[0];
   // derived, not configured: far beyond the textbook 4 MADs (16 % of in-control periods beyond
-  // it at alpha 0.1 even from a perfect start, REFERENCES.md C36, simulated by tests/reference/simulated_tables.py), because C also keeps the
-  // error of each series' start (monitors/calibrate.h)
+  // it at alpha 0.1 even from a perfect start, REFERENCES.md C36, simulated by
+  // tests/reference/simulated_tables.py), because C also keeps the error of each series' start
+  // (monitors/calibrate.h)
   CHECK(drift.limit > 8.0);
   CHECK(drift.limit < 60.0);
   CHECK(drift.clear == Approx(0.5 * drift.limit));

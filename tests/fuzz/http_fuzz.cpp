@@ -31,23 +31,26 @@ World& TheWorld() {
     World world;
     const std::string dir = std::filesystem::temp_directory_path() /
                             ("forewarden-fuzz-http-" + std::to_string(getpid()));
-    auto loaded = config::LoadSettingsText(
-        "server: {data: '" + dir + "', synchronous: normal, max_rows_per_batch: 50}\n"
-        "policies:\n"
-        "  - {name: a, match: 'n/*', period: week, warmup: 1,\n"
-        "     rules: [{name: r, signal: cusum, limit: 1, resolve_after: 2}, {name: s, signal: stale, periods: 2}]}\n"
-        "  - {name: b, match: '*', period: day, method: holt}\n"
-        "alerts: {sinks: []}\n",
-        "fuzz.yaml");
+    auto loaded =
+        config::LoadSettingsText("server: {data: '" + dir +
+                                     "', synchronous: normal, max_rows_per_batch: 50}\n"
+                                     "policies:\n"
+                                     "  - {name: a, match: 'n/*', period: week, warmup: 1,\n"
+                                     "     rules: [{name: r, signal: cusum, limit: 1, "
+                                     "resolve_after: 2}, {name: s, signal: stale, periods: 2}]}\n"
+                                     "  - {name: b, match: '*', period: day, method: holt}\n"
+                                     "alerts: {sinks: []}\n",
+                                 "fuzz.yaml");
     if (!loaded.ok()) std::abort();
     world.settings = std::make_shared<const config::Settings>(std::move(loaded.settings));
-    world.engine = std::make_unique<forewarden::Engine>(world.settings, [] { return std::int64_t{1796169600000}; });
+    world.engine = std::make_unique<forewarden::Engine>(world.settings,
+                                                        [] { return std::int64_t{1796169600000}; });
     std::string error;
     if (!world.engine->Start(error)) std::abort();
     world.metrics = std::make_unique<forewarden::Metrics>();
     world.metrics->SetSources(forewarden::MetricSources{world.engine.get()});
-    world.api = std::make_unique<forewarden::Api>(*world.engine, world.settings, "fuzz-token-0123456789",
-                                                  world.metrics.get());
+    world.api = std::make_unique<forewarden::Api>(*world.engine, world.settings,
+                                                  "fuzz-token-0123456789", world.metrics.get());
     return world;
   }();
   return w;
@@ -77,8 +80,18 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
   });
   const forewarden::HttpResponse out = answer->get_future().get();
   switch (out.status) {
-    case 200: case 400: case 401: case 404: case 405: case 409: case 413: case 415: case 503: break;
-    default: std::abort();
+    case 200:
+    case 400:
+    case 401:
+    case 404:
+    case 405:
+    case 409:
+    case 413:
+    case 415:
+    case 503:
+      break;
+    default:
+      std::abort();
   }
   if (out.content_type == "application/json" &&
       nlohmann::json::parse(out.body, nullptr, false).is_discarded())

@@ -21,11 +21,13 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
       if (p.line < 1 || p.field.empty() || p.message.empty()) std::abort();
     if (b.problem_count < static_cast<long>(b.problems.size())) std::abort();
   }
-  for (auto kind : {monitors::PeriodKind::kDay, monitors::PeriodKind::kWeek, monitors::PeriodKind::kMonth}) {
+  for (auto kind :
+       {monitors::PeriodKind::kDay, monitors::PeriodKind::kWeek, monitors::PeriodKind::kMonth}) {
     const monitors::PeriodParse p = monitors::ParsePeriod(kind, text.substr(0, 16));
     if (p.ok()) {
       // a parsed period prints as a date that parses back to the same period
-      const monitors::PeriodParse again = monitors::ParsePeriod(kind, monitors::FormatPeriod(kind, p.ordinal));
+      const monitors::PeriodParse again =
+          monitors::ParsePeriod(kind, monitors::FormatPeriod(kind, p.ordinal));
       if (!again.ok() || again.ordinal != p.ordinal) std::abort();
     }
   }

@@ -17,6 +17,20 @@ import urllib.request
 
 sys.path.insert(0, os.path.dirname(__file__))
 import harness  # noqa: E402
+
+ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+sys.path.insert(0, os.path.join(ROOT, "deploy", "webhook"))
+import receiver as webhook_receiver  # noqa: E402
+
+
+class headers_of(dict):
+    """Request headers with case-insensitive lookup, as a receiver sees them."""
+
+    def __init__(self, headers):
+        super().__init__({k.lower(): v for k, v in headers.items()})
+
+    def get(self, name, default=None):
+        return super().get(name.lower(), default)
 from harness import Server, run, temp_dir  # noqa: E402
 
 SECRET = "s3cret-for-tests"
@@ -297,11 +311,17 @@ def test_webhook_signature_outage_and_recovery():
         for path, headers, raw, down in rx.requests:
             if down:
                 continue
-            sig = headers["X-Forewarden-Signature"]
-            assert sig == "sha256=" + hmac.new(SECRET.encode(), raw, hashlib.sha256).hexdigest()
+            # RFC 9421 signature over the exact bytes (deploy/webhook/receiver.py's verify)
+            assert webhook_receiver.verify("POST", rx.url("/hook"), headers_of(headers), raw,
+                                           {"forewarden": SECRET.encode()}) == "forewarden"
+            with_other_body = raw.replace(b'"kind"', b'"kinD"')
+            try:
+                webhook_receiver.verify("POST", rx.url("/hook"), headers_of(headers), with_other_body,
+                                        {"forewarden": SECRET.encode()})
+                raise AssertionError("a changed body verified")
+            except webhook_receiver.Refused:
+                pass
             body = json.loads(raw)
-            assert headers["X-Forewarden-Event"] == body["kind"]
-            assert headers["X-Forewarden-Delivery"] == body["idempotency_key"]
             assert body["idempotency_key"].endswith("-%d" % body["event_id"])
         opened = [e for e in events if e["kind"] == "opened"]
         assert opened and opened[0]["alert"]["url"].startswith("http://127.0.0.1:"), opened
@@ -338,6 +358,63 @@ def test_reloads_during_delivery_change_nothing_delivered():
         ids = [e["event_id"] for e in rx.accepted()]
         assert ids == sorted(set(ids)), ids
         assert rx.accepted()[-1]["alert"]["url"].startswith("http://planning-5.invalid/"), rx.accepted()[-1]
+    finally:
+        srv.stop()
+        rx.close()
+
+
+def test_signed_webhooks_verify_with_the_receiver_script_and_keys_rotate():
+    """deploy/webhook/receiver.py, run as the sink, verifies every delivery; then the key
+    rotates (key_id k2 with the new secret, the old one as previous_secret_file): each message
+    carries both signatures, so a receiver that knows only the old key and one that knows only
+    the new key both accept it; a receiver with neither refuses."""
+    tdir = temp_dir()
+    old = os.path.join(tdir, "old.secret")
+    new = os.path.join(tdir, "new.secret")
+    with open(old, "w") as f:
+        f.write(SECRET + "\n")
+    with open(new, "w") as f:
+        f.write("a-new-webhook-secret-of-2026\n")
+    port = free_port()
+    url = "http://127.0.0.1:%d/hook" % port
+    script = os.path.join(ROOT, "deploy", "webhook", "receiver.py")
+    proc = subprocess.Popen([sys.executable, script, "--listen", "127.0.0.1:%d" % port, "--url", url,
+                             "--key", "forewarden=" + old], stdout=subprocess.PIPE, text=True)
+    sink = """  sinks:
+    - {name: hook, type: webhook, url: '%s', secret_file: '%s'}
+""" % (url, old)
+    srv = Server(settings(sink))
+    try:
+        assert proc.stdout.readline().startswith("listening on"), "receiver did not start"
+        feed = "series,period,value\n" + csv_rows("north/up", UP)
+        assert srv.post_csv(feed)[0] == 200
+        line = proc.stdout.readline()
+        assert line.startswith("verified ") and line.strip().endswith(" by forewarden"), line
+        wait_for("no pending deliveries", lambda: delivered_all(srv, "hook"))
+    finally:
+        srv.stop()
+        proc.kill()
+        proc.wait()
+    # rotation, against a receiver inside the test that keeps the raw requests
+    rx = Receiver()
+    rotating = """  sinks:
+    - {name: hook, type: webhook, url: '%s', secret_file: '%s', key_id: k2,
+       previous_secret_file: '%s', previous_key_id: forewarden}
+""" % (rx.url("/hook"), new, old)
+    srv = Server(settings(rotating))
+    try:
+        assert srv.post_csv("series,period,value\n" + csv_rows("north/up", UP))[0] == 200
+        path, headers, raw, _ = rx.wait("a delivery", lambda reqs: reqs and reqs[0])
+        h = headers_of(headers)
+        assert "forewarden-previous=" in h.get("Signature-Input"), h
+        assert webhook_receiver.verify("POST", rx.url("/hook"), h, raw, {"forewarden": SECRET.encode()}) == "forewarden"
+        assert webhook_receiver.verify("POST", rx.url("/hook"), h, raw,
+                                       {"k2": b"a-new-webhook-secret-of-2026"}) == "k2"
+        try:
+            webhook_receiver.verify("POST", rx.url("/hook"), h, raw, {"k3": b"someone else"})
+            raise AssertionError("an unknown key verified")
+        except webhook_receiver.Refused:
+            pass
     finally:
         srv.stop()
         rx.close()
@@ -507,6 +584,7 @@ receivers:
 if __name__ == "__main__":
     sys.exit(run([test_lifecycle_api_and_replay_agree, test_webhook_signature_outage_and_recovery,
                   test_reloads_during_delivery_change_nothing_delivered,
+                  test_signed_webhooks_verify_with_the_receiver_script_and_keys_rotate,
                   test_kill9_with_undelivered_events_delivers_after_restart, test_dead_letters_and_retry,
                   test_storm_is_grouped, test_policies_show_derived_limits,
                   test_alertmanager_shows_alerts_open_then_resolved]))

@@ -1,6 +1,7 @@
-// Calibrated limits against simulated reference tables (REFERENCES.md F4; check values C35-C37, simulated by tests/reference/simulated_tables.py; rows of
-// section 9.4, all derived by simulation there with other generators and seeds, so agreement
-// within the stated tolerances is an independent check of ours).
+// Calibrated limits against simulated reference tables (REFERENCES.md F4; check values C35-C37,
+// simulated by tests/reference/simulated_tables.py; rows of section 9.4, all derived by simulation
+// there with other generators and seeds, so agreement within the stated tolerances is an
+// independent check of ours).
 #include "monitors/calibrate.h"
 
 #include <algorithm>
@@ -31,7 +32,8 @@ monitors::PolicySpec Ses(double alpha, double beta, monitors::RuleSpec rule) {
 }  // namespace
 
 TEST_CASE("steady-state 95% point of |T| with iid errors matches Table A", "[reference]") {
-  // REFERENCES.md Table A / C35 (simulated, seed 12345): 0.538 (beta 0.1), 0.735 (beta 0.2), +/- 0.01, >= 1e5 draws.
+  // REFERENCES.md Table A / C35 (simulated, seed 12345): 0.538 (beta 0.1), 0.735 (beta 0.2), +/-
+  // 0.01, >= 1e5 draws.
   monitors::SimulationSize size;
   size.paths = 200;
   size.burn_in = 1000;
@@ -47,7 +49,8 @@ TEST_CASE("steady-state 95% point of |T| with iid errors matches Table A", "[ref
 }
 
 TEST_CASE("in-control run length of |T| > 0.51 at beta 0.1 matches the reference", "[reference]") {
-  // REFERENCES.md C37 (simulated, seed 2024): mean ~58 periods (median ~42), +/- 10 %; start E = 0, M = E|e|.
+  // REFERENCES.md C37 (simulated, seed 2024): mean ~58 periods (median ~42), +/- 10 %; start E = 0,
+  // M = E|e|.
   monitors::SimulationSize size;
   size.paths = 20000;
   size.burn_in = 0;
@@ -63,9 +66,10 @@ TEST_CASE("in-control run length of |T| > 0.51 at beta 0.1 matches the reference
   CHECK(rl[rl.size() / 2] == Approx(42).epsilon(0.10));
 }
 
-TEST_CASE("SES in-control process: P(|C/M| > 4) at alpha = beta = 0.1 matches Table B", "[reference]") {
-  // REFERENCES.md Table B / C36 (simulated, seed 777): 0.162 +/- 0.01 (SES on an iid level, F from the true mean,
-  // no cusum reset). This checks the in-control process the calibration runs.
+TEST_CASE("SES in-control process: P(|C/M| > 4) at alpha = beta = 0.1 matches Table B",
+          "[reference]") {
+  // REFERENCES.md Table B / C36 (simulated, seed 777): 0.162 +/- 0.01 (SES on an iid level, F from
+  // the true mean, no cusum reset). This checks the in-control process the calibration runs.
   monitors::RuleSpec r;
   r.signal = SignalKind::kCusum;
   monitors::SimulationSize size;
@@ -113,7 +117,8 @@ TEST_CASE("a calibrated limit gives the budgeted rate on fresh paths", "[propert
   CHECK(monitors::CalibrateRule(p, 0, 104, 1.0).limit == c.limit);
 }
 
-TEST_CASE("the windowed cumulative signal forgets the start, so its derived limit is far lower", "[property]") {
+TEST_CASE("the windowed cumulative signal forgets the start, so its derived limit is far lower",
+          "[property]") {
   monitors::RuleSpec classic;
   classic.signal = SignalKind::kCusum;
   monitors::RuleSpec windowed = classic;

@@ -17,12 +17,14 @@ TEST_CASE("fitted ses on fpp2 oil finds R's optimum", "[reference]") {
   CHECK(fit.sse == Approx(14235.5875).margin(0.01));
   monitors::ModelState s = fit.start;
   for (std::size_t t = 0; t < testdata::kOilFpp2.size(); ++t)
-    monitors::UpdateModel(Method::kSes, fit.constants, s, static_cast<long>(t), testdata::kOilFpp2[t]);
+    monitors::UpdateModel(Method::kSes, fit.constants, s, static_cast<long>(t),
+                          testdata::kOilFpp2[t]);
   CHECK(s.level == Approx(542.6806).margin(0.01));
 }
 
 TEST_CASE("fitted ses on fpp1 oil agrees with R and statsmodels", "[reference]") {
-  // REFERENCES.md C20, statsmodels 0.13.5 test_holtwinters.py (oil 1996-2007): R alpha 0.891956, l0 447.4836; statsmodels 0.891998, 447.4784.
+  // REFERENCES.md C20, statsmodels 0.13.5 test_holtwinters.py (oil 1996-2007): R alpha 0.891956, l0
+  // 447.4836; statsmodels 0.891998, 447.4784.
   auto fit = FitStart(Method::kSes, Constants{}, testdata::kOilFpp1);
   CHECK(fit.constants.alpha == Approx(0.891956).margin(1e-3));
   CHECK(fit.start.level == Approx(447.4836).margin(0.05));
@@ -30,8 +32,9 @@ TEST_CASE("fitted ses on fpp1 oil agrees with R and statsmodels", "[reference]")
 }
 
 TEST_CASE("fitted ses on the NIST data runs to the alpha = 1 boundary", "[reference]") {
-  // REFERENCES.md C8, R 4.2.2 HoltWinters on the NIST 6.4.3.1 data: SSE-optimal alpha ~1.0 (R 0.99993), SSE ~139.0 with S2 = y1.
-  // With a free start level the first error vanishes too, so the SSE is the same 139.0.
+  // REFERENCES.md C8, R 4.2.2 HoltWinters on the NIST 6.4.3.1 data: SSE-optimal alpha ~1.0 (R
+  // 0.99993), SSE ~139.0 with S2 = y1. With a free start level the first error vanishes too, so the
+  // SSE is the same 139.0.
   auto fit = FitStart(Method::kSes, Constants{}, testdata::kNist);
   CHECK(fit.constants.alpha == Approx(1.0).margin(1e-3));
   CHECK(fit.sse == Approx(139.0).margin(0.01));

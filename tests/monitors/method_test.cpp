@@ -14,7 +14,8 @@ namespace {
 
 // Runs `method` from `start` over y; returns the one-step forecasts F(1..n) and leaves the
 // state after the last period in `s`.
-std::vector<double> Run(Method method, const Constants& c, ModelState& s, const std::vector<double>& y) {
+std::vector<double> Run(Method method, const Constants& c, ModelState& s,
+                        const std::vector<double>& y) {
   std::vector<double> f;
   for (std::size_t t = 0; t < y.size(); ++t) {
     auto fc = monitors::ForecastNext(method, c, s, static_cast<long>(t));
@@ -48,13 +49,13 @@ TEST_CASE("ses on the NIST handbook data reproduces the smoothed values", "[refe
   std::vector<double> rest(testdata::kNist.begin() + 1, testdata::kNist.end());
   ModelState s2 = s;
   auto f = Run(Method::kSes, c, s2, rest);  // f[k] = S(k+2)
-  const double expected[] = {70.9, 70.71, 70.439, 69.7951, 69.31559, 69.584031, 70.4256279,
-                             70.88306511, 71.29475860, 71.66528274};
+  const double expected[] = {70.9,      70.71,      70.439,      69.7951,     69.31559,
+                             69.584031, 70.4256279, 70.88306511, 71.29475860, 71.66528274};
   for (int k = 0; k < 10; ++k) CHECK(f[k + 1] == Approx(expected[k]).margin(1e-6));
-  CHECK(s2.level == Approx(71.49875447).margin(1e-6));                  // #2 forecast t = 13
-  CHECK(Sse(rest, f) == Approx(208.8184097).margin(1e-6));              // #3
-  CHECK(Sse(rest, f) / 11 == Approx(18.98349).margin(1e-5));            // #4
-  CHECK(f[10] == Approx(71.7).margin(0.05));                            // #5 NIST-432 text
+  CHECK(s2.level == Approx(71.49875447).margin(1e-6));        // #2 forecast t = 13
+  CHECK(Sse(rest, f) == Approx(208.8184097).margin(1e-6));    // #3
+  CHECK(Sse(rest, f) / 11 == Approx(18.98349).margin(1e-5));  // #4
+  CHECK(f[10] == Approx(71.7).margin(0.05));                  // #5 NIST-432 text
 }
 
 TEST_CASE("ses with alpha 0.5 on the NIST data gives the recomputed SSE", "[reference]") {
@@ -83,7 +84,8 @@ TEST_CASE("ses on fpp1 oil matches statsmodels' shipped results", "[reference]")
   }
 }
 
-TEST_CASE("ses on fpp2 oil with the published constants gives the published forecast", "[reference]") {
+TEST_CASE("ses on fpp2 oil with the published constants gives the published forecast",
+          "[reference]") {
   // REFERENCES.md C12, published: FPP2 sec. 7.1 summary(ses(oildata)).
   Constants c;
   c.alpha = 0.8338901402;
@@ -96,7 +98,8 @@ TEST_CASE("ses on fpp2 oil with the published constants gives the published fore
 }
 
 TEST_CASE("ses weights decay geometrically", "[reference]") {
-  // REFERENCES.md C14, by hand (exact): feeding a unit impulse k periods ago gives weight alpha(1-alpha)^k.
+  // REFERENCES.md C14, by hand (exact): feeding a unit impulse k periods ago gives weight
+  // alpha(1-alpha)^k.
   const double expected[] = {0.2, 0.16, 0.128, 0.1024, 0.08192, 0.065536};
   for (int k = 0; k < 6; ++k) {
     Constants c;
@@ -148,8 +151,9 @@ TEST_CASE("holt on fpp1 air passengers matches the R fpp value", "[reference]") 
 }
 
 TEST_CASE("additive Holt-Winters with the previous-level seasonal update", "[reference]") {
-  // REFERENCES.md C43, by hand, statsmodels ETSModel agrees: aust data (statsmodels test_holtwinters.py), m = 4, alpha .3,
-  // beta .1, gamma .2, l0 35, b0 .5, s0 = (7, -10, -3, 6); statsmodels ETSModel agrees.
+  // REFERENCES.md C43, by hand, statsmodels ETSModel agrees: aust data (statsmodels
+  // test_holtwinters.py), m = 4, alpha .3, beta .1, gamma .2, l0 35, b0 .5, s0 = (7, -10, -3, 6);
+  // statsmodels ETSModel agrees.
   Constants c;
   c.alpha = 0.3;
   c.beta = 0.1;
@@ -177,7 +181,7 @@ TEST_CASE("croston and sba follow R forecast's croston on an intermittent series
   ModelState s;
   auto f = Run(Method::kCroston, c, s, y);
   CHECK(std::isnan(f[0]));
-  CHECK(std::isnan(f[2]));          // no forecast before the first demand
+  CHECK(std::isnan(f[2]));           // no forecast before the first demand
   CHECK(f[3] == Approx(5.0 / 3.0));  // first size 5, first interval 3 (counted from time 0)
   CHECK(s.size == Approx(4.918).margin(1e-12));
   CHECK(s.interval == Approx(3.191).margin(1e-12));

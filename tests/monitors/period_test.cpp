@@ -14,7 +14,8 @@ static std::string Normalised(PeriodKind kind, const char* text) {
 
 TEST_CASE("a day parses to itself and consecutive days are one period apart", "[unit]") {
   CHECK(Normalised(PeriodKind::kDay, "2026-03-04") == "2026-03-04");
-  auto a = ParsePeriod(PeriodKind::kDay, "2024-02-28"), b = ParsePeriod(PeriodKind::kDay, "2024-03-01");
+  auto a = ParsePeriod(PeriodKind::kDay, "2024-02-28"),
+       b = ParsePeriod(PeriodKind::kDay, "2024-03-01");
   CHECK(monitors::PeriodDistance(a.ordinal, b.ordinal) == 2);  // 2024 is a leap year
   CHECK(FormatPeriod(PeriodKind::kDay, monitors::NextPeriod(a.ordinal)) == "2024-02-29");
 }
@@ -30,14 +31,16 @@ TEST_CASE("any date inside an ISO week normalises to its Monday", "[unit]") {
   CHECK(Normalised(PeriodKind::kWeek, "2020-W53") == "2020-12-28");  // 2020 has 53 ISO weeks
   CHECK(Normalised(PeriodKind::kWeek, "1970-01-01") == "1969-12-29");
   CHECK(Normalised(PeriodKind::kWeek, "1969-12-28") == "1969-12-22");
-  auto a = ParsePeriod(PeriodKind::kWeek, "2025-12-31"), b = ParsePeriod(PeriodKind::kWeek, "2026-01-07");
+  auto a = ParsePeriod(PeriodKind::kWeek, "2025-12-31"),
+       b = ParsePeriod(PeriodKind::kWeek, "2026-01-07");
   CHECK(b.ordinal - a.ordinal == 1);
 }
 
 TEST_CASE("any date inside a month normalises to its first day", "[unit]") {
   CHECK(Normalised(PeriodKind::kMonth, "2026-02-17") == "2026-02-01");
   CHECK(Normalised(PeriodKind::kMonth, "2026-02") == "2026-02-01");
-  auto a = ParsePeriod(PeriodKind::kMonth, "2025-11"), b = ParsePeriod(PeriodKind::kMonth, "2026-02-28");
+  auto a = ParsePeriod(PeriodKind::kMonth, "2025-11"),
+       b = ParsePeriod(PeriodKind::kMonth, "2026-02-28");
   CHECK(monitors::PeriodDistance(a.ordinal, b.ordinal) == 3);
 }
 
@@ -49,19 +52,20 @@ TEST_CASE("impossible or malformed periods are rejected with a clear message", "
   CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "2026-1-01").ok());
   CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "26-01-01").ok());
   CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "").ok());
-  CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "2026-03").ok());      // a month is not a day
-  CHECK_FALSE(ParsePeriod(PeriodKind::kMonth, "2026-W03").ok());   // a week is not a month
-  CHECK_FALSE(ParsePeriod(PeriodKind::kWeek, "2025-W53").ok());    // 2025 has 52 ISO weeks
-  CHECK(ParsePeriod(PeriodKind::kWeek, "2026-W53").ok());          // 2026 starts on a Thursday: 53
+  CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "2026-03").ok());     // a month is not a day
+  CHECK_FALSE(ParsePeriod(PeriodKind::kMonth, "2026-W03").ok());  // a week is not a month
+  CHECK_FALSE(ParsePeriod(PeriodKind::kWeek, "2025-W53").ok());   // 2025 has 52 ISO weeks
+  CHECK(ParsePeriod(PeriodKind::kWeek, "2026-W53").ok());         // 2026 starts on a Thursday: 53
   CHECK_FALSE(ParsePeriod(PeriodKind::kWeek, "2026-W00").ok());
   CHECK(ParsePeriod(PeriodKind::kDay, "2024-02-29").ok());
   CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "2023-02-29").ok());
-  CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "1900-02-29").ok());   // century rule
-  CHECK(ParsePeriod(PeriodKind::kDay, "2000-02-29").ok());         // 400-year rule
+  CHECK_FALSE(ParsePeriod(PeriodKind::kDay, "1900-02-29").ok());  // century rule
+  CHECK(ParsePeriod(PeriodKind::kDay, "2000-02-29").ok());        // 400-year rule
 }
 
 TEST_CASE("civil day numbers round-trip over four centuries", "[unit]") {
-  for (std::int64_t d = monitors::DaysFromCivil(1900, 1, 1); d < monitors::DaysFromCivil(2300, 1, 1); d += 13) {
+  for (std::int64_t d = monitors::DaysFromCivil(1900, 1, 1);
+       d < monitors::DaysFromCivil(2300, 1, 1); d += 13) {
     int y, m, day;
     monitors::CivilFromDays(d, y, m, day);
     REQUIRE(monitors::DaysFromCivil(y, m, day) == d);

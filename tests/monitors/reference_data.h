@@ -21,10 +21,9 @@ inline const std::vector<double> kOilFpp1 = {
     506.04816210000001, 526.79198329999997, 514.26888899999994, 494.21101929999998};
 
 // Australian air passengers 1990-2004 (fpp1 ausair), statsmodels' test_holtwinters.py.
-inline const std::vector<double> kAirFpp1 = {17.5534, 21.8601, 23.8866, 26.9293, 26.8885,
-                                             28.8314, 30.0751, 30.9535, 30.1857, 31.5797,
-                                             32.577569, 33.477398, 39.021581, 41.386432,
-                                             41.596552};
+inline const std::vector<double> kAirFpp1 = {17.5534,   21.8601,   23.8866,   26.9293,   26.8885,
+                                             28.8314,   30.0751,   30.9535,   30.1857,   31.5797,
+                                             32.577569, 33.477398, 39.021581, 41.386432, 41.596552};
 
 // International visitor nights in Australia, quarterly 2005-2010 (fpp1 austourists subset),
 // statsmodels' test_holtwinters.py `aust`.

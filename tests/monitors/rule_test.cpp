@@ -58,7 +58,9 @@ TEST_CASE("an undefined signal leaves a rule as it was", "[unit]") {
   CHECK(EvaluateRule(r, st, 2.0) == RuleChange::kOpened);
 }
 
-TEST_CASE("rule states keep their values across growing past the inline capacity, shrinking and copying", "[unit]") {
+TEST_CASE(
+    "rule states keep their values across growing past the inline capacity, shrinking and copying",
+    "[unit]") {
   monitors::RuleStates s;
   s.assign(3, RuleState{});
   s[2].run = 7;
@@ -85,7 +87,8 @@ TEST_CASE("rule states keep their values across growing past the inline capacity
   CHECK(st.run == 65535);  // saturates
 }
 
-TEST_CASE("an episode spans the holding periods and ends after resolve_after clear ones", "[unit]") {
+TEST_CASE("an episode spans the holding periods and ends after resolve_after clear ones",
+          "[unit]") {
   RuleSpec r;
   r.limit = r.clear = 0.5;
   r.resolve_after = 2;

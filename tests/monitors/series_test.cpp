@@ -26,7 +26,8 @@ std::vector<StepResult> Feed(const PolicySpec& p, SeriesState& s, const std::vec
 }
 
 PolicySpec StepTestPolicy(bool lagged, double floor, double cap) {
-  // REFERENCES.md C38-C40 step test, by hand: 10 (t = 1..10) then 20 (t = 11..16); F(1) = 10, beta 0.2, E0 = 0, M0 = 1.
+  // REFERENCES.md C38-C40 step test, by hand: 10 (t = 1..10) then 20 (t = 11..16); F(1) = 10, beta
+  // 0.2, E0 = 0, M0 = 1.
   PolicySpec p;
   p.start.kind = monitors::StartKind::kExplicit;
   p.start.level = 10;
@@ -50,7 +51,9 @@ TEST_CASE("Trigg-Leach immediate adaptive alpha on a step", "[reference]") {
   const double next[] = {10, 19.5882, 19.9838, 19.9994, 20.0000, 20.0000, 20.0000};
   for (int k = 0; k < 7; ++k) {
     CHECK(r[9 + k].alpha == Approx(alpha[k]).margin(1e-4));
-    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16);
+    const double f_next =
+        k < 6 ? r[10 + k].forecast
+              : *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16);
     CHECK(f_next == Approx(next[k]).margin(1e-4));
   }
   CHECK(r[10].alpha == Approx(0.958819).margin(1e-6));
@@ -65,7 +68,9 @@ TEST_CASE("Trigg-Leach lagged adaptive alpha on a step", "[reference]") {
   const double next[] = {10, 10, 19.5882, 19.9923, 19.9999, 20.0000, 20.0000};
   for (int k = 0; k < 7; ++k) {
     CHECK(r[9 + k].alpha == Approx(alpha[k]).margin(1e-4));
-    const double f_next = k < 6 ? r[10 + k].forecast : *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16);
+    const double f_next =
+        k < 6 ? r[10 + k].forecast
+              : *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16);
     CHECK(f_next == Approx(next[k]).margin(1e-4));
   }
 }
@@ -79,7 +84,8 @@ TEST_CASE("Trigg-Leach alpha clamped to a floor and a cap", "[reference]") {
   for (int k = 10; k < 16; ++k) CHECK(r[k].alpha == 0.5);
   const double next[] = {15, 17.5, 18.75, 19.375, 19.6875};
   for (int k = 0; k < 5; ++k) CHECK(r[11 + k].forecast == Approx(next[k]).margin(1e-9));
-  CHECK(*monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16) == Approx(19.84375).margin(1e-9));
+  CHECK(*monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 16) ==
+        Approx(19.84375).margin(1e-9));
 }
 
 TEST_CASE("first-actual: period 1 has no forecast and period 2's forecast is actual 1", "[unit]") {
@@ -214,7 +220,8 @@ TEST_CASE("croston reports no forecast and no statistics before the first demand
   CHECK(r[3].forecast == Approx(0.95 * 5.0 / 3.0));
 }
 
-TEST_CASE("through Step, the cumulative error of fixed-alpha ses is (F(n+1) - F(2)) / alpha", "[property]") {
+TEST_CASE("through Step, the cumulative error of fixed-alpha ses is (F(n+1) - F(2)) / alpha",
+          "[property]") {
   // REFERENCES.md F2 identity, by hand; random data, first-actual start.
   std::mt19937_64 gen(2024);
   std::uniform_real_distribution<double> u(0, 500);
@@ -225,7 +232,8 @@ TEST_CASE("through Step, the cumulative error of fixed-alpha ses is (F(n+1) - F(
     std::vector<double> y(300);
     for (double& v : y) v = u(gen);
     auto r = Feed(p, s, y);
-    const double f_next = *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 300);
+    const double f_next =
+        *monitors::ForecastNext(p.method, monitors::EffectiveConstants(p, s), s.model, 300);
     CHECK(r.back().stats.cusum == Approx((f_next - r[1].forecast) / alpha).epsilon(1e-9));
   }
 }
@@ -297,7 +305,8 @@ TEST_CASE("alpha_at_cap holds after the adaptive constant stays at its cap", "[u
   CHECK(opened_at == 13);  // at the cap from t = 11: the third period is t = 13
 }
 
-TEST_CASE("stale rule: an actual after a long gap reports one episode, opened and ended", "[unit]") {
+TEST_CASE("stale rule: an actual after a long gap reports one episode, opened and ended",
+          "[unit]") {
   monitors::RuleSpec stale;
   stale.name = "stale";
   stale.signal = monitors::SignalKind::kStale;

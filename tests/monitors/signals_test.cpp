@@ -22,14 +22,17 @@ std::vector<double> NistErrors() {
 }
 }  // namespace
 
-TEST_CASE("Trigg's signal and the cusum on the NIST data match the derived check values", "[reference]") {
-  // REFERENCES.md C27-C30, by hand on the NIST 6.4.3.1 data: beta 0.2, E = e and M = |e| at the first error.
+TEST_CASE("Trigg's signal and the cusum on the NIST data match the derived check values",
+          "[reference]") {
+  // REFERENCES.md C27-C30, by hand on the NIST 6.4.3.1 data: beta 0.2, E = e and M = |e| at the
+  // first error.
   const auto e = NistErrors();
   ErrorStats s;
   s.smoothed_error = e[0];
   s.mad = std::fabs(e[0]);
   s.cusum = e[0];
-  std::vector<double> trigg = {*monitors::TriggSignal(s)}, cusum = {s.cusum}, cs = {s.cusum / s.mad};
+  std::vector<double> trigg = {*monitors::TriggSignal(s)}, cusum = {s.cusum},
+                      cs = {s.cusum / s.mad};
   for (std::size_t t = 1; t < e.size(); ++t) {
     monitors::UpdateErrorStats(s, 0.2, e[t]);
     trigg.push_back(*monitors::TriggSignal(s));
@@ -37,8 +40,8 @@ TEST_CASE("Trigg's signal and the cusum on the NIST data match the derived check
     cs.push_back(*monitors::CusumSignal(s));
   }
   const double t_expected[] = {-1, -1, -1, -1, -1, -0.6283, 0.0578, 0.2675, 0.4142, 0.5219, 0.3794};
-  const double c_expected[] = {-1, -2.9, -5.61, -12.049, -16.8441, -14.1597, -5.7437, -1.1693,
-                               2.9476, 6.6528, 4.9875};
+  const double c_expected[] = {-1,      -2.9,    -5.61,  -12.049, -16.8441, -14.1597,
+                               -5.7437, -1.1693, 2.9476, 6.6528,  4.9875};
   for (int k = 0; k < 11; ++k) {
     CHECK(trigg[k] == Approx(t_expected[k]).margin(1e-4));
     CHECK(cusum[k] == Approx(c_expected[k]).margin(1e-4));
@@ -49,7 +52,8 @@ TEST_CASE("Trigg's signal and the cusum on the NIST data match the derived check
   CHECK(cs[3] == Approx(-4.8651).margin(1e-4));  // crosses -4 at t = 5
 }
 
-TEST_CASE("the cumulative error of fixed-alpha ses is the forecast's move over alpha", "[property]") {
+TEST_CASE("the cumulative error of fixed-alpha ses is the forecast's move over alpha",
+          "[property]") {
   // REFERENCES.md F2 identity, C9, by hand: sum of 11 errors = (71.49875447 - 71)/0.1.
   const auto e = NistErrors();
   ErrorStats s;
@@ -104,7 +108,8 @@ TEST_CASE("the steady-state variance of the smoothed error is beta/(2-beta)", "[
 }
 
 TEST_CASE("the 95% point of |Trigg| on iid errors matches the simulated table", "[reference]") {
-  // REFERENCES.md Table A / C35 (simulated by tests/reference/simulated_tables.py): beta 0.1 -> 0.538, beta 0.2 -> 0.735
+  // REFERENCES.md Table A / C35 (simulated by tests/reference/simulated_tables.py): beta 0.1 ->
+  // 0.538, beta 0.2 -> 0.735
   // (+/- 0.01 with >= 1e5 draws). E0 = 0, M0 = sqrt(2/pi), burn-in 1000.
   std::mt19937_64 gen(12345);
   std::normal_distribution<double> n01;
@@ -124,9 +129,11 @@ TEST_CASE("the 95% point of |Trigg| on iid errors matches the simulated table", 
   }
 }
 
-TEST_CASE("the +/-4 MAD cusum rule fires on about 16% of in-control periods at alpha 0.1", "[reference]") {
-  // REFERENCES.md Table B / C36 (simulated by tests/reference/simulated_tables.py): SES alpha = beta = 0.1 on an iid N(0,1)
-  // level, forecast starting at the true mean, no reset: P(|C/M| > 4) = 0.162 +/- 0.01.
+TEST_CASE("the +/-4 MAD cusum rule fires on about 16% of in-control periods at alpha 0.1",
+          "[reference]") {
+  // REFERENCES.md Table B / C36 (simulated by tests/reference/simulated_tables.py): SES alpha =
+  // beta = 0.1 on an iid N(0,1) level, forecast starting at the true mean, no reset: P(|C/M| > 4) =
+  // 0.162 +/- 0.01.
   std::mt19937_64 gen(777);
   std::normal_distribution<double> n01;
   long beyond = 0, count = 0;
@@ -159,7 +166,8 @@ TEST_CASE("adaptive alpha is |E/M| clamped, and keeps its value while M is zero"
   CHECK(monitors::AdaptiveAlpha(spec, s, 0.3) == Approx(0.2));
 }
 
-TEST_CASE("in-control run length to a false alarm at the quoted Trigg limit is about 58 periods", "[reference]") {
+TEST_CASE("in-control run length to a false alarm at the quoted Trigg limit is about 58 periods",
+          "[reference]") {
   // REFERENCES.md C37 [simulated by tests/reference/simulated_tables.py, iid errors, E0 = 0,
   // M0 = E|e|]: beta 0.1 with limit 0.51 gives a mean run length of ~58 periods (+/- 10 %).
   std::mt19937_64 gen(2024);

@@ -16,14 +16,17 @@ using testing_support::TempDir;
 namespace {
 
 std::shared_ptr<const config::Settings> Settings(const std::string& data) {
-  auto r = config::LoadSettingsText("server: {data: '" + data + "'}\n"
-                                    "policies:\n  - {name: weekly, match: 'w/*', period: week}\n",
-                                    "test.yaml");
+  auto r =
+      config::LoadSettingsText("server: {data: '" + data +
+                                   "'}\n"
+                                   "policies:\n  - {name: weekly, match: 'w/*', period: week}\n",
+                               "test.yaml");
   REQUIRE(r.ok());
   return std::make_shared<const config::Settings>(std::move(r.settings));
 }
 
-HttpRequest Request(const std::string& method, const std::string& target, const std::string& body = "") {
+HttpRequest Request(const std::string& method, const std::string& target,
+                    const std::string& body = "") {
   HttpRequest r;
   r.method = method;
   r.target = target;
@@ -60,7 +63,8 @@ struct World {
 
 }  // namespace
 
-TEST_CASE("a handler that throws is answered 500, counted, and the service goes on", "[integration]") {
+TEST_CASE("a handler that throws is answered 500, counted, and the service goes on",
+          "[integration]") {
   World w;
   Api& api = w.api;
   // thrown while answering on the request's own thread
@@ -80,7 +84,8 @@ TEST_CASE("a handler that throws is answered 500, counted, and the service goes 
   CHECK(api.counters().internal_errors.load() == 2);
 }
 
-TEST_CASE("domain errors map to HTTP statuses in one place and bodies are checked field by field", "[unit]") {
+TEST_CASE("domain errors map to HTTP statuses in one place and bodies are checked field by field",
+          "[unit]") {
   World w;
   struct Case {
     const char* method;
@@ -89,7 +94,8 @@ TEST_CASE("domain errors map to HTTP statuses in one place and bodies are checke
     int status;
     const char* text;
   } cases[] = {
-      {"POST", "/v1/series/w/a/reset", R"({"to": 5, "who": "x"})", 400, "field to: must be a string"},
+      {"POST", "/v1/series/w/a/reset", R"({"to": 5, "who": "x"})", 400,
+       "field to: must be a string"},
       {"POST", "/v1/series/w/a/reset", R"({"to": "last", "who": "x"})", 404, "no series 'w/a'"},
       {"POST", "/v1/alerts/1/resolve", R"({"by": "x"})", 404, "no alert 1"},
       {"POST", "/v1/alerts/0/resolve", R"({"by": "x"})", 404, "no such alert: 0"},

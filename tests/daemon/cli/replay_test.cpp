@@ -59,7 +59,9 @@ TEST_CASE("replay writes one row per actual with the contract's columns", "[inte
   for (int t = 0; t < 12; ++t) {
     csv += "nist,2026-W" + std::string(t + 1 < 10 ? "0" : "") + std::to_string(t + 1) + "," +
            forewarden::FormatNumber(nist[t]) + "\n";
-    if (t < 3) csv += "\"other, quoted\",2026-01-" + std::to_string(13 + 7 * t) + "," + std::to_string(t) + ".5\n";
+    if (t < 3)
+      csv += "\"other, quoted\",2026-01-" + std::to_string(13 + 7 * t) + "," + std::to_string(t) +
+             ".5\n";
   }
   Run r = Replay(dir, csv);
   INFO(r.err);
@@ -107,13 +109,15 @@ TEST_CASE("replay refuses bad input with the line and field, and writes nothing"
       {"series,period,value\na,2026-01-05,\n", "line 2, field value: '' is not a number"},
       {"series,period,value\na,2026-01-05,1\na,2026-01-12,nan\n",
        "line 3, field value: the value is not a finite number"},
-      {"series,period,value\na,2026-01-05,inf\n", "line 2, field value: the value is not a finite number"},
+      {"series,period,value\na,2026-01-05,inf\n",
+       "line 2, field value: the value is not a finite number"},
       {"series,period,value\na,2026-02-30,1\n",
        "line 2, field period: '2026-02-30' is not a date: February 2026 has 28 days"},
       {"series,period,value\n,2026-01-05,1\n", "line 2, field series: the series key is empty"},
       {"series,period,value\na,2026-01-12,1\nb,2026-01-05,1\na,2026-01-05,2\n",
        "line 4, field period: period 2026-01-05 is not after the series' last period 2026-01-12"},
-      {"series,period,value\na,2026-01-05,1\na,2026-01-07,2\n", "line 3, field period: period 2026-01-05 is not after"},
+      {"series,period,value\na,2026-01-05,1\na,2026-01-07,2\n",
+       "line 3, field period: period 2026-01-05 is not after"},
       {"series,period,value\na,2026-01-05\n", "line 2: expected 3 fields, found 2"},
       {"series,period,value\n\"a,2026-01-05,1\n", "line 2: a quoted field is not closed"},
   };
@@ -132,7 +136,8 @@ TEST_CASE("replay rejects series no policy takes and settings that do not load",
   Run r = Replay(dir, "series,period,value\nsouth/x,2026-01-05,1\n",
                  "policies:\n  - {name: n, match: 'north/*', period: week}\n");
   CHECK(r.rc == 2);
-  CHECK_THAT(r.err, Catch::Contains("line 2, field series: no policy matches the series 'south/x'"));
+  CHECK_THAT(r.err,
+             Catch::Contains("line 2, field series: no policy matches the series 'south/x'"));
   r = Replay(dir, "series,period,value\n", "policies:\n  - {name: n, match: '*', period: year}\n");
   CHECK(r.rc == 2);
   CHECK_THAT(r.err, Catch::Contains("s.yaml:2:35: policies[0].period: must be day, week or month"));
@@ -174,9 +179,10 @@ TEST_CASE("simulate is deterministic for a seed and replays cleanly", "[integrat
   TempDir dir;
   std::ostringstream out, err;
   auto sim = [&](const std::string& file, const char* seed) {
-    return forewarden::RunCommand({"simulate", "--series", "50", "--periods", "30", "--seed", seed,
-                                   "--output", dir.File(file), "--truth", dir.File(file + ".truth")},
-                                  out, err);
+    return forewarden::RunCommand(
+        {"simulate", "--series", "50", "--periods", "30", "--seed", seed, "--output",
+         dir.File(file), "--truth", dir.File(file + ".truth")},
+        out, err);
   };
   REQUIRE(sim("a.csv", "5") == 0);
   REQUIRE(sim("b.csv", "5") == 0);
@@ -194,15 +200,17 @@ TEST_CASE("simulate is deterministic for a seed and replays cleanly", "[integrat
   CHECK(Lines(TempDir::Read(dir.File("r.csv"))).size() == 1 + 50 * 30);
 }
 
-TEST_CASE("a bad row after many good ones still writes nothing (regression: use after free)", "[integration]") {
+TEST_CASE("a bad row after many good ones still writes nothing (regression: use after free)",
+          "[integration]") {
   // Rows travel to formatter threads in blocks of 8,192; a bad row late in the input must
   // abandon the queued blocks before the series keys they point into are freed.
   TempDir dir;
   std::string csv = "series,period,value\n";
   for (int t = 0; t < 30; ++t)
     for (int k = 0; k < 1000; ++k)
-      csv += "s" + std::to_string(k) + "," + monitors::FormatPeriod(monitors::PeriodKind::kWeek, 2900 + t) +
-             "," + std::to_string((k * 7 + t * 3) % 50) + "\n";
+      csv += "s" + std::to_string(k) + "," +
+             monitors::FormatPeriod(monitors::PeriodKind::kWeek, 2900 + t) + "," +
+             std::to_string((k * 7 + t * 3) % 50) + "\n";
   csv += "s1,2026-02-30,1\n";
   Run r = Replay(dir, csv);
   CHECK(r.rc == 2);

@@ -15,7 +15,8 @@ using testing_support::TempDir;
 
 namespace {
 
-std::shared_ptr<const config::Settings> Settings(const std::string& data, const std::string& extra = "") {
+std::shared_ptr<const config::Settings> Settings(const std::string& data,
+                                                 const std::string& extra = "") {
   auto r = config::LoadSettingsText(
       "server: {data: '" + data + "'}\n" + extra +
           "policies:\n"
@@ -54,10 +55,12 @@ IngestRow Row(const std::string& key, std::int64_t week, double v, long line = 2
 }
 
 // The state replay would reach on these (period, value) pairs, in order.
-std::string ReplayState(const config::Policy& p, const std::vector<std::pair<std::int64_t, double>>& data) {
+std::string ReplayState(const config::Policy& p,
+                        const std::vector<std::pair<std::int64_t, double>>& data) {
   monitors::SeriesState s = monitors::NewSeriesState(p.spec);
   monitors::StepResult r;
-  for (auto [period, v] : data) REQUIRE(monitors::Step(p.spec, s, period, v, r) == monitors::StepStatus::kOk);
+  for (auto [period, v] : data)
+    REQUIRE(monitors::Step(p.spec, s, period, v, r) == monitors::StepStatus::kOk);
   return forewarden::EncodeState(s);
 }
 
@@ -72,7 +75,10 @@ std::string EngineState(Engine& e, const std::string& key) {
 
 }  // namespace
 
-TEST_CASE("the engine applies actuals like replay, and restatements equal replay of the corrected history", "[integration]") {
+TEST_CASE(
+    "the engine applies actuals like replay, and restatements equal replay of the corrected "
+    "history",
+    "[integration]") {
   TempDir dir;
   auto settings = Settings(dir.File("data"));
   Engine e(settings, [] { return std::int64_t{0}; });
@@ -134,7 +140,8 @@ TEST_CASE("a batch with one bad row applies nothing, not even its new series", "
   IngestRow bad = Row("z/b", 3000, 1, 4);
   bad.period = "2026-02-30";
   IngestRow nomatch = Row("q/c", 3000, 1, 5);
-  IngestReply r = SubmitAndWait(e, {Row("z/a", 3001, 6, 2), Row("z/new", 3000, 1, 3), bad, nomatch});
+  IngestReply r =
+      SubmitAndWait(e, {Row("z/a", 3001, 6, 2), Row("z/new", 3000, 1, 3), bad, nomatch});
   REQUIRE(r.status == IngestReply::Status::kRejected);
   REQUIRE(r.problems.size() == 2);
   CHECK(r.problems[0].line == 4);
@@ -157,19 +164,24 @@ TEST_CASE("gap rules and late actuals for filled or skipped periods", "[integrat
   Engine e(settings, [] { return std::int64_t{0}; });
   std::string error;
   REQUIRE(e.Start(error));
-  IngestReply r = SubmitAndWait(e, {Row("z/a", 3000, 10), Row("z/a", 3003, 10), Row("s/a", 3000, 10),
-                                    Row("s/a", 3001, 12), Row("s/a", 3004, 18)});
+  IngestReply r =
+      SubmitAndWait(e, {Row("z/a", 3000, 10), Row("z/a", 3003, 10), Row("s/a", 3000, 10),
+                        Row("s/a", 3001, 12), Row("s/a", 3004, 18)});
   REQUIRE(r.status == IngestReply::Status::kOk);
   CHECK(r.counts.filled == 4);
-  CHECK(EngineState(e, "z/a") == ReplayState(settings->policies[0], {{3000, 10}, {3001, 0}, {3002, 0}, {3003, 10}}));
+  CHECK(EngineState(e, "z/a") ==
+        ReplayState(settings->policies[0], {{3000, 10}, {3001, 0}, {3002, 0}, {3003, 10}}));
   // the late actual of a zero-filled period is a restatement
   r = SubmitAndWait(e, {Row("z/a", 3001, 9), Row("s/a", 3002, 14)});
   CHECK(r.counts.restated == 2);
-  CHECK(EngineState(e, "z/a") == ReplayState(settings->policies[0], {{3000, 10}, {3001, 9}, {3002, 0}, {3003, 10}}));
-  CHECK(EngineState(e, "s/a") == ReplayState(settings->policies[1], {{3000, 10}, {3001, 12}, {3002, 14}, {3004, 18}}));
+  CHECK(EngineState(e, "z/a") ==
+        ReplayState(settings->policies[0], {{3000, 10}, {3001, 9}, {3002, 0}, {3003, 10}}));
+  CHECK(EngineState(e, "s/a") ==
+        ReplayState(settings->policies[1], {{3000, 10}, {3001, 12}, {3002, 14}, {3004, 18}}));
 }
 
-TEST_CASE("history is recomputed by the same step, and a reset re-levels and is audited", "[integration]") {
+TEST_CASE("history is recomputed by the same step, and a reset re-levels and is audited",
+          "[integration]") {
   TempDir dir;
   auto settings = Settings(dir.File("data"));
   Engine e(settings, [] { return std::int64_t{0}; });
@@ -213,10 +225,11 @@ TEST_CASE("history is recomputed by the same step, and a reset re-levels and is 
   CHECK(EngineState(e, "z/a") == live);
 }
 
-TEST_CASE("a series is stale once stale_after whole periods have ended without an actual", "[integration]") {
+TEST_CASE("a series is stale once stale_after whole periods have ended without an actual",
+          "[integration]") {
   TempDir dir;
   auto settings = Settings(dir.File("data"));  // policy "zero": weekly, stale_after 2 (default)
-  std::atomic<std::int64_t> now_ms{0};  // the engine thread reads the clock too
+  std::atomic<std::int64_t> now_ms{0};         // the engine thread reads the clock too
   Engine e(settings, [&] { return now_ms.load(); });
   std::string error;
   REQUIRE(e.Start(error));

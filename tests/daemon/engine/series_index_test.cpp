@@ -12,7 +12,9 @@ struct KeyOf {
 };
 }  // namespace
 
-TEST_CASE("the series index finds every key it holds and none it does not, through growth and erasure", "[unit]") {
+TEST_CASE(
+    "the series index finds every key it holds and none it does not, through growth and erasure",
+    "[unit]") {
   std::vector<std::string> keys;
   forewarden::SeriesIndex<KeyOf> index(KeyOf{&keys});
   for (int i = 0; i < 20000; ++i) {
@@ -20,7 +22,8 @@ TEST_CASE("the series index finds every key it holds and none it does not, throu
     index.Insert(keys.back(), keys.size() - 1);
   }
   CHECK(index.size() == 20000);
-  for (std::size_t i = 0; i < keys.size(); ++i) REQUIRE(index.Find(keys[i]) == static_cast<long>(i));
+  for (std::size_t i = 0; i < keys.size(); ++i)
+    REQUIRE(index.Find(keys[i]) == static_cast<long>(i));
   CHECK(index.Find("south/none") == -1);
   // erase from the back (what the engine does when a batch is rolled back), then some more
   std::mt19937 gen(11);
@@ -28,7 +31,8 @@ TEST_CASE("the series index finds every key it holds and none it does not, throu
     index.Erase(keys.back());
     keys.pop_back();
   }
-  for (std::size_t i = 0; i < keys.size(); ++i) REQUIRE(index.Find(keys[i]) == static_cast<long>(i));
+  for (std::size_t i = 0; i < keys.size(); ++i)
+    REQUIRE(index.Find(keys[i]) == static_cast<long>(i));
   CHECK(index.Find("north/store-0/sku-19999") == -1);
   CHECK(index.size() == 15000);
   keys.push_back("north/store-0/sku-19999");

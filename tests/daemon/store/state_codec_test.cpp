@@ -31,7 +31,9 @@ TEST_CASE("a decoded state continues exactly like the original, for every method
     p.rules = {rule, rule, bias};
     monitors::SeriesState a = monitors::NewSeriesState(p);
     monitors::StepResult r;
-    for (int t = 0; t < 6; ++t) REQUIRE(monitors::Step(p, a, 100 + t, t % 3 ? u(gen) + 1 : 0.5, r) == monitors::StepStatus::kOk);
+    for (int t = 0; t < 6; ++t)
+      REQUIRE(monitors::Step(p, a, 100 + t, t % 3 ? u(gen) + 1 : 0.5, r) ==
+              monitors::StepStatus::kOk);
     const std::string bytes = forewarden::EncodeState(a);
     monitors::SeriesState b;
     REQUIRE(forewarden::DecodeState(bytes, b));
@@ -82,7 +84,7 @@ TEST_CASE("states written in formats 1 and 2 still decode", "[unit]") {
   const std::string v3 = forewarden::EncodeState(s);
   // Format 2: no quiet count after the rule's run and flags, no window at the end.
   std::string v2 = v3.substr(0, v3.size() - 6);  // window capacity (2) and length (4)
-  v2.erase(v2.size() - 8 - 1, 1);                 // the rule's quiet count before `active` bits
+  v2.erase(v2.size() - 8 - 1, 1);                // the rule's quiet count before `active` bits
   v2[0] = 2;
   std::string v1 = v2;
   v1[0] = 1;
@@ -102,7 +104,8 @@ TEST_CASE("a series with fitted constants keeps them through encoding", "[unit]"
   monitors::SeriesState a = monitors::NewSeriesState(p);
   monitors::StepResult r;
   const double y[] = {10, 12, 13, 15, 16, 18, 21, 22, 24, 25};
-  for (int t = 0; t < 10; ++t) REQUIRE(monitors::Step(p, a, 50 + t, y[t], r) == monitors::StepStatus::kOk);
+  for (int t = 0; t < 10; ++t)
+    REQUIRE(monitors::Step(p, a, 50 + t, y[t], r) == monitors::StepStatus::kOk);
   REQUIRE(a.own.get() != nullptr);  // the fit chose them
   monitors::SeriesState b;
   REQUIRE(forewarden::DecodeState(forewarden::EncodeState(a), b));

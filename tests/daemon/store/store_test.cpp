@@ -21,7 +21,8 @@ TEST_CASE("the store keeps series, actuals and adjustments across a reopen", "[i
     REQUIRE(store.Open(dir.File("data"), true));
     CHECK(store.schema_version() == 3);
     REQUIRE(store.Begin());
-    REQUIRE(store.InsertSeries("north/store-1/sku-1", "weekly", "{\"channel\":\"store\"}", state, id));
+    REQUIRE(
+        store.InsertSeries("north/store-1/sku-1", "weekly", "{\"channel\":\"store\"}", state, id));
     for (int p = 10; p < 15; ++p) REQUIRE(store.PutActual(id, p, p * 1.5));
     REQUIRE(store.PutActual(id, 12, 99.0));  // replaces
     REQUIRE(store.PutAdjustment(id, {13, 42.0}));
@@ -88,7 +89,8 @@ TEST_CASE("a rolled-back savepoint leaves nothing behind", "[integration]") {
   REQUIRE(store.Rollback());
 }
 
-TEST_CASE("a version 1 database is migrated and keeps its series and checkpoints", "[integration]") {
+TEST_CASE("a version 1 database is migrated and keeps its series and checkpoints",
+          "[integration]") {
   TempDir dir;
   std::filesystem::create_directories(dir.File("old"));
   forewarden::Db db;
@@ -102,13 +104,16 @@ TEST_CASE("a version 1 database is migrated and keeps its series and checkpoints
       "INSERT INTO meta VALUES('schema_version', '1');"
       "CREATE TABLE series(id INTEGER PRIMARY KEY, key TEXT NOT NULL UNIQUE, policy TEXT NOT NULL,"
       " labels TEXT NOT NULL DEFAULT '{}', state BLOB NOT NULL, checkpoint BLOB NOT NULL);"
-      "CREATE TABLE actuals(series_id INTEGER NOT NULL, period INTEGER NOT NULL, value REAL NOT NULL,"
+      "CREATE TABLE actuals(series_id INTEGER NOT NULL, period INTEGER NOT NULL, value REAL NOT "
+      "NULL,"
       " PRIMARY KEY(series_id, period)) WITHOUT ROWID;"
-      "CREATE TABLE adjustments(series_id INTEGER NOT NULL, period INTEGER NOT NULL, level REAL NOT NULL,"
+      "CREATE TABLE adjustments(series_id INTEGER NOT NULL, period INTEGER NOT NULL, level REAL "
+      "NOT NULL,"
       " seq INTEGER PRIMARY KEY AUTOINCREMENT);"
       "CREATE TABLE audit(id INTEGER PRIMARY KEY, at_ms INTEGER NOT NULL, who TEXT NOT NULL,"
       " action TEXT NOT NULL, series_key TEXT NOT NULL, detail TEXT NOT NULL);"));
-  forewarden::Stmt insert = db.Prepare("INSERT INTO series VALUES(7, 'w/a', 'weekly', '{}', ?1, ?1)");
+  forewarden::Stmt insert =
+      db.Prepare("INSERT INTO series VALUES(7, 'w/a', 'weekly', '{}', ?1, ?1)");
   REQUIRE(insert.BindBlob(1, blob).Run());
   insert = forewarden::Stmt();
   db = forewarden::Db();
