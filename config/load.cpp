@@ -49,7 +49,10 @@ const std::set<std::string> kServerKeys = {"listen",
                                            "max_key_bytes",
                                            "max_labels",
                                            "max_label_bytes",
-                                           "max_series"};
+                                           "max_series",
+                                           "tls_cert_file",
+                                           "tls_key_file",
+                                           "tls_terminated_by_proxy"};
 const std::set<std::string> kPolicyKeys = {"name",
                                            "match",
                                            "period",
@@ -86,6 +89,7 @@ const std::set<std::string> kAlertsKeys = {
     "max_backoff_seconds", "batch", "resend_seconds", "public_url",
     "check_seconds"};
 const std::set<std::string> kSinkKeys = {"name",
+                                         "ca_file",
                                          "type",
                                          "url",
                                          "secret_file",
@@ -705,13 +709,14 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
          {std::pair{"url", &sink.url}, std::pair{"secret_file", &sink.secret_file},
           std::pair{"secret_env", &sink.secret_env}, std::pair{"key_id", &sink.key_id},
           std::pair{"previous_secret_file", &sink.previous_secret_file},
-          std::pair{"previous_key_id", &sink.previous_key_id}})
+          std::pair{"previous_key_id", &sink.previous_key_id}, std::pair{"ca_file", &sink.ca_file}})
       if (k[key].IsDefined()) r.String(k[key], Reader::Join(sp, key), *out);
     r.Int(k, "timeout_seconds", sp, sink.timeout_seconds, 1, 3600);
     if (sink.kind != Sink::Kind::kLog) {
-      if (sink.url.rfind("http://", 0) != 0)
-        r.Add(k["url"].IsDefined() ? k["url"] : k, sp + ".url",
-              "needs an http:// URL (TLS is not built in: put a local TLS proxy in front)");
+      if (sink.url.rfind("http://", 0) != 0 && sink.url.rfind("https://", 0) != 0)
+        r.Add(k["url"].IsDefined() ? k["url"] : k, sp + ".url", "needs an http:// or https:// URL");
+      if (!sink.ca_file.empty() && sink.url.rfind("https://", 0) != 0)
+        r.Add(k["ca_file"], Reader::Join(sp, "ca_file"), "a CA file needs an https:// url");
     } else if (!sink.url.empty()) {
       r.Add(k["url"], sp + ".url", "a log sink takes no url");
     }
@@ -742,9 +747,11 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
     return;
   }
   r.CheckKeys(n, path, kServerKeys);
-  for (auto [key, out] : {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
-                          std::pair{"token_file", &s.token_file},
-                          std::pair{"token_env", &s.token_env}, std::pair{"folder", &s.folder}})
+  for (auto [key, out] :
+       {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
+        std::pair{"token_file", &s.token_file}, std::pair{"token_env", &s.token_env},
+        std::pair{"folder", &s.folder}, std::pair{"tls_cert_file", &s.tls_cert_file},
+        std::pair{"tls_key_file", &s.tls_key_file}})
     if (n[key].IsDefined()) r.String(n[key], Reader::Join(path, key), *out);
   if (n["listen"].IsDefined() && s.listen.rfind(':') == std::string::npos)
     r.Add(n["listen"], path + ".listen", "must be HOST:PORT, got '" + s.listen + "'");
@@ -782,6 +789,18 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   r.Int(n, "state_flush_series", path, s.state_flush_series, 1, 100000000);
   if (!s.token_file.empty() && !s.token_env.empty())
     r.Add(n, path, "give token_file or token_env, not both");
+  if (s.tls_cert_file.empty() != s.tls_key_file.empty())
+    r.Add(n, path, "tls_cert_file and tls_key_file come together");
+  if (n["tls_terminated_by_proxy"].IsDefined()) {
+    std::string text;
+    if (r.String(n["tls_terminated_by_proxy"], path + ".tls_terminated_by_proxy", text)) {
+      if (text == "true" || text == "false")
+        s.tls_terminated_by_proxy = text == "true";
+      else
+        r.Add(n["tls_terminated_by_proxy"], path + ".tls_terminated_by_proxy",
+              "must be true or false, got '" + text + "'");
+    }
+  }
 }
 
 }  // namespace

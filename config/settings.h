@@ -49,6 +49,7 @@ struct Sink {
   std::string secret_file;            // webhook: HMAC-SHA256 key, read from this file...
   std::string secret_env;             // ...or this environment variable
   std::string key_id = "forewarden";  // the keyid the signature names
+  std::string ca_file;  // https:// URLs: a CA (PEM) trusted besides the system's store
   // Key rotation: while set, each message carries a second signature with the previous key.
   std::string previous_secret_file;
   std::string previous_key_id;
@@ -77,8 +78,12 @@ enum class Synchronous { kFull, kNormal };
 struct Server {
   std::string listen = "127.0.0.1:8700";
   std::string data = "./forewarden-data";
-  std::string token_file;  // bearer token for write endpoints, read from this file...
-  std::string token_env;   // ...or from this environment variable
+  std::string token_file;     // bearer token for write endpoints, read from this file...
+  std::string token_env;      // ...or from this environment variable
+  std::string tls_cert_file;  // the listener over TLS: certificate chain (PEM), reloaded on SIGHUP
+  std::string tls_key_file;   // ...and its private key (PEM)
+  bool tls_terminated_by_proxy =
+      false;  // a proxy in front terminates TLS for a non-loopback listener
   Synchronous synchronous = Synchronous::kFull;
   long max_body_bytes = 16 << 20;
   long max_rows_per_batch = 200000;

@@ -10,7 +10,7 @@ build_pkgs=(cmake g++ ninja-build ccache pkg-config libboost-dev libboost-system
             libssl-dev curl python3)
 test_pkgs=(python3 python3-statsmodels python3-pandas python3-numpy r-base-core r-cran-forecast
            prometheus prometheus-alertmanager systemd clang libclang-rt-14-dev
-           clang-format clang-tidy)
+           clang-format clang-tidy openssl)
 
 want=("${build_pkgs[@]}")
 if [[ "${1:-}" == "--test" ]]; then want+=("${test_pkgs[@]}"); fi

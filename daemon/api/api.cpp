@@ -68,7 +68,6 @@ int HttpStatusOf(ErrorKind kind) {
     case ErrorKind::kConflict:
       return 409;
     case ErrorKind::kBusy:
-      return 503;
     case ErrorKind::kStoreFailed:
       return 503;
     case ErrorKind::kInternal:

@@ -1,5 +1,6 @@
 #include "daemon/cli/commands.h"
 
+#include <cmath>
 #include <cstdio>
 #include <cstdlib>
 #include <iostream>
@@ -12,6 +13,7 @@
 #include "daemon/cli/serve.h"
 #include "daemon/cli/simulate.h"
 #include "daemon/cli/text_out.h"
+#include "daemon/common/parse_number.h"
 #include "daemon/store/backup.h"
 
 namespace forewarden {
@@ -29,7 +31,7 @@ commands:
   serve --config FILE [--listen HOST:PORT] [--data DIR]
         Run the service: HTTP API (default 127.0.0.1:8700), durable store in the data
         folder, optional drop folder. SIGHUP reloads the settings; SIGTERM stops gracefully.
-  push FILE --url URL [--batch N] [--token-file F]
+  push FILE --url URL [--batch N] [--token-file F] [--ca-file F]
         Send an actuals CSV to a running service in batches of N rows (default 5000).
   backup --data DIR --to FILE
         Copy the store of a service's data folder to FILE while the service runs (SQLite
@@ -128,7 +130,7 @@ int CheckConfig(const std::vector<std::string>& args, std::ostream& out, std::os
     for (const auto& r : s.rules) {
       out << "    rule " << r.name << ": " << monitors::SignalKindName(r.signal);
       if (r.signal == monitors::SignalKind::kStale) {
-        out << " after " << static_cast<int>(r.limit + 0.5) << " periods past due";
+        out << " after " << std::lround(r.limit) << " periods past due";
       } else if (r.signal == monitors::SignalKind::kAlphaAtCap) {
         out << " for " << r.persistence << " periods";
       } else {
@@ -291,22 +293,23 @@ int RunCommand(const std::vector<std::string>& args, std::ostream& out, std::ost
   if (cmd == "simulate") return Simulate(args, err);
   if (cmd == "push") {
     if (args.size() < 2 || args[1].rfind("--", 0) == 0) {
-      err << "usage: forewarden push FILE --url URL [--batch N] [--token-file F]\n";
+      err << "usage: forewarden push FILE --url URL [--batch N] [--token-file F] [--ca-file F]\n";
       return 2;
     }
     std::map<std::string, std::string> flags;
-    if (!ParseFlags(args, 2, {"url", "batch", "token-file"}, flags, err)) return 2;
+    if (!ParseFlags(args, 2, {"url", "batch", "token-file", "ca-file"}, flags, err)) return 2;
     PushOptions o;
     o.file = args[1];
     o.url = flags.count("url") ? flags["url"] : "http://127.0.0.1:8700";
     o.token_file = flags["token-file"];
+    o.ca_file = flags["ca-file"];
     if (flags.count("batch")) {
-      double v = 0;
-      if (!ToNumber(flags["batch"], v) || v < 1 || v > 10000000) {
-        err << "forewarden push: --batch must be a whole number of rows, 1..10000000\n";
+      Result<std::int64_t> v = ParseWholeNumber(flags["batch"], 1, 10000000);
+      if (!v) {
+        err << "forewarden push: --batch: " << v.status().message() << '\n';
         return 2;
       }
-      o.batch = static_cast<long>(v);
+      o.batch = static_cast<long>(*v);
     }
     return RunPush(o, out, err);
   }

@@ -73,7 +73,8 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
     HttpResult r;
     std::chrono::milliseconds wait(200);
     for (int attempt = 1;; ++attempt) {
-      r = HttpPost(endpoint, "text/csv", body, token, std::chrono::seconds(120));
+      r = HttpPost(endpoint, "text/csv", body, token, std::chrono::seconds(120), {},
+                   TlsClientOptions{o.ca_file});
       if (r.status != 503 || attempt >= o.max_attempts) break;
       // delta-seconds as the service sends; an HTTP date or anything else keeps our own backoff
       if (Result<std::int64_t> secs = ParseWholeNumber(r.retry_after, 0, 3600); secs)
@@ -112,7 +113,7 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
   out << "pushed " << rows << " rows in " << batches << " batches to " << endpoint << " in "
-      << static_cast<long>(seconds * 1000) / 1000.0 << " s";
+      << static_cast<double>(static_cast<long>(seconds * 1000)) / 1000.0 << " s";
   if (seconds > 0)
     out << " (" << static_cast<long>(static_cast<double>(rows) / seconds) << " rows/s)";
   out << '\n';

@@ -123,6 +123,13 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
            "127.0.0.1\n";
     return 2;
   }
+  // A token that crosses a network in clear text is as good as published.
+  if (!IsLoopback(host) && srv.tls_cert_file.empty() && !srv.tls_terminated_by_proxy) {
+    err << "forewarden serve: refusing to listen on " << host
+        << " without TLS: set server.tls_cert_file and server.tls_key_file, or "
+           "server.tls_terminated_by_proxy: true when a proxy in front terminates TLS\n";
+    return 2;
+  }
 
   const auto wall_clock = [] {
     return std::chrono::duration_cast<std::chrono::milliseconds>(
@@ -155,6 +162,12 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   HttpServer server(http, [&api](HttpRequest&& r, Respond respond) {
     api.Handle(std::move(r), std::move(respond));
   });
+  if (!srv.tls_cert_file.empty() && !server.UseTls(srv.tls_cert_file, srv.tls_key_file, error)) {
+    err << "forewarden serve: " << error << '\n';
+    engine.Stop();
+    delivery.Stop();
+    return 2;
+  }
   if (!server.Start(error)) {
     err << "forewarden serve: " << error << '\n';
     engine.Stop();
@@ -224,6 +237,21 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
           return;
         }
         if (!delivery.Update(next, problem)) {
+          ++reloads_failed;
+          Log(err, "reload refused, the settings in force stay: " + problem, "warn");
+          return;
+        }
+        // The listener keeps its TLS mode (a change needs a restart); certificate and key are
+        // read again, so a renewed certificate serves from the next connection on.
+        if (next->server.tls_cert_file.empty() != settings->server.tls_cert_file.empty()) {
+          ++reloads_failed;
+          Log(err,
+              "reload refused, the settings in force stay: turning TLS on or off needs a restart",
+              "warn");
+          return;
+        }
+        if (!next->server.tls_cert_file.empty() &&
+            !server.UseTls(next->server.tls_cert_file, next->server.tls_key_file, problem)) {
           ++reloads_failed;
           Log(err, "reload refused, the settings in force stay: " + problem, "warn");
           return;

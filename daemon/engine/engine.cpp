@@ -397,7 +397,7 @@ bool Engine::Post(std::function<void()> read) {
 }
 
 bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
-  return Post([this, settings] {
+  return Post([this, settings = std::move(settings)] {
     // Series move to the policy of the same name; the checks in serve's reload path make sure
     // that such a policy exists and keeps its method and season length.
     for (std::size_t i = 0; i < series_.size(); ++i) {
@@ -857,7 +857,7 @@ bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,
   }
   rows.clear();
   for (HistoryRow& r : all)
-    if (r.period >= from && r.period <= to) rows.push_back(std::move(r));
+    if (r.period >= from && r.period <= to) rows.push_back(r);
   return true;
 }
 

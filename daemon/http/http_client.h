@@ -17,10 +17,16 @@ struct HttpResult {
 
 using HttpHeaders = std::vector<std::pair<std::string, std::string>>;
 
-// POSTs `body` to an http:// URL (host, optional port, path). `token`: a bearer token or "";
-// `headers` are added as given.
+// How an https:// URL is trusted: the system's CA store, plus `ca_file` (PEM) when given.
+// The peer's certificate and host name are always verified.
+struct TlsClientOptions {
+  std::string ca_file;
+};
+
+// POSTs `body` to an http:// or https:// URL (host, optional port, path). `token`: a bearer
+// token or ""; `headers` are added as given.
 HttpResult HttpPost(const std::string& url, const std::string& content_type,
                     const std::string& body, const std::string& token, std::chrono::seconds timeout,
-                    const HttpHeaders& headers = {});
+                    const HttpHeaders& headers = {}, const TlsClientOptions& tls = {});
 
 }  // namespace forewarden

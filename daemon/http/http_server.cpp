@@ -3,8 +3,10 @@
 #include "daemon/http/http_server.h"
 
 #include <boost/asio.hpp>
+#include <boost/asio/ssl.hpp>
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
+#include <boost/beast/ssl.hpp>
 #include <list>
 #include <mutex>
 #include <optional>
@@ -15,6 +17,17 @@ namespace net = boost::asio;
 namespace beast = boost::beast;
 namespace http = beast::http;
 using tcp = net::ip::tcp;
+namespace ssl = net::ssl;
+
+namespace {
+
+// What the session list needs of a session of either kind.
+struct SessionBase {
+  virtual ~SessionBase() = default;
+  virtual void CloseIfIdle() = 0;
+};
+
+}  // namespace
 
 struct HttpServer::Impl : std::enable_shared_from_this<HttpServer::Impl> {
   HttpOptions options;
@@ -27,9 +40,14 @@ struct HttpServer::Impl : std::enable_shared_from_this<HttpServer::Impl> {
   std::function<void(int)> on_signal;
   std::atomic<bool> stopping{false};
 
+  template <typename Stream>
   struct Session;
   std::mutex sessions_mu;
-  std::list<std::weak_ptr<Session>> sessions;
+  std::list<std::weak_ptr<SessionBase>> sessions;
+  // The TLS context new connections take (null: plain HTTP); replaced on reload, while the
+  // connections already open keep the one they started with.
+  std::mutex tls_mu;
+  std::shared_ptr<ssl::context> tls;
 
   Impl(HttpOptions o, Handler h) : options(std::move(o)), handler(std::move(h)) {}
 
@@ -38,13 +56,16 @@ struct HttpServer::Impl : std::enable_shared_from_this<HttpServer::Impl> {
   void MaybeFinish();
 };
 
-struct HttpServer::Impl::Session : std::enable_shared_from_this<Session> {
+template <typename Stream>
+struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Session<Stream>> {
+  using std::enable_shared_from_this<Session<Stream>>::shared_from_this;
   std::shared_ptr<Impl> server;
-  beast::tcp_stream stream;
+  std::shared_ptr<ssl::context> tls;  // kept alive for this connection (TLS sessions only)
+  Stream stream;
   beast::flat_buffer buffer;
   std::optional<http::request_parser<http::string_body>> parser;
   std::shared_ptr<http::response<http::string_body>> response;
-  std::list<std::weak_ptr<Session>>::iterator registration;
+  std::list<std::weak_ptr<SessionBase>>::iterator registration;
   bool first = true;
   bool busy = false;  // a request is being handled or answered
   bool keep_alive = false;
@@ -52,6 +73,29 @@ struct HttpServer::Impl::Session : std::enable_shared_from_this<Session> {
   Session(std::shared_ptr<Impl> s, tcp::socket socket)
       : server(std::move(s)), stream(std::move(socket)) {
     server->counters.connections.fetch_add(1);
+  }
+  Session(std::shared_ptr<Impl> s, tcp::socket socket, std::shared_ptr<ssl::context> ctx)
+      : server(std::move(s)), tls(std::move(ctx)), stream(std::move(socket), *tls) {
+    server->counters.connections.fetch_add(1);
+  }
+
+  void CloseIfIdle() override {
+    net::post(stream.get_executor(), [self = shared_from_this()] {
+      if (!self->busy) self->Close();
+    });
+  }
+
+  // TLS: the handshake within header_timeout, then requests as on plain HTTP.
+  void Handshake() {
+    beast::get_lowest_layer(stream).expires_after(server->options.header_timeout);
+    stream.async_handshake(ssl::stream_base::server,
+                           [self = shared_from_this()](beast::error_code ec) {
+                             if (ec) {
+                               self->server->counters.tls_failed.fetch_add(1);
+                               return self->Close();
+                             }
+                             self->Read();
+                           });
   }
   ~Session() {
     {
@@ -67,7 +111,8 @@ struct HttpServer::Impl::Session : std::enable_shared_from_this<Session> {
     parser.emplace();
     parser->body_limit(server->options.max_body_bytes);
     parser->header_limit(64 * 1024);
-    stream.expires_after(first ? server->options.header_timeout : server->options.idle_timeout);
+    beast::get_lowest_layer(stream).expires_after(first ? server->options.header_timeout
+                                                        : server->options.idle_timeout);
     first = false;
     http::async_read_header(stream, buffer, *parser,
                             beast::bind_front_handler(&Session::OnHeader, shared_from_this()));
@@ -157,7 +202,7 @@ struct HttpServer::Impl::Session : std::enable_shared_from_this<Session> {
     if (server->stopping) keep_alive = false;
     response->keep_alive(keep_alive);
     response->prepare_payload();
-    stream.expires_after(server->options.idle_timeout);
+    beast::get_lowest_layer(stream).expires_after(server->options.idle_timeout);
     http::async_write(stream, *response,
                       beast::bind_front_handler(&Session::OnWrite, shared_from_this()));
   }
@@ -171,8 +216,9 @@ struct HttpServer::Impl::Session : std::enable_shared_from_this<Session> {
 
   void Close() {
     beast::error_code ignored;
-    stream.socket().shutdown(tcp::socket::shutdown_both, ignored);
-    stream.socket().close(ignored);
+    auto& socket = beast::get_lowest_layer(stream).socket();
+    socket.shutdown(tcp::socket::shutdown_both, ignored);
+    socket.close(ignored);
   }
 };
 
@@ -194,13 +240,26 @@ void HttpServer::Impl::Accept() {
           net::write(socket, net::buffer(kBusy), ignored);
           socket.shutdown(tcp::socket::shutdown_both, ignored);
         } else {
-          auto session = std::make_shared<Session>(self, std::move(socket));
+          std::shared_ptr<ssl::context> context;
           {
+            std::lock_guard lock(self->tls_mu);
+            context = self->tls;
+          }
+          auto add = [&](auto session) {
             std::lock_guard lock(self->sessions_mu);
             self->sessions.push_front(session);
             session->registration = self->sessions.begin();
+          };
+          if (context) {
+            auto session = std::make_shared<Session<beast::ssl_stream<beast::tcp_stream>>>(
+                self, std::move(socket), std::move(context));
+            add(session);
+            net::dispatch(session->stream.get_executor(), [session] { session->Handshake(); });
+          } else {
+            auto session = std::make_shared<Session<beast::tcp_stream>>(self, std::move(socket));
+            add(session);
+            net::dispatch(session->stream.get_executor(), [session] { session->Read(); });
           }
-          net::dispatch(session->stream.get_executor(), [session] { session->Read(); });
         }
         self->Accept();
       });
@@ -209,10 +268,35 @@ void HttpServer::Impl::Accept() {
 void HttpServer::Impl::CloseIdle() {
   std::lock_guard lock(sessions_mu);
   for (auto& weak : sessions)
-    if (auto s = weak.lock())
-      net::post(s->stream.get_executor(), [s] {
-        if (!s->busy) s->Close();
-      });
+    if (auto s = weak.lock()) s->CloseIfIdle();
+}
+
+bool HttpServer::UseTls(const std::string& cert_file, const std::string& key_file,
+                        std::string& error) {
+  auto ctx = std::make_shared<ssl::context>(ssl::context::tls_server);
+  beast::error_code ec;
+  ctx->set_options(ssl::context::default_workarounds | ssl::context::no_sslv2 |
+                       ssl::context::no_sslv3 | ssl::context::no_tlsv1 | ssl::context::no_tlsv1_1,
+                   ec);
+  if (!ec) ctx->use_certificate_chain_file(cert_file, ec);
+  if (ec) {
+    error = "server.tls_cert_file " + cert_file + ": " + ec.message();
+    return false;
+  }
+  ctx->use_private_key_file(key_file, ssl::context::pem, ec);
+  if (ec) {
+    error = "server.tls_key_file " + key_file + ": " + ec.message() +
+            " (the key must be the PEM key of " + cert_file + ")";
+    return false;
+  }
+  if (SSL_CTX_check_private_key(ctx->native_handle()) != 1) {
+    error =
+        "server.tls_key_file " + key_file + " does not belong to the certificate in " + cert_file;
+    return false;
+  }
+  std::lock_guard lock(impl_->tls_mu);
+  impl_->tls = std::move(ctx);
+  return true;
 }
 
 void HttpServer::Impl::MaybeFinish() {

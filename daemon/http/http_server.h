@@ -51,6 +51,7 @@ struct HttpCounters {
   std::atomic<long> timeouts{0};
   std::atomic<long> malformed{0};
   std::atomic<long> connections{0};  // open now
+  std::atomic<long> tls_failed{0};   // TLS handshakes that failed or timed out
 };
 
 class HttpServer {
@@ -60,6 +61,10 @@ class HttpServer {
 
   // Binds and listens; false with a reason (address in use, bad address).
   bool Start(std::string& error);
+  // Thread-safe. Serves TLS (1.2 and newer) with this certificate chain and key (PEM) from the
+  // next connection on; connections already open keep theirs. False with a reason (unreadable
+  // file, a key that does not match), and then nothing changes.
+  bool UseTls(const std::string& cert_file, const std::string& key_file, std::string& error);
   std::uint16_t port() const;
   // Calls `on_signal(signo)` on the server thread for SIGINT, SIGTERM and SIGHUP.
   void OnSignals(std::function<void(int)> on_signal);

@@ -380,7 +380,8 @@ bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::strin
        SignatureHeaders(s.sink.url, "application/json", body, clock() / 1000, s.keys))
     headers.push_back({name, value});
   const HttpResult r = HttpPost(s.sink.url, "application/json", body, "",
-                                std::chrono::seconds(s.sink.timeout_seconds), headers);
+                                std::chrono::seconds(s.sink.timeout_seconds), headers,
+                                TlsClientOptions{s.sink.ca_file});
   if (r.status >= 200 && r.status < 300) return true;
   error = r.status ? "HTTP " + std::to_string(r.status) : r.error;
   return false;
@@ -395,7 +396,7 @@ bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<jso
     const std::string kind = body.value("kind", "");
     const std::string summary = body.value("summary", "");
     if (body.contains("alert")) {
-      json alert = body["alert"];
+      const json& alert = body["alert"];
       const std::string severity = alert.value("severity", "warning");
       if (kind == "opened" || kind == "escalated" || kind == "snooze_ended") {
         json a = AmAlert(alert, severity, true, now, ends);
@@ -416,9 +417,10 @@ bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<jso
   if (list.empty()) return true;  // acknowledgements and snoozes only
   std::string url = s.sink.url;
   while (!url.empty() && url.back() == '/') url.pop_back();
-  const HttpResult r = HttpPost(url + "/api/v2/alerts", "application/json",
-                                list.dump(-1, ' ', false, json::error_handler_t::replace), "",
-                                std::chrono::seconds(s.sink.timeout_seconds));
+  const HttpResult r =
+      HttpPost(url + "/api/v2/alerts", "application/json",
+               list.dump(-1, ' ', false, json::error_handler_t::replace), "",
+               std::chrono::seconds(s.sink.timeout_seconds), {}, TlsClientOptions{s.sink.ca_file});
   if (r.status >= 200 && r.status < 300) return true;
   error = r.status ? "HTTP " + std::to_string(r.status) + ": " + r.body.substr(0, 200) : r.error;
   return false;

@@ -121,8 +121,26 @@ TEST_CASE("settings that cannot work are refused", "[unit]") {
        "periods: 4, limit: 0.3, direction: over-forecast}]}\n",
        "this signal has no direction"},
       {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: w, type: "
-       "webhook, url: 'https://x'}]}\n",
-       "needs an http:// URL"},
+       "webhook, url: 'ftp://x'}]}\n",
+       "needs an http:// or https:// URL"},
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: w, type: "
+       "webhook, url: 'http://x', ca_file: /etc/ca.pem}]}\n",
+       "a CA file needs an https:// url"},
+      {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: w, type: "
+       "webhook, url: 'http://x', secret_env: S, previous_secret_file: /s}]}\n",
+       "previous_secret_file and previous_key_id come together"},
+      {"server: {tls_cert_file: /c.pem}\npolicies:\n  - {name: a, match: '*', period: week}\n",
+       "tls_cert_file and tls_key_file come together"},
+      {"server: {tls_terminated_by_proxy: maybe}\npolicies:\n  - {name: a, match: '*', period: "
+       "week}\n",
+       "must be true or false"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: croston, negative_actuals: "
+       "accept}\n",
+       "cannot take negative actuals"},
+      {"policies:\n  - {name: a, match: '*', period: week, negative_actuals: sometimes}\n",
+       "must be refuse or accept"},
+      {"server: {max_series: 0}\npolicies:\n  - {name: a, match: '*', period: week}\n",
+       "max_series"},
       {"policies:\n  - {name: a, match: '*', period: week}\nalerts: {sinks: [{name: l, type: log, "
        "secret_env: X}]}\n",
        "only webhook sinks take a secret"},
