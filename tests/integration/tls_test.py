@@ -114,6 +114,11 @@ def test_listener_over_tls_reloads_its_certificate_without_dropping_connections(
         s.signal(signal.SIGHUP)
         s.wait_stderr("reloaded")
         assert get(first, "/healthz")[0] == 200
+        # the untrusted client and the plain HTTP request above were failed handshakes
+        first.request("GET", "/metrics")
+        text = first.getresponse().read().decode()
+        assert 'forewarden_http_rejections_total{reason="tls_handshake"} 2' in text, \
+            [l for l in text.splitlines() if "tls_handshake" in l]
         second = http.client.HTTPSConnection("127.0.0.1", s.port, context=ctx, timeout=harness.DEADLINE)
         assert get(second, "/readyz")[0] == 200
         assert serial_of(second) == "03EA", serial_of(second)  # 1002
