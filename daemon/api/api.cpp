@@ -559,9 +559,9 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
     };
     std::vector<Entry> rows;
     std::unordered_map<const char*, bool> label_match;  // label sets are interned: one parse each
-    engine_.ForEachSeries([&](const SeriesView& v) {
+    auto visit = [&](const SeriesView& v) {
       if (!policy.empty() && v.policy != policy) return;
-      if (!status.empty() && SeriesStatusText(v) != status) return;
+      if (!status.empty() && StatusName(StatusOf(*v.state, *v.spec, v.stale)) != status) return;
       if (!label_name.empty()) {
         auto cached = label_match.find(v.labels.data());
         if (cached == label_match.end()) {
@@ -578,7 +578,11 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
         if (sig) order = std::fabs(*sig);
       }
       rows.push_back({v, order});
-    });
+    };
+    if (status == "alerting")
+      engine_.ForEachAlertingSeries(visit);
+    else
+      engine_.ForEachSeries(visit);
     auto before = [&](const Entry& a, const Entry& b) {
       if (sort != "key" && a.order != b.order) return a.order > b.order;
       return a.view.key < b.view.key;

@@ -157,6 +157,7 @@ bool Engine::Start(std::string& error) {
   if (!OpenAlerts(error)) return false;
   dirty_.assign(series_.size(), 0);
   last_flush_ms_ = last_housekeeping_ms_ = clock_();
+  for (std::size_t i = 0; i < series_.size(); ++i) NoteAlerting(i);
   thread_ = std::thread([this] { Run(); });
   return true;
 }
@@ -293,6 +294,7 @@ void Engine::Housekeeping() {
     Saved saved{i, s.state.rules, s.state.active};
     monitors::CheckStale(s.policy->spec, s.state, static_cast<long>(overdue), r);
     if (r.episodes_opened) {
+      NoteAlerting(i);
       before.push_back(std::move(saved));
       CollectChanges(i, r, s.state.last_period + overdue, changes);
       MarkDirty(i);
@@ -578,6 +580,10 @@ void Engine::ApplyBatch(Pending& p) {
     if (store_failed) break;
   }
   if (store_failed) return;  // Run() rolls everything back
+  // Every series that holds a rule now is in the alerting index (a rejected batch restores
+  // states that were already there; a later rollback leaves a superset, which reads filter).
+  if (p.reply.problem_count == 0)
+    for (std::size_t i : touched_list) NoteAlerting(i);
   if (p.reply.problem_count == 0) {
     for (std::size_t i : touched_list) {
       Series& s = series_[i];
@@ -834,6 +840,29 @@ SeriesView Engine::View(const Series& s, std::int64_t today) const {
 void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {
   const std::int64_t today = Today();
   for (std::size_t i = 0; i < series_.size(); ++i) each(View(series_[i], today));
+}
+
+void Engine::NoteAlerting(std::size_t index) {
+  if (index >= series_.size() || !series_[index].state.active) return;
+  if (in_alerting_.size() <= index) in_alerting_.resize(std::max(series_.size(), index + 1), 0);
+  if (in_alerting_[index]) return;
+  in_alerting_[index] = 1;
+  alerting_.push_back(static_cast<std::uint32_t>(index));
+}
+
+void Engine::ForEachAlertingSeries(const std::function<void(const SeriesView&)>& each) const {
+  const std::int64_t today = Today();
+  // The index is a superset: entries that no longer hold a rule (or no longer exist) drop out.
+  std::size_t kept = 0;
+  for (std::uint32_t i : alerting_) {
+    if (i >= series_.size() || !series_[i].state.active) {
+      if (i < in_alerting_.size()) in_alerting_[i] = 0;
+      continue;
+    }
+    alerting_[kept++] = i;
+  }
+  alerting_.resize(kept);
+  for (std::uint32_t i : alerting_) each(View(series_[i], today));
 }
 
 std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {

@@ -156,6 +156,9 @@ class Engine {
   std::size_t series_count() const { return series_.size(); }
   // Every series, in creation order.
   void ForEachSeries(const std::function<void(const SeriesView&)>& each) const;
+  // Only the series that hold a rule now (an index kept with each batch and housekeeping, so
+  // an alerting list costs the alerting series, not all of them). Any order.
+  void ForEachAlertingSeries(const std::function<void(const SeriesView&)>& each) const;
   std::optional<SeriesView> FindSeries(const std::string& key) const;
   // Recomputed retained history of a series within [from, to].
   bool History(const std::string& key, std::int64_t from, std::int64_t to,
@@ -237,6 +240,8 @@ class Engine {
   bool Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out);
   bool Trim(Series& s, bool& trimmed);
   void MarkDirty(std::size_t index);
+  // Adds series `index` to the alerting index when it holds a rule.
+  void NoteAlerting(std::size_t index);
   bool FlushDirty();  // inside an open transaction; the caller commits
   void ClearDirty();
   void Rewind(Pending& p);
@@ -276,6 +281,10 @@ class Engine {
   std::unordered_map<std::string, std::int64_t> last_arrival_;
   std::vector<char> dirty_;    // per series: state not yet written
   std::vector<char> touched_;  // per series: changed by the batch being applied
+  // The alerting index: every series whose state holds a rule, perhaps a few more (reads drop
+  // those); 4 bytes per alerting series and a flag per series.
+  mutable std::vector<std::uint32_t> alerting_;
+  mutable std::vector<char> in_alerting_;
   std::size_t dirty_count_ = 0;
   std::int64_t last_flush_ms_ = 0;
   long recovered_ = 0;

@@ -347,7 +347,8 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
         .Increment(static_cast<double>(h->too_many_connections.load()));
     rejections.Add({{"reason", "timeout"}}).Increment(static_cast<double>(h->timeouts.load()));
     rejections.Add({{"reason", "malformed"}}).Increment(static_cast<double>(h->malformed.load()));
-    rejections.Add({{"reason", "tls_handshake"}}).Increment(static_cast<double>(h->tls_failed.load()));
+    rejections.Add({{"reason", "tls_handshake"}})
+        .Increment(static_cast<double>(h->tls_failed.load()));
     BuildGauge()
         .Name("forewarden_http_connections")
         .Help("Open HTTP connections.")

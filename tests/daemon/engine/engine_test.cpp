@@ -3,6 +3,8 @@
 #include <atomic>
 #include <catch2/catch.hpp>
 #include <future>
+#include <random>
+#include <set>
 
 #include "config/load.h"
 #include "daemon/store/state_codec.h"
@@ -246,4 +248,57 @@ TEST_CASE("a series is stale once stale_after whole periods have ended without a
   CHECK(monitors::FormatPeriod(monitors::PeriodKind::kWeek, 3000) ==
         monitors::FormatPeriod(monitors::PeriodKind::kDay, monday));
   CHECK_FALSE(stale_on(monday + 7 * 3 - 1));  // the second week's last day: not ended yet
+}
+
+TEST_CASE(
+    "the alerting index lists exactly the series that hold a rule, through rejected batches and "
+    "restatements",
+    "[property]") {
+  TempDir dir;
+  auto settings = Settings(dir.File("data"));
+  Engine e(settings, [] { return std::int64_t{0}; });
+  std::string error;
+  REQUIRE(e.Start(error));
+  std::mt19937 rng(20261202);  // seeded
+  std::uniform_real_distribution<double> noise(-1, 1);
+  std::vector<std::int64_t> next_week(40, 3000);
+  auto check = [&] {
+    std::set<std::string> all, indexed;
+    OnEngine(e, [&] {
+      e.ForEachSeries([&](const forewarden::SeriesView& v) {
+        if (v.state->active) all.insert(std::string(v.key));
+      });
+      e.ForEachAlertingSeries(
+          [&](const forewarden::SeriesView& v) { indexed.insert(std::string(v.key)); });
+    });
+    CHECK(indexed == all);
+    return all.size();
+  };
+  std::size_t most = 0;
+  for (int round = 0; round < 60; ++round) {
+    std::vector<IngestRow> rows;
+    for (int k = 0; k < 40; ++k) {
+      if (rng() % 3) continue;
+      // every fourth series steps up for a while: its drift rule holds, then clears
+      const double level = (k % 4 == 0 && round > 10 && round < 30) ? 40 : 10;
+      const std::int64_t week = next_week[static_cast<std::size_t>(k)];
+      rows.push_back(Row("z/" + std::to_string(k), week, level + noise(rng)));
+      if (rng() % 5 == 0 && week > 3001)  // a restatement of the week before
+        rows.push_back(Row("z/" + std::to_string(k), week - 1, 10 + noise(rng)));
+    }
+    const bool reject = rng() % 6 == 0;
+    if (reject) rows.push_back(Row("z/0", 1, -5));  // older than the history: the batch is refused
+    const IngestReply r = SubmitAndWait(e, rows);
+    CHECK((r.status == IngestReply::Status::kOk) == !reject);
+    if (!reject)
+      for (const IngestRow& row : rows) {
+        const std::size_t k = std::stoul(row.series.substr(2));
+        const std::int64_t w =
+            monitors::ParsePeriod(monitors::PeriodKind::kWeek, row.period).ordinal;
+        next_week[k] = std::max(next_week[k], w + 1);
+      }
+    most = std::max(most, check());
+  }
+  CHECK(most > 0);  // some series did hold the rule
+  e.Stop();
 }
