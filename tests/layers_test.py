@@ -1,8 +1,8 @@
 #!/usr/bin/env python3
 """The daemon's layers point one way (DEVELOPERS.md, "Layout"): each folder of daemon/ may
 include only the folders below it, and the libraries that belong to one layer stay there
-(Beast in http/, the JSON library out of the engine, SQLite in store/, prometheus-cpp in
-observe/, OpenSSL in notify/ and http/). Fails naming the file, the line and the include."""
+(Beast in http/, the JSON library out of the engine, SQLite and every SQL statement in
+store/, prometheus-cpp in observe/, OpenSSL in notify/ and http/). Fails naming the file, the line and the include."""
 import pathlib
 import re
 import sys
@@ -61,6 +61,14 @@ def main():
             for prefix, layers in LIBRARIES.items():
                 if header.startswith(prefix) and layer not in layers:
                     problems.append(f"daemon/{rel}:{n}: {layer} may not use {header}")
+    # Every SQL statement lives in store/: nothing else prepares or runs one.
+    for path in sorted(daemon.rglob("*.cpp")):
+        rel = path.relative_to(daemon)
+        if rel.parts[0] == "store":
+            continue
+        for n, line in enumerate(path.read_text().splitlines(), 1):
+            if re.search(r"\.(Prepare|Exec)\(", line):
+                problems.append(f"daemon/{rel}:{n}: SQL outside store/")
     # The allowed table must itself point downwards.
     for layer, deps in ALLOWED.items():
         for dep in deps:

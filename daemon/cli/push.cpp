@@ -8,6 +8,7 @@
 #include <vector>
 
 #include "daemon/common/parse_number.h"
+#include "daemon/common/secret_text.h"
 #include "daemon/http/http_client.h"
 
 namespace forewarden {
@@ -36,12 +37,12 @@ int RunPush(const PushOptions& o, std::ostream& out, std::ostream& err) {
   }
   std::string token;
   if (!o.token_file.empty()) {
-    std::ifstream t(o.token_file);
-    if (!t || !std::getline(t, token)) {
-      err << "forewarden push: cannot read the token file " << o.token_file << '\n';
+    Result<std::string> read = ReadSecretText(o.token_file, "", "--token-file");
+    if (!read) {
+      err << "forewarden push: " << read.status().message() << '\n';
       return 1;
     }
-    while (!token.empty() && (token.back() == '\r' || token.back() == ' ')) token.pop_back();
+    token = std::move(*read);
   }
   std::string header;
   if (!std::getline(in, header)) {

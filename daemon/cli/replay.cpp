@@ -18,6 +18,7 @@
 #include "daemon/common/csv.h"
 #include "daemon/common/key_arena.h"
 #include "daemon/common/key_text.h"
+#include "daemon/common/parse_number.h"
 #include "monitors/series.h"
 
 namespace forewarden {
@@ -78,14 +79,6 @@ class PeriodCache {
   std::unordered_map<std::string, ParsedPeriod, StringHash, std::equal_to<>> caches_[3];
   ParsedPeriod scratch_;
 };
-
-bool ParseValue(std::string_view text, double& out) {
-  if (text.empty()) return false;
-  const char* first = text.data();
-  if (*first == '+') ++first;
-  auto r = std::from_chars(first, text.data() + text.size(), out);
-  return r.ec == std::errc() && r.ptr == text.data() + text.size();
-}
 
 std::string Where(long line, const char* field) {
   return "line " + std::to_string(line) + ", field " + field + ": ";
@@ -450,7 +443,8 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
       return 2;
     }
     double value = 0.0;
-    if (!ParseValue(fields[col_value], value)) {
+    // Not finite (nan, inf): the step refuses it below with the same words as the service.
+    if (ReadNumber(fields[col_value], value) == NumberText::kNotANumber) {
       error = Where(line, "value") + "'" + std::string(fields[col_value]) + "' is not a number";
       return 2;
     }

@@ -17,6 +17,7 @@
 #include "config/load.h"
 #include "daemon/api/api.h"
 #include "daemon/common/log.h"
+#include "daemon/common/secret_text.h"
 #include "daemon/engine/engine.h"
 #include "daemon/feeds/drop_folder.h"
 #include "daemon/http/http_server.h"
@@ -54,24 +55,13 @@ void Log(std::ostream& err, const std::string& line, const char* level = "info")
 
 // The bearer token from the file or environment variable the settings name ("" = none).
 bool LoadToken(const config::Server& s, std::string& token, std::string& error) {
-  token.clear();
-  if (!s.token_file.empty()) {
-    std::ifstream in(s.token_file);
-    if (!in) {
-      error = "server.token_file: cannot read " + s.token_file;
-      return false;
-    }
-    std::getline(in, token);
-  } else if (!s.token_env.empty()) {
-    const char* v = std::getenv(s.token_env.c_str());
-    if (!v) {
-      error = "server.token_env: the environment variable " + s.token_env + " is not set";
-      return false;
-    }
-    token = v;
+  Result<std::string> read = ReadSecretText(
+      s.token_file, s.token_env, s.token_file.empty() ? "server.token_env" : "server.token_file");
+  if (!read) {
+    error = read.status().message();
+    return false;
   }
-  while (!token.empty() && (token.back() == '\r' || token.back() == ' ' || token.back() == '\n'))
-    token.pop_back();
+  token = std::move(*read);
   if ((!s.token_file.empty() || !s.token_env.empty()) && token.size() < 16) {
     error = "the bearer token must be at least 16 characters";
     return false;

@@ -11,6 +11,9 @@ namespace forewarden {
 
 // A finite number in plain decimal or exponent notation (a leading '+' allowed).
 bool ParseNumber(std::string_view text, double& out);
+// The same, telling a number that is not finite (nan, inf, 1e999) from text that is no number.
+enum class NumberText { kFinite, kNotFinite, kNotANumber };
+NumberText ReadNumber(std::string_view text, double& out);
 
 // A whole number in [lo, hi], decimal digits with an optional leading '-'. The message says
 // what was wrong and the range.

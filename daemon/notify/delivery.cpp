@@ -17,10 +17,10 @@
 
 #include "daemon/common/iso_time.h"
 #include "daemon/common/log.h"
+#include "daemon/common/secret_text.h"
 #include "daemon/http/http_client.h"
 #include "daemon/store/alert_reads.h"
-#include "daemon/store/sqlite.h"
-#include "daemon/store/store.h"
+#include "daemon/store/outbox.h"
 
 namespace forewarden {
 
@@ -89,37 +89,17 @@ struct SinkConfig {
       keys;  // the current key, then the previous one while rotating; never logged
 };
 
-struct Event {
-  std::int64_t id = 0;
-  int attempts = 0;
-  std::int64_t next_ms = 0;
-  std::string kind;
-};
+using Event = PendingDelivery;
 
 bool ReadSecret(const config::Sink& s, const std::string& file, const std::string& env,
                 std::string& secret, std::string& error) {
-  secret.clear();
-  if (!file.empty()) {
-    std::ifstream in(file, std::ios::binary);
-    if (!in) {
-      error = "sink " + s.name + ": cannot read " + file;
-      return false;
-    }
-    std::ostringstream text;
-    text << in.rdbuf();
-    secret = text.str();
-  } else if (!env.empty()) {
-    const char* v = std::getenv(env.c_str());
-    if (!v) {
-      error = "sink " + s.name + ": environment variable " + env + " is not set";
-      return false;
-    }
-    secret = v;
-  } else {
-    return true;
+  Result<std::string> read = ReadSecretText(file, env, "sink " + s.name);
+  if (!read) {
+    error = read.status().message();
+    return false;
   }
-  while (!secret.empty() && (secret.back() == '\n' || secret.back() == '\r')) secret.pop_back();
-  if (secret.empty()) {
+  secret = std::move(*read);
+  if (secret.empty() && (!file.empty() || !env.empty())) {
     error = "sink " + s.name + ": the secret is empty";
     return false;
   }
@@ -168,10 +148,9 @@ struct Delivery::Impl {
   std::shared_ptr<const config::Settings> active;
   Clock clock;
   std::vector<SinkConfig> sinks;
-  std::string install_id;
-  Db db;
+  Outbox outbox;  // every SQL statement of the worker lives there (store/outbox.h)
   Notifications notifications;
-  Stmt pending, mark_delivered, mark_failed, next_due, backlog_q, open_alerts, open_groups;
+  bool round_failed = false;  // a mark of this round did not write: the round rolls back
   std::thread thread;
   mutable std::mutex mu;
   std::condition_variable wake;
@@ -227,47 +206,14 @@ bool Delivery::Update(std::shared_ptr<const config::Settings> settings, std::str
 bool Delivery::Start(std::string& error) {
   Impl& m = *impl_;
   if (!Update(m.settings, error)) return false;
-  const std::string path = DatabasePath(m.settings->server.data);
-  // NORMAL: a delivery marked just before a power cut may be sent again (at least once anyway).
-  if (!m.db.Open(path) || !m.db.Exec("PRAGMA synchronous=NORMAL;")) {
-    error = "delivery: " + m.db.error();
+  if (Status opened = m.outbox.Open(m.settings->server.data); !opened) {
+    error = opened.message();
     return false;
   }
-  Stmt id = m.db.Prepare("SELECT value FROM meta WHERE key = 'install_id'");
-  if (!id.valid() || !id.Step() || !id.Row()) {
-    error = "delivery: no installation id in the store: " + m.db.error();
-    return false;
-  }
-  m.install_id = std::string(id.Text(0));
-  m.db.WaitForLocks(5000);
-  if (!m.notifications.Open(m.db, m.install_id, m.public_url, error)) {
+  if (!m.notifications.Open(m.outbox.db(), m.outbox.install_id(), m.public_url, error)) {
     error = "delivery: " + error;
     return false;
   }
-  m.pending = m.db.Prepare(
-      "SELECT d.event_id, d.attempts, d.next_ms, e.kind FROM deliveries d "
-      "JOIN alert_events e ON e.id = d.event_id WHERE d.sink = ?1 AND d.state = 'pending' "
-      "ORDER BY d.event_id LIMIT ?2");
-  m.mark_delivered = m.db.Prepare(
-      "UPDATE deliveries SET state = 'delivered', attempts = attempts + 1, done_ms = ?3, "
-      "last_error = NULL WHERE event_id = ?1 AND sink = ?2");
-  m.mark_failed = m.db.Prepare(
-      "UPDATE deliveries SET state = ?3, attempts = ?4, next_ms = ?5, last_error = ?6 "
-      "WHERE event_id = ?1 AND sink = ?2");
-  m.next_due = m.db.Prepare("SELECT min(next_ms) FROM deliveries WHERE state = 'pending'");
-  m.backlog_q = m.db.Prepare(
-      "SELECT sum(d.state = 'pending'), sum(d.state = 'dead'), "
-      "min(CASE WHEN d.state = 'pending' THEN e.at_ms END) FROM deliveries d "
-      "JOIN alert_events e ON e.id = d.event_id WHERE d.state != 'delivered'");
-  m.open_alerts =
-      m.db.Prepare("SELECT id FROM alerts WHERE state != 'resolved' AND group_id IS NULL");
-  m.open_groups = m.db.Prepare("SELECT id FROM alert_groups WHERE resolved_ms IS NULL");
-  for (const Stmt* s : {&m.pending, &m.mark_delivered, &m.mark_failed, &m.next_due, &m.backlog_q,
-                        &m.open_alerts, &m.open_groups})
-    if (!s->valid()) {
-      error = "delivery: " + m.db.error();
-      return false;
-    }
   m.thread = std::thread([&m] { m.Run(); });
   return true;
 }
@@ -309,9 +255,7 @@ void Delivery::Impl::Run() {
     Round(now);
     Resend(now);
     Refresh();
-    std::int64_t due = INT64_MAX;
-    if (next_due.Step() && next_due.Row() && !next_due.IsNull(0)) due = next_due.Int(0);
-    next_due.Reset();
+    std::int64_t due = outbox.NextDue().value_or(INT64_MAX);
     std::unique_lock lock(mu);
     const bool has_am = std::any_of(sinks.begin(), sinks.end(), [](const SinkConfig& s) {
       return s.sink.kind == config::Sink::Kind::kAlertmanager;
@@ -325,22 +269,15 @@ void Delivery::Impl::Run() {
 }
 
 void Delivery::Impl::Refresh() {
-  Backlog b;
-  if (backlog_q.Step() && backlog_q.Row()) {
-    b.pending = backlog_q.IsNull(0) ? 0 : backlog_q.Int(0);
-    b.dead = backlog_q.IsNull(1) ? 0 : backlog_q.Int(1);
-    b.oldest_pending_ms = backlog_q.IsNull(2) ? 0 : backlog_q.Int(2);
-  }
-  backlog_q.Reset();
+  const OutboxBacklog b = outbox.Backlog();
   std::lock_guard lock(mu);
-  backlog = b;
+  backlog = Backlog{b.pending, b.dead, b.oldest_pending_ms};
 }
 
 void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error,
                             std::int64_t now) {
   if (ok) {
-    mark_delivered.Reset();
-    mark_delivered.Bind(1, e.id).Bind(2, s.sink.name).Bind(3, now).Run();
+    if (!outbox.MarkDelivered(e.event, s.sink.name, now)) round_failed = true;
     std::lock_guard lock(mu);
     ++counters[s.sink.name].delivered;
     return;
@@ -349,7 +286,7 @@ void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const 
   const int attempts = e.attempts + 1;
   const bool dead = attempts >= a.max_attempts;
   // deterministic jitter in [0.5, 1.5) from the event and attempt
-  std::uint64_t h = static_cast<std::uint64_t>(e.id) * 0x9e3779b97f4a7c15ULL +
+  std::uint64_t h = static_cast<std::uint64_t>(e.event) * 0x9e3779b97f4a7c15ULL +
                     static_cast<std::uint64_t>(attempts);
   h ^= h >> 29;
   h *= 0xbf58476d1ce4e5b9ULL;
@@ -358,14 +295,9 @@ void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const 
   const double backoff =
       std::min(a.max_backoff_seconds, a.initial_backoff_seconds * std::pow(2.0, attempts - 1)) *
       jitter;
-  mark_failed.Reset();
-  mark_failed.Bind(1, e.id)
-      .Bind(2, s.sink.name)
-      .Bind(3, std::string(dead ? "dead" : "pending"))
-      .Bind(4, static_cast<std::int64_t>(attempts))
-      .Bind(5, now + static_cast<std::int64_t>(backoff * 1000.0))
-      .Bind(6, error.substr(0, 500))
-      .Run();
+  if (!outbox.MarkFailed(e.event, s.sink.name, dead, attempts,
+                         now + static_cast<std::int64_t>(backoff * 1000.0), error))
+    round_failed = true;
   std::lock_guard lock(mu);
   ++counters[s.sink.name].failed;
   if (dead) ++counters[s.sink.name].dead;
@@ -373,7 +305,7 @@ void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const 
 
 bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::string& error) {
   json note;
-  if (!notifications.Event(e.id, note, error)) return false;
+  if (!notifications.Event(e.event, note, error)) return false;
   const std::string body = note.dump(-1, ' ', false, json::error_handler_t::replace);
   HttpHeaders headers;
   for (auto& [name, value] :
@@ -435,27 +367,23 @@ void Delivery::Impl::Round(std::int64_t now) {
   }
   const long batch = active->alerts.batch;
   for (const SinkConfig& s : current) {
-    std::vector<Event> events;
-    pending.Reset();
-    pending.Bind(1, s.sink.name).Bind(2, static_cast<std::int64_t>(batch));
-    if (!pending.Step()) continue;
-    for (; pending.Row(); pending.Step())
-      events.push_back({pending.Int(0), static_cast<int>(pending.Int(1)), pending.Int(2),
-                        std::string(pending.Text(3))});
-    pending.Reset();
+    Result<std::vector<Event>> pending = outbox.Pending(s.sink.name, batch);
+    if (!pending) continue;
+    const std::vector<Event>& events = *pending;
     if (events.empty() || events.front().next_ms > now) continue;  // strict order per sink
     // The engine holds the write lock during its commits; when it cannot be had now, the
     // events stay pending for the next round (nothing is sent outside a transaction).
-    if (!db.Exec("BEGIN IMMEDIATE;")) continue;
+    if (!outbox.Begin()) continue;
+    round_failed = false;
     switch (s.sink.kind) {
       case config::Sink::Kind::kLog:
         for (const Event& e : events) {
           json note;
           std::string error;
-          const bool ok = notifications.Event(e.id, note, error);
+          const bool ok = notifications.Event(e.event, note, error);
           if (ok)
             WriteLog(std::cerr, LogLine("info", "alert",
-                                        {{"event", std::to_string(e.id)},
+                                        {{"event", std::to_string(e.event)},
                                          {"kind", e.kind},
                                          {"summary", note.value("summary", "")}}));
           Finish(s, e, ok, error, now);
@@ -479,14 +407,23 @@ void Delivery::Impl::Round(std::int64_t now) {
           if (e.next_ms <= now) {
             due.push_back(e);
             notes.emplace_back();
-            ok = ok && notifications.Event(e.id, notes.back(), error);
+            ok = ok && notifications.Event(e.event, notes.back(), error);
           }
         if (ok) ok = SendAlertmanager(s, notes, error);
         for (const Event& e : due) Finish(s, e, ok, error, clock());
         break;
       }
     }
-    if (!db.Exec("COMMIT;")) db.Exec("ROLLBACK;");
+    if (round_failed) {
+      // a mark did not write: nothing of this round is kept, the events go again (at least once)
+      const Status rolled = outbox.Rollback();
+      WriteLog(std::cerr, LogLine("warn", "delivery round not recorded; its events go again",
+                                  {{"sink", s.sink.name},
+                                   {"why", rolled.ok() ? "a mark failed" : rolled.message()}}));
+    } else if (Status committed = outbox.Commit(); !committed) {
+      WriteLog(std::cerr, LogLine("warn", "delivery round not recorded; its events go again",
+                                  {{"sink", s.sink.name}, {"why", committed.message()}}));
+    }
   }
 }
 
@@ -502,12 +439,8 @@ void Delivery::Impl::Resend(std::int64_t now) {
   // Open alerts re-sent as they are now; open groups as their opening.
   std::vector<json> events;
   std::vector<std::int64_t> ids, groups;
-  if (open_alerts.Step())
-    for (; open_alerts.Row(); open_alerts.Step()) ids.push_back(open_alerts.Int(0));
-  open_alerts.Reset();
-  if (open_groups.Step())
-    for (; open_groups.Row(); open_groups.Step()) groups.push_back(open_groups.Int(0));
-  open_groups.Reset();
+  ids = outbox.OpenAlerts();
+  groups = outbox.OpenGroups();
   std::string error;
   for (std::int64_t id : ids) {
     events.emplace_back();

@@ -7,6 +7,7 @@
 
 #include "daemon/cli/commands.h"
 #include "daemon/cli/text_out.h"
+#include "daemon/common/parse_number.h"
 #include "tests/temp_dir.h"
 
 using testing_support::TempDir;
@@ -216,4 +217,23 @@ TEST_CASE("a bad row after many good ones still writes nothing (regression: use 
   CHECK(r.rc == 2);
   CHECK_THAT(r.err, Catch::Contains("line 30002, field period"));
   CHECK(r.output == "<none>");
+}
+
+TEST_CASE("numbers are read whole: beyond the doubles is not finite, text is not a number",
+          "[unit]") {
+  double v = 7;
+  CHECK(forewarden::ReadNumber("1e999", v) == forewarden::NumberText::kNotFinite);
+  CHECK(forewarden::ReadNumber("-1e999", v) == forewarden::NumberText::kNotFinite);
+  CHECK(v < 0);
+  CHECK(forewarden::ReadNumber("nan", v) == forewarden::NumberText::kNotFinite);
+  CHECK(forewarden::ReadNumber("12abc", v) == forewarden::NumberText::kNotANumber);
+  CHECK(forewarden::ReadNumber("", v) == forewarden::NumberText::kNotANumber);
+  CHECK(forewarden::ReadNumber("+2.5", v) == forewarden::NumberText::kFinite);
+  CHECK(v == 2.5);
+  CHECK(forewarden::ReadNumber("1e-999", v) == forewarden::NumberText::kFinite);  // underflows to 0
+  CHECK(v == 0.0);
+  CHECK(forewarden::ParseWholeNumber("4294967297", 1, 100000).status().message() ==
+        "4294967297 is outside 1..100000");
+  CHECK(!forewarden::ParseWholeNumber("1e3", 0, 10000).ok());
+  CHECK(*forewarden::ParseWholeNumber("-5", -10, 10) == -5);
 }
