@@ -59,8 +59,8 @@ void Db::WaitForLocks(int ms) {
         return 1;
       },
       // the wait in the handler's context pointer: no allocation to outlive the connection
-      reinterpret_cast<void*>(static_cast<std::intptr_t>(ms) *
-                              10));  // NOLINT(performance-no-int-to-ptr)
+      // NOLINTNEXTLINE(performance-no-int-to-ptr)
+      reinterpret_cast<void*>(static_cast<std::intptr_t>(ms) * 10));
 }
 
 bool Db::Exec(const std::string& sql) {
