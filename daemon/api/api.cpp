@@ -69,6 +69,7 @@ int HttpStatusOf(ErrorKind kind) {
       return 409;
     case ErrorKind::kBusy:
     case ErrorKind::kStoreFailed:
+    case ErrorKind::kIo:
       return 503;
     case ErrorKind::kInternal:
       return 500;

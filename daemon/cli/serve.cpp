@@ -131,15 +131,17 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   Metrics metrics;
   engine.OnOutbox([&delivery] { delivery.Notify(); });
   engine.OnCommit([&metrics](double seconds) { metrics.ObserveCommit(seconds); });
-  if (!engine.Start(error)) {
-    err << "forewarden serve: " << error << '\n';
-    return 1;
+  // Settings that cannot work exit 2, failures of the machine or the store exit 1.
+  auto exit_code = [](const Status& s) { return s.kind() == ErrorKind::kInvalid ? 2 : 1; };
+  if (Status started = engine.Start(); !started) {
+    err << "forewarden serve: " << started.message() << '\n';
+    return exit_code(started);
   }
   // Undelivered events from before a stop or a crash go out first.
-  if (!delivery.Start(error)) {
-    err << "forewarden serve: " << error << '\n';
+  if (Status started = delivery.Start(); !started) {
+    err << "forewarden serve: " << started.message() << '\n';
     engine.Stop();
-    return 1;
+    return exit_code(started);
   }
   Api api(engine, settings, token, &metrics);
   HttpOptions http;
@@ -152,17 +154,14 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   HttpServer server(http, [&api](HttpRequest&& r, Respond respond) {
     api.Handle(std::move(r), std::move(respond));
   });
-  if (!srv.tls_cert_file.empty() && !server.UseTls(srv.tls_cert_file, srv.tls_key_file, error)) {
-    err << "forewarden serve: " << error << '\n';
+  Status listening =
+      srv.tls_cert_file.empty() ? Status::Ok() : server.UseTls(srv.tls_cert_file, srv.tls_key_file);
+  if (listening) listening = server.Start();
+  if (!listening) {
+    err << "forewarden serve: " << listening.message() << '\n';
     engine.Stop();
     delivery.Stop();
-    return 2;
-  }
-  if (!server.Start(error)) {
-    err << "forewarden serve: " << error << '\n';
-    engine.Stop();
-    delivery.Stop();
-    return 1;
+    return exit_code(listening);
   }
   std::unique_ptr<DropFolder> folder;
   if (!srv.folder.empty()) {
@@ -173,8 +172,8 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
                      static_cast<std::size_t>(srv.max_label_bytes)},
         std::chrono::milliseconds(srv.folder_poll_ms),
         [&err](const std::string& line) { Log(err, line); });
-    if (!folder->Start(error)) {
-      err << "forewarden serve: " << error << '\n';
+    if (Status started = folder->Start(); !started) {
+      err << "forewarden serve: " << started.message() << '\n';
       server.Shutdown(std::chrono::seconds(0));
       server.Run();
       engine.Stop();
@@ -226,13 +225,9 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
           Log(err, "reload refused, the settings in force stay: " + problem, "warn");
           return;
         }
-        if (!delivery.Update(next, problem)) {
-          ++reloads_failed;
-          Log(err, "reload refused, the settings in force stay: " + problem, "warn");
-          return;
-        }
         // The listener keeps its TLS mode (a change needs a restart); certificate and key are
-        // read again, so a renewed certificate serves from the next connection on.
+        // read again, so a renewed certificate serves from the next connection on. Checked
+        // first: a refusal leaves every part with the settings in force.
         if (next->server.tls_cert_file.empty() != settings->server.tls_cert_file.empty()) {
           ++reloads_failed;
           Log(err,
@@ -240,11 +235,26 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
               "warn");
           return;
         }
-        if (!next->server.tls_cert_file.empty() &&
-            !server.UseTls(next->server.tls_cert_file, next->server.tls_key_file, problem)) {
+        const bool tls = !next->server.tls_cert_file.empty();
+        if (Status checked =
+                tls ? server.CheckTls(next->server.tls_cert_file, next->server.tls_key_file)
+                    : Status::Ok();
+            !checked) {
           ++reloads_failed;
-          Log(err, "reload refused, the settings in force stay: " + problem, "warn");
+          Log(err, "reload refused, the settings in force stay: " + checked.message(), "warn");
           return;
+        }
+        if (Status updated = delivery.Update(next); !updated) {
+          ++reloads_failed;
+          Log(err, "reload refused, the settings in force stay: " + updated.message(), "warn");
+          return;
+        }
+        // Checked above; only files replaced in the meantime could fail here, and then the
+        // certificate in force stays.
+        if (tls) {
+          if (Status used = server.UseTls(next->server.tls_cert_file, next->server.tls_key_file);
+              !used)
+            Log(err, "certificate not renewed, the one in force stays: " + used.message(), "warn");
         }
         engine.Reload(next);
         api.Update(next, next_token);

@@ -18,6 +18,7 @@ enum class ErrorKind {
   kBusy,         // the engine queue is full: retry later
   kStoreFailed,  // the database failed; nothing was applied
   kForbidden,    // the caller may not do this
+  kIo,           // the operating system refused: a socket, a file, a folder
   kInternal,     // a defect of ours: logged and counted
 };
 
@@ -33,6 +34,7 @@ class [[nodiscard]] Status {
   static Status Conflict(std::string m) { return {ErrorKind::kConflict, std::move(m)}; }
   static Status Busy(std::string m) { return {ErrorKind::kBusy, std::move(m)}; }
   static Status StoreFailed(std::string m) { return {ErrorKind::kStoreFailed, std::move(m)}; }
+  static Status Io(std::string m) { return {ErrorKind::kIo, std::move(m)}; }
 
   bool ok() const { return !failed_; }
   explicit operator bool() const { return ok(); }

@@ -67,19 +67,17 @@ Engine::~Engine() {
   Stop();
 }
 
-bool Engine::Start(std::string& error) {
+Status Engine::Start() {
   const config::Server& srv = settings_->server;
   if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull, srv.max_database_bytes,
                    srv.cache_bytes)) {
-    error = "store: " + store_.error();
-    return false;
+    return Status::StoreFailed("store: " + store_.error());
   }
   std::string problem;
   std::vector<std::size_t> stale_states;
   std::int64_t count = 0;
   if (!store_.CountSeries(count)) {
-    error = "store: " + store_.error();
-    return false;
+    return Status::StoreFailed("store: " + store_.error());
   }
   index_.Reserve(static_cast<std::size_t>(count) + 1024);
   const bool loaded = store_.LoadSeries([&](StoredSeries&& row) {
@@ -114,52 +112,46 @@ bool Engine::Start(std::string& error) {
     index_.Insert(series_.back().key, series_.size() - 1);
   });
   if (!loaded) {
-    error = "store: " + store_.error();
-    return false;
+    return Status::StoreFailed("store: " + store_.error());
   }
   if (!problem.empty()) {
-    error = problem;
-    return false;
+    return Status::Invalid(problem);
   }
   // States are written lazily (README, "Durability"): after a crash some lag their actuals.
   // Replaying the newer actuals with the same step brings them to where they were.
   if (!stale_states.empty()) {
     if (!store_.Begin()) {
-      error = "store: " + store_.error();
-      return false;
+      return Status::StoreFailed("store: " + store_.error());
     }
     for (std::size_t i : stale_states) {
       Series& s = series_[i];
       std::vector<StoredActual> newer;
       const std::int64_t from = s.state.seen ? s.state.last_period + 1 : INT64_MIN;
       if (!store_.Actuals(s.id, from, INT64_MAX, newer)) {
-        error = "store: " + store_.error();
-        return false;
+        return Status::StoreFailed("store: " + store_.error());
       }
       monitors::StepResult r;
       for (const StoredActual& a : newer)
         if (monitors::Step(s.policy->spec, s.state, a.period, a.value, r) !=
             monitors::StepStatus::kOk) {
-          error = "series '" + std::string(s.key) + "': its stored actuals cannot be replayed";
-          return false;
+          return Status::Conflict("series '" + std::string(s.key) +
+                                  "': its stored actuals cannot be replayed");
         }
       if (!store_.UpdateState(s.id, s.state)) {
-        error = "store: " + store_.error();
-        return false;
+        return Status::StoreFailed("store: " + store_.error());
       }
     }
     if (!store_.Commit()) {
-      error = "store: " + store_.error();
-      return false;
+      return Status::StoreFailed("store: " + store_.error());
     }
     recovered_ = static_cast<long>(stale_states.size());
   }
-  if (!OpenAlerts(error)) return false;
+  if (std::string error; !OpenAlerts(error)) return Status::StoreFailed(error);
   dirty_.assign(series_.size(), 0);
   last_flush_ms_ = last_housekeeping_ms_ = clock_();
   for (std::size_t i = 0; i < series_.size(); ++i) NoteAlerting(i);
   thread_ = std::thread([this] { Run(); });
-  return true;
+  return Status::Ok();
 }
 
 bool Engine::OpenAlerts(std::string& error) {

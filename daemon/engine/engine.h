@@ -134,8 +134,10 @@ class Engine {
   Engine(std::shared_ptr<const config::Settings> settings, Clock clock);
   ~Engine();
 
-  // Opens the store under the data folder, loads every series, starts the thread.
-  bool Start(std::string& error);
+  // Opens the store under the data folder, loads every series, starts the thread. Store failed,
+  // invalid (a stored series no longer fits its policy) or conflict (stored actuals that do not
+  // replay).
+  Status Start();
   // Finishes every queued job, then stops the thread. Idempotent.
   void Stop();
 

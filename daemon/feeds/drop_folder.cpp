@@ -26,14 +26,11 @@ DropFolder::~DropFolder() {
   Stop();
 }
 
-bool DropFolder::Start(std::string& error) {
+Status DropFolder::Start() {
   std::error_code ec;
   for (const std::string& dir : {incoming_, done_, rejected_}) {
     fs::create_directories(dir, ec);
-    if (ec) {
-      error = "drop folder " + dir + ": " + ec.message();
-      return false;
-    }
+    if (ec) return Status::Io("drop folder " + dir + ": " + ec.message());
   }
   thread_ = std::thread([this] {
     std::unique_lock lock(mu_);
@@ -44,7 +41,7 @@ bool DropFolder::Start(std::string& error) {
       wake_.wait_for(lock, poll_, [this] { return stop_; });
     }
   });
-  return true;
+  return Status::Ok();
 }
 
 void DropFolder::Stop() {

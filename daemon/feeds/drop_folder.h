@@ -32,8 +32,8 @@ class DropFolder {
   DropFolder(Engine& engine, std::string incoming, IngestLimits limits,
              std::chrono::milliseconds poll, Log log);
   ~DropFolder();
-  // Creates incoming/, done/ and rejected/ and starts polling; false with a reason.
-  bool Start(std::string& error);
+  // Creates incoming/, done/ and rejected/ and starts polling.
+  Status Start();
   void Stop();
   // Processes what is there now (used by Start's thread; public for tests).
   void ScanOnce();

@@ -271,32 +271,40 @@ void HttpServer::Impl::CloseIdle() {
     if (auto s = weak.lock()) s->CloseIfIdle();
 }
 
-bool HttpServer::UseTls(const std::string& cert_file, const std::string& key_file,
-                        std::string& error) {
+namespace {
+
+Result<std::shared_ptr<ssl::context>> LoadTls(const std::string& cert_file,
+                                              const std::string& key_file) {
   auto ctx = std::make_shared<ssl::context>(ssl::context::tls_server);
   beast::error_code ec;
   ctx->set_options(ssl::context::default_workarounds | ssl::context::no_sslv2 |
                        ssl::context::no_sslv3 | ssl::context::no_tlsv1 | ssl::context::no_tlsv1_1,
                    ec);
   if (!ec) ctx->use_certificate_chain_file(cert_file, ec);
-  if (ec) {
-    error = "server.tls_cert_file " + cert_file + ": " + ec.message();
-    return false;
-  }
+  if (ec) return Status::Invalid("server.tls_cert_file " + cert_file + ": " + ec.message());
   ctx->use_private_key_file(key_file, ssl::context::pem, ec);
-  if (ec) {
-    error = "server.tls_key_file " + key_file + ": " + ec.message() +
-            " (the key must be the PEM key of " + cert_file + ")";
-    return false;
-  }
-  if (SSL_CTX_check_private_key(ctx->native_handle()) != 1) {
-    error =
-        "server.tls_key_file " + key_file + " does not belong to the certificate in " + cert_file;
-    return false;
-  }
+  if (ec)
+    return Status::Invalid("server.tls_key_file " + key_file + ": " + ec.message() +
+                           " (the key must be the PEM key of " + cert_file + ")");
+  if (SSL_CTX_check_private_key(ctx->native_handle()) != 1)
+    return Status::Invalid("server.tls_key_file " + key_file +
+                           " does not belong to the certificate in " + cert_file);
+  return ctx;
+}
+
+}  // namespace
+
+Status HttpServer::CheckTls(const std::string& cert_file, const std::string& key_file) {
+  Result<std::shared_ptr<ssl::context>> ctx = LoadTls(cert_file, key_file);
+  return ctx ? Status::Ok() : ctx.status();
+}
+
+Status HttpServer::UseTls(const std::string& cert_file, const std::string& key_file) {
+  Result<std::shared_ptr<ssl::context>> ctx = LoadTls(cert_file, key_file);
+  if (!ctx) return ctx.status();
   std::lock_guard lock(impl_->tls_mu);
-  impl_->tls = std::move(ctx);
-  return true;
+  impl_->tls = std::move(*ctx);
+  return Status::Ok();
 }
 
 void HttpServer::Impl::MaybeFinish() {
@@ -309,25 +317,20 @@ HttpServer::HttpServer(HttpOptions options, Handler handler)
 
 HttpServer::~HttpServer() = default;
 
-bool HttpServer::Start(std::string& error) {
+Status HttpServer::Start() {
   beast::error_code ec;
   const auto address = net::ip::make_address(impl_->options.host, ec);
-  if (ec) {
-    error = "listen address '" + impl_->options.host + "': " + ec.message();
-    return false;
-  }
+  if (ec) return Status::Invalid("listen address '" + impl_->options.host + "': " + ec.message());
   const tcp::endpoint endpoint(address, impl_->options.port);
   impl_->acceptor.open(endpoint.protocol(), ec);
   if (!ec) impl_->acceptor.set_option(net::socket_base::reuse_address(true), ec);
   if (!ec) impl_->acceptor.bind(endpoint, ec);
   if (!ec) impl_->acceptor.listen(net::socket_base::max_listen_connections, ec);
-  if (ec) {
-    error = "listen on " + impl_->options.host + ":" + std::to_string(impl_->options.port) + ": " +
-            ec.message();
-    return false;
-  }
+  if (ec)
+    return Status::Io("listen on " + impl_->options.host + ":" +
+                      std::to_string(impl_->options.port) + ": " + ec.message());
   impl_->Accept();
-  return true;
+  return Status::Ok();
 }
 
 std::uint16_t HttpServer::port() const {

@@ -5,6 +5,8 @@
 // let requests in flight get their answers, then stop after at most the grace period.
 #pragma once
 
+#include "daemon/common/status.h"
+
 #include <atomic>
 #include <chrono>
 #include <cstdint>
@@ -59,12 +61,14 @@ class HttpServer {
   HttpServer(HttpOptions options, Handler handler);
   ~HttpServer();
 
-  // Binds and listens; false with a reason (address in use, bad address).
-  bool Start(std::string& error);
+  // Binds and listens: invalid (a bad address) or io (in use, not on this machine).
+  Status Start();
   // Thread-safe. Serves TLS (1.2 and newer) with this certificate chain and key (PEM) from the
-  // next connection on; connections already open keep theirs. False with a reason (unreadable
-  // file, a key that does not match), and then nothing changes.
-  bool UseTls(const std::string& cert_file, const std::string& key_file, std::string& error);
+  // next connection on; connections already open keep theirs. Invalid (an unreadable file, a
+  // key that does not match) changes nothing.
+  Status UseTls(const std::string& cert_file, const std::string& key_file);
+  // The same checks without installing anything (a reload checks before it applies).
+  Status CheckTls(const std::string& cert_file, const std::string& key_file);
   std::uint16_t port() const;
   // Calls `on_signal(signo)` on the server thread for SIGINT, SIGTERM and SIGHUP.
   void OnSignals(std::function<void(int)> on_signal);

@@ -181,15 +181,16 @@ Delivery::~Delivery() {
   Stop();
 }
 
-bool Delivery::Update(std::shared_ptr<const config::Settings> settings, std::string& error) {
+Status Delivery::Update(std::shared_ptr<const config::Settings> settings) {
+  std::string error;
   std::vector<SinkConfig> sinks;
   for (const config::Sink& s : settings->alerts.sinks) {
     SinkConfig c{s, {}};
     std::string secret;
-    if (!ReadSecret(s, s.secret_file, s.secret_env, secret, error)) return false;
+    if (!ReadSecret(s, s.secret_file, s.secret_env, secret, error)) return Status::Invalid(error);
     if (!secret.empty()) c.keys.push_back({s.key_id, secret});
     if (!s.previous_secret_file.empty()) {
-      if (!ReadSecret(s, s.previous_secret_file, "", secret, error)) return false;
+      if (!ReadSecret(s, s.previous_secret_file, "", secret, error)) return Status::Invalid(error);
       c.keys.push_back({s.previous_key_id, secret});
     }
     sinks.push_back(std::move(c));
@@ -200,22 +201,19 @@ bool Delivery::Update(std::shared_ptr<const config::Settings> settings, std::str
   impl_->public_url = PublicUrl(*impl_->settings);
   impl_->notified = true;
   impl_->wake.notify_all();
-  return true;
+  return Status::Ok();
 }
 
-bool Delivery::Start(std::string& error) {
+Status Delivery::Start() {
   Impl& m = *impl_;
-  if (!Update(m.settings, error)) return false;
-  if (Status opened = m.outbox.Open(m.settings->server.data); !opened) {
-    error = opened.message();
-    return false;
-  }
-  if (!m.notifications.Open(m.outbox.db(), m.outbox.install_id(), m.public_url, error)) {
-    error = "delivery: " + error;
-    return false;
+  if (Status updated = Update(m.settings); !updated) return updated;
+  if (Status opened = m.outbox.Open(m.settings->server.data); !opened) return opened;
+  if (std::string error;
+      !m.notifications.Open(m.outbox.db(), m.outbox.install_id(), m.public_url, error)) {
+    return Status::StoreFailed("delivery: " + error);
   }
   m.thread = std::thread([&m] { m.Run(); });
-  return true;
+  return Status::Ok();
 }
 
 void Delivery::Stop() {

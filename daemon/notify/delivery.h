@@ -39,6 +39,7 @@
 #include <vector>
 
 #include "config/settings.h"
+#include "daemon/common/status.h"
 
 namespace forewarden {
 
@@ -55,10 +56,11 @@ class Delivery {
   Delivery(std::shared_ptr<const config::Settings> settings, Clock clock);
   ~Delivery();
 
-  bool Start(std::string& error);  // opens the database under server.data, starts the thread
-  void Stop();                     // finishes the send in progress; pending events stay
-  void Notify();                   // new events are waiting
-  bool Update(std::shared_ptr<const config::Settings> settings, std::string& error);
+  Status Start();  // opens the database under server.data, starts the thread
+  void Stop();     // finishes the send in progress; pending events stay
+  void Notify();   // new events are waiting
+  // New settings (a reload): invalid when a sink's secret cannot be read, and then nothing changes.
+  Status Update(std::shared_ptr<const config::Settings> settings);
 
   // Thread-safe snapshots for metrics and tests.
   std::map<std::string, SinkCounters> counters() const;

@@ -46,7 +46,7 @@ World& TheWorld() {
     world.engine = std::make_unique<forewarden::Engine>(world.settings,
                                                         [] { return std::int64_t{1796169600000}; });
     std::string error;
-    if (!world.engine->Start(error)) std::abort();
+    if (!world.engine->Start().ok()) std::abort();
     world.metrics = std::make_unique<forewarden::Metrics>();
     world.metrics->SetSources(forewarden::MetricSources{world.engine.get()});
     world.api = std::make_unique<forewarden::Api>(*world.engine, world.settings,

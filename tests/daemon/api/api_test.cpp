@@ -56,7 +56,7 @@ struct World {
   Api api{engine, settings, ""};
   World() {
     std::string error;
-    REQUIRE(engine.Start(error));
+    REQUIRE(engine.Start().ok());
   }
   ~World() { engine.Stop(); }
 };

@@ -85,7 +85,7 @@ TEST_CASE(
   auto settings = Settings(dir.File("data"));
   Engine e(settings, [] { return std::int64_t{0}; });
   std::string error;
-  REQUIRE(e.Start(error));
+  REQUIRE(e.Start().ok());
   std::vector<std::pair<std::int64_t, double>> truth;
   std::vector<IngestRow> rows;
   for (int t = 0; t < 20; ++t) {
@@ -124,7 +124,7 @@ TEST_CASE(
 
   // a restart resumes with exactly the same state
   Engine again(settings, [] { return std::int64_t{0}; });
-  REQUIRE(again.Start(error));
+  REQUIRE(again.Start().ok());
   CHECK(EngineState(again, "z/a") == before);
   r = SubmitAndWait(again, {Row("z/a", 3020, 12.0)});
   truth.push_back({3020, 12.0});
@@ -136,7 +136,7 @@ TEST_CASE("a batch with one bad row applies nothing, not even its new series", "
   auto settings = Settings(dir.File("data"));
   Engine e(settings, [] { return std::int64_t{0}; });
   std::string error;
-  REQUIRE(e.Start(error));
+  REQUIRE(e.Start().ok());
   REQUIRE(SubmitAndWait(e, {Row("z/a", 3000, 5)}).status == IngestReply::Status::kOk);
   const std::string before = EngineState(e, "z/a");
   IngestRow bad = Row("z/b", 3000, 1, 4);
@@ -155,7 +155,7 @@ TEST_CASE("a batch with one bad row applies nothing, not even its new series", "
   CHECK(EngineState(e, "z/b").empty());
   e.Stop();
   Engine again(settings, [] { return std::int64_t{0}; });
-  REQUIRE(again.Start(error));
+  REQUIRE(again.Start().ok());
   CHECK(EngineState(again, "z/new").empty());
   CHECK(EngineState(again, "z/a") == before);
 }
@@ -165,7 +165,7 @@ TEST_CASE("gap rules and late actuals for filled or skipped periods", "[integrat
   auto settings = Settings(dir.File("data"));
   Engine e(settings, [] { return std::int64_t{0}; });
   std::string error;
-  REQUIRE(e.Start(error));
+  REQUIRE(e.Start().ok());
   IngestReply r =
       SubmitAndWait(e, {Row("z/a", 3000, 10), Row("z/a", 3003, 10), Row("s/a", 3000, 10),
                         Row("s/a", 3001, 12), Row("s/a", 3004, 18)});
@@ -188,7 +188,7 @@ TEST_CASE("history is recomputed by the same step, and a reset re-levels and is 
   auto settings = Settings(dir.File("data"));
   Engine e(settings, [] { return std::int64_t{0}; });
   std::string error;
-  REQUIRE(e.Start(error));
+  REQUIRE(e.Start().ok());
   std::vector<IngestRow> rows;
   for (int t = 0; t < 5; ++t) rows.push_back(Row("z/a", 3000 + t, 10 + t));
   REQUIRE(SubmitAndWait(e, rows).status == IngestReply::Status::kOk);
@@ -234,7 +234,7 @@ TEST_CASE("a series is stale once stale_after whole periods have ended without a
   std::atomic<std::int64_t> now_ms{0};         // the engine thread reads the clock too
   Engine e(settings, [&] { return now_ms.load(); });
   std::string error;
-  REQUIRE(e.Start(error));
+  REQUIRE(e.Start().ok());
   REQUIRE(SubmitAndWait(e, {Row("z/a", 3000, 5)}).status == IngestReply::Status::kOk);
   auto stale_on = [&](std::int64_t day) {
     now_ms = day * 86400000 + 3600000;
@@ -258,7 +258,7 @@ TEST_CASE(
   auto settings = Settings(dir.File("data"));
   Engine e(settings, [] { return std::int64_t{0}; });
   std::string error;
-  REQUIRE(e.Start(error));
+  REQUIRE(e.Start().ok());
   std::mt19937 rng(20261202);  // seeded
   std::uniform_real_distribution<double> noise(-1, 1);
   std::vector<std::int64_t> next_week(40, 3000);
