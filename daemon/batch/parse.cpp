@@ -89,27 +89,10 @@ ParsedBatch ParseCsvBatch(std::string_view body, const IngestLimits& limits) {
         in.ok() ? "the body is empty: expected a header series,period,value" : in.error());
     return b;
   }
-  int c_series = -1, c_period = -1, c_value = -1;
-  std::vector<std::string> names;
-  for (std::size_t i = 0; i < fields.size(); ++i) {
-    const std::string name(fields[i]);
-    int* slot = name == "series"   ? &c_series
-                : name == "period" ? &c_period
-                : name == "value"  ? &c_value
-                                   : nullptr;
-    if (slot) {
-      if (*slot >= 0) Add(b, in.line(), "header", "column '" + name + "' appears twice");
-      *slot = static_cast<int>(i);
-    } else if (name.empty()) {
-      Add(b, in.line(), "header", "column " + std::to_string(i + 1) + " has no name");
-    }
-    names.push_back(name);
-  }
-  for (auto [col, name] :
-       {std::pair{c_series, "series"}, std::pair{c_period, "period"}, std::pair{c_value, "value"}})
-    if (col < 0)
-      Add(b, in.line(), "header",
-          std::string("the header has no '") + name + "' column; expected series,period,value");
+  const ActualsHeader header = ReadActualsHeader(fields);
+  for (const std::string& p : header.problems) Add(b, in.line(), "header", p);
+  const int c_series = header.series, c_period = header.period, c_value = header.value;
+  std::vector<std::string> names = header.labels;
   if (b.problem_count) return b;
   while (in.Next(fields)) {
     const long line = in.line();

@@ -335,40 +335,14 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
                     : in.error();
     return in.ok() ? 2 : 1;
   }
-  int col_series = -1, col_period = -1, col_value = -1;
-  std::vector<std::string> label_names(fields.size());  // other columns are labels
-  for (std::size_t i = 0; i < fields.size(); ++i) {
-    std::string_view f = fields[i];
-    int* slot = f == "series"   ? &col_series
-                : f == "period" ? &col_period
-                : f == "value"  ? &col_value
-                                : nullptr;
-    if (!slot) {
-      if (f.empty()) {
-        error = "line " + std::to_string(in.line()) + ": column " + std::to_string(i + 1) +
-                " of the header has no name";
-        return 2;
-      }
-      label_names[i] = std::string(f);
-      continue;
-    }
-    if (*slot >= 0) {
-      error =
-          "line " + std::to_string(in.line()) + ": column '" + std::string(f) + "' appears twice";
-      return 2;
-    }
-    *slot = static_cast<int>(i);
+  const ActualsHeader header = ReadActualsHeader(fields);
+  if (!header.problems.empty()) {
+    error = "line " + std::to_string(in.line()) + ": " + header.problems.front();
+    return 2;
   }
-  for (const char* name : {"series", "period", "value"}) {
-    const int col = std::strcmp(name, "series") == 0   ? col_series
-                    : std::strcmp(name, "period") == 0 ? col_period
-                                                       : col_value;
-    if (col < 0) {
-      error = "line " + std::to_string(in.line()) + ": the header has no '" + name +
-              "' column; expected series,period,value";
-      return 2;
-    }
-  }
+  const int col_series = header.series, col_period = header.period, col_value = header.value;
+  const std::vector<std::string>& label_names = header.labels;  // other columns are labels
+
   const std::size_t ncols = fields.size();
 
   // Series state lives in first-seen order; feeds usually repeat the same order every period,

@@ -133,6 +133,32 @@ bool CsvReader::Split(std::string_view line, std::vector<std::string_view>& fiel
   return true;
 }
 
+ActualsHeader ReadActualsHeader(const std::vector<std::string_view>& fields) {
+  ActualsHeader h;
+  h.labels.resize(fields.size());
+  for (std::size_t i = 0; i < fields.size(); ++i) {
+    const std::string_view f = fields[i];
+    int* slot = f == "series"   ? &h.series
+                : f == "period" ? &h.period
+                : f == "value"  ? &h.value
+                                : nullptr;
+    if (slot) {
+      if (*slot >= 0) h.problems.push_back("column '" + std::string(f) + "' appears twice");
+      *slot = static_cast<int>(i);
+    } else if (f.empty()) {
+      h.problems.push_back("column " + std::to_string(i + 1) + " of the header has no name");
+    } else {
+      h.labels[i] = std::string(f);
+    }
+  }
+  for (auto [col, name] :
+       {std::pair{h.series, "series"}, std::pair{h.period, "period"}, std::pair{h.value, "value"}})
+    if (col < 0)
+      h.problems.push_back(std::string("the header has no '") + name +
+                           "' column; expected series,period,value");
+  return h;
+}
+
 bool CsvReader::Next(std::vector<std::string_view>& fields) {
   if (!ok()) return false;
   std::string_view line;

@@ -12,6 +12,15 @@
 
 namespace forewarden {
 
+// The header of an actuals CSV: the columns series, period and value in any order; every other
+// named column is a label. `problems` lists what is wrong (empty: usable), in column order.
+struct ActualsHeader {
+  int series = -1, period = -1, value = -1;
+  std::vector<std::string> labels;  // per column: the label name, "" for series/period/value
+  std::vector<std::string> problems;
+};
+ActualsHeader ReadActualsHeader(const std::vector<std::string_view>& fields);
+
 class CsvReader {
  public:
   // path "-" reads standard input. ok() is false (and error() says why) if it cannot open.
