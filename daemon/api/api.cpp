@@ -155,7 +155,7 @@ class Body {
   // A whole number in [lo, hi] (1.5, "3" and values beyond the range are refused, not cut).
   Result<std::int64_t> Whole(const char* field, std::int64_t lo, std::int64_t hi,
                              const char* what) const {
-    const std::string range = std::to_string(lo) + ".." + std::to_string(hi);
+    auto range = [&] { return std::to_string(lo) + ".." + std::to_string(hi); };
     if (!Has(field)) return Status::Invalid(std::string("field ") + field + ": missing; " + what);
     const json& v = j_[field];
     bool in = false;
@@ -168,11 +168,11 @@ class Body {
       out = v.get<std::int64_t>();
       in = out >= lo && out <= hi;
     } else {
-      return Status::Invalid(std::string("field ") + field + ": must be a whole number (" + range +
-                             "); " + what);
+      return Status::Invalid(std::string("field ") + field + ": must be a whole number (" +
+                             range() + "); " + what);
     }
     if (!in)
-      return Status::Invalid(std::string("field ") + field + ": outside " + range + "; " + what);
+      return Status::Invalid(std::string("field ") + field + ": outside " + range() + "; " + what);
     return out;
   }
 
@@ -181,7 +181,7 @@ class Body {
   json j_;
 };
 
-std::string SeriesStatusText(const SeriesView& v) {
+const char* SeriesStatusText(const SeriesView& v) {
   return StatusName(StatusOf(*v.state, *v.spec, v.stale));
 }
 
@@ -562,7 +562,7 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
     std::unordered_map<const char*, bool> label_match;  // label sets are interned: one parse each
     auto visit = [&](const SeriesView& v) {
       if (!policy.empty() && v.policy != policy) return;
-      if (!status.empty() && StatusName(StatusOf(*v.state, *v.spec, v.stale)) != status) return;
+      if (!status.empty() && SeriesStatusText(v) != status) return;
       if (!label_name.empty()) {
         auto cached = label_match.find(v.labels.data());
         if (cached == label_match.end()) {

@@ -572,12 +572,11 @@ void Engine::ApplyBatch(Pending& p) {
     if (store_failed) break;
   }
   if (store_failed) return;  // Run() rolls everything back
-  // Every series that holds a rule now is in the alerting index (a rejected batch restores
-  // states that were already there; a later rollback leaves a superset, which reads filter).
-  if (p.reply.problem_count == 0)
-    for (std::size_t i : touched_list) NoteAlerting(i);
   if (p.reply.problem_count == 0) {
     for (std::size_t i : touched_list) {
+      // Every series that holds a rule now is in the alerting index (a rejected batch restores
+      // states that were already there; a later rollback leaves a superset, which reads filter).
+      NoteAlerting(i);
       Series& s = series_[i];
       bool trimmed = false;
       if (!Trim(s, trimmed)) {

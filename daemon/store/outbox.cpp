@@ -105,20 +105,25 @@ OutboxBacklog Outbox::Backlog() {
   return b;
 }
 
-std::vector<std::int64_t> Outbox::OpenAlerts() {
+namespace {
+
+// The first column of every row of `q`.
+std::vector<std::int64_t> Ids(Stmt& q) {
   std::vector<std::int64_t> ids;
-  if (open_alerts_.Step())
-    for (; open_alerts_.Row(); open_alerts_.Step()) ids.push_back(open_alerts_.Int(0));
-  open_alerts_.Reset();
+  if (q.Step())
+    for (; q.Row(); q.Step()) ids.push_back(q.Int(0));
+  q.Reset();
   return ids;
 }
 
+}  // namespace
+
+std::vector<std::int64_t> Outbox::OpenAlerts() {
+  return Ids(open_alerts_);
+}
+
 std::vector<std::int64_t> Outbox::OpenGroups() {
-  std::vector<std::int64_t> ids;
-  if (open_groups_.Step())
-    for (; open_groups_.Row(); open_groups_.Step()) ids.push_back(open_groups_.Int(0));
-  open_groups_.Reset();
-  return ids;
+  return Ids(open_groups_);
 }
 
 }  // namespace forewarden

@@ -30,10 +30,11 @@ class Refused(Exception):
 
 
 def verify(method, target_uri, headers, body, keys, max_age=300, now=None):
-    """Checks one request. `headers`: a mapping with case-insensitive names (or lower-case
-    keys); `keys`: {key id: secret bytes}. Returns the key id that verified; raises Refused."""
-    get = (lambda name: headers.get(name)) if hasattr(headers, "get") else None
-    digest = get("Content-Digest") or get("content-digest")
+    """Checks one request. `headers`: a mapping whose get() ignores the case of names (as
+    http.server's headers do); `keys`: {key id: secret bytes}. Returns the key id that
+    verified; raises Refused."""
+    get = headers.get
+    digest = get("Content-Digest")
     want = "sha-256=:" + base64.b64encode(hashlib.sha256(body).digest()).decode() + ":"
     if digest != want:
         raise Refused("Content-Digest does not match the body")
@@ -63,7 +64,7 @@ def verify(method, target_uri, headers, body, keys, max_age=300, now=None):
             elif c == "@target-uri":
                 value = target_uri
             else:
-                value = get(c) or get(c.title()) or ""
+                value = get(c) or ""
             lines.append('"%s": %s' % (c, value))
         lines.append('"@signature-params": ' + params)
         mac = hmac.new(keys[keyid], "\n".join(lines).encode(), hashlib.sha256).digest()

@@ -16,6 +16,7 @@ import ssl
 import subprocess
 import sys
 import threading
+import time
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import harness  # noqa: E402
@@ -234,7 +235,6 @@ def test_webhooks_over_tls_verify_the_receiver():
             status, body, _ = s.request("GET", "/v1/deliveries?state=dead&sink=untrusted")
             return body["deliveries"] if status == 200 else None
 
-        import time
         end = time.monotonic() + harness.DEADLINE
         while not dead() and time.monotonic() < end:
             time.sleep(0.02)  # a polling interval; the condition decides
