@@ -52,7 +52,9 @@ const std::set<std::string> kServerKeys = {"listen",
                                            "max_series",
                                            "tls_cert_file",
                                            "tls_key_file",
-                                           "tls_terminated_by_proxy"};
+                                           "tls_terminated_by_proxy",
+                                           "people_file",
+                                           "token_for_reads"};
 const std::set<std::string> kPolicyKeys = {"name",
                                            "match",
                                            "period",
@@ -751,7 +753,7 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
        {std::pair{"listen", &s.listen}, std::pair{"data", &s.data},
         std::pair{"token_file", &s.token_file}, std::pair{"token_env", &s.token_env},
         std::pair{"folder", &s.folder}, std::pair{"tls_cert_file", &s.tls_cert_file},
-        std::pair{"tls_key_file", &s.tls_key_file}})
+        std::pair{"tls_key_file", &s.tls_key_file}, std::pair{"people_file", &s.people_file}})
     if (n[key].IsDefined()) r.String(n[key], Reader::Join(path, key), *out);
   if (n["listen"].IsDefined() && s.listen.rfind(':') == std::string::npos)
     r.Add(n["listen"], path + ".listen", "must be HOST:PORT, got '" + s.listen + "'");
@@ -789,18 +791,20 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   r.Int(n, "state_flush_series", path, s.state_flush_series, 1, 100000000);
   if (!s.token_file.empty() && !s.token_env.empty())
     r.Add(n, path, "give token_file or token_env, not both");
+  for (auto [key, out] : {std::pair{"token_for_reads", &s.token_for_reads},
+                          std::pair{"tls_terminated_by_proxy", &s.tls_terminated_by_proxy}}) {
+    if (!n[key].IsDefined()) continue;
+    std::string text;
+    if (!r.String(n[key], Reader::Join(path, key), text)) continue;
+    if (text == "true" || text == "false")
+      *out = text == "true";
+    else
+      r.Add(n[key], Reader::Join(path, key), "must be true or false, got '" + text + "'");
+  }
+  if (s.token_for_reads && s.token_file.empty() && s.token_env.empty() && s.people_file.empty())
+    r.Add(n, path, "token_for_reads needs token_file, token_env or people_file");
   if (s.tls_cert_file.empty() != s.tls_key_file.empty())
     r.Add(n, path, "tls_cert_file and tls_key_file come together");
-  if (n["tls_terminated_by_proxy"].IsDefined()) {
-    std::string text;
-    if (r.String(n["tls_terminated_by_proxy"], path + ".tls_terminated_by_proxy", text)) {
-      if (text == "true" || text == "false")
-        s.tls_terminated_by_proxy = text == "true";
-      else
-        r.Add(n["tls_terminated_by_proxy"], path + ".tls_terminated_by_proxy",
-              "must be true or false, got '" + text + "'");
-    }
-  }
 }
 
 }  // namespace

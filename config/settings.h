@@ -78,8 +78,10 @@ enum class Synchronous { kFull, kNormal };
 struct Server {
   std::string listen = "127.0.0.1:8700";
   std::string data = "./forewarden-data";
-  std::string token_file;     // bearer token for write endpoints, read from this file...
-  std::string token_env;      // ...or from this environment variable
+  std::string token_file;        // bearer token for write endpoints, read from this file...
+  std::string token_env;         // ...or from this environment variable
+  std::string people_file;       // one line per person: NAME ROLE SHA256-OF-TOKEN (api/access.h)
+  bool token_for_reads = false;  // reads need a token too (any role)
   std::string tls_cert_file;  // the listener over TLS: certificate chain (PEM), reloaded on SIGHUP
   std::string tls_key_file;   // ...and its private key (PEM)
   bool tls_terminated_by_proxy =

@@ -9,11 +9,13 @@
 #include <nlohmann/json.hpp>
 #include <unordered_map>
 
+#include "daemon/api/attention.h"
 #include "daemon/batch/parse.h"
 #include "daemon/common/iso_time.h"
 #include "daemon/common/log.h"
 #include "daemon/common/parse_number.h"
 #include "daemon/store/alert_reads.h"
+#include "daemon/web/assets.h"
 #include "monitors/interval.h"
 
 namespace forewarden {
@@ -239,6 +241,18 @@ json SeriesDetail(const SeriesView& v) {
   out["coverage"] = spec.coverage;
   out["method"] = monitors::MethodName(spec.method);
   out["alpha"] = s.alpha;
+  const monitors::Constants k = monitors::EffectiveConstants(spec, s);
+  json constants{{"alpha", k.alpha}};
+  if (monitors::HasTrend(spec.method)) constants["beta"] = k.beta;
+  if (k.phi != 1.0) constants["phi"] = k.phi;
+  if (k.season_length > 1) {
+    constants["gamma"] = k.gamma;
+    constants["season_length"] = k.season_length;
+  }
+  out["constants"] = constants;
+  out["adaptive"] = spec.adaptive.enabled
+                        ? json{{"floor", spec.adaptive.floor}, {"cap", spec.adaptive.cap}}
+                        : json(nullptr);
   out["smoothed_error"] = s.stats.smoothed_error;
   out["mad"] = s.stats.mad;
   out["cusum"] = s.stats.cusum;
@@ -246,17 +260,6 @@ json SeriesDetail(const SeriesView& v) {
   out["forecasts"] = s.forecasts;
   out["missing_periods"] = s.missing;
   return out;
-}
-
-bool ConstantTimeEqual(const std::string& a, const std::string& b) {
-  unsigned char diff = a.size() == b.size() ? 0 : 1;
-  const std::size_t n = std::max(a.size(), b.size());
-  for (std::size_t i = 0; i < n; ++i) {
-    const unsigned char x = i < a.size() ? static_cast<unsigned char>(a[i]) : 0;
-    const unsigned char y = i < b.size() ? static_cast<unsigned char>(b[i]) : 0;
-    diff |= static_cast<unsigned char>(x ^ y);
-  }
-  return diff == 0;
 }
 
 }  // namespace
@@ -270,6 +273,7 @@ struct Api::Call {
   std::string key;      // {key}: the series key, percent-decoded
   std::string id_text;  // {id}: as in the path
   const Route* route = nullptr;
+  std::optional<Person> person;  // who the bearer token names, when it names someone
   Respond respond;
   std::atomic<bool> answered{false};
 
@@ -291,31 +295,44 @@ struct Api::Call {
   }
 };
 
+// What a route asks of the caller (access.h).
+enum class Need {
+  kNothing,   // health, metrics, the page's files: never a token
+  kRead,      // a token of any role when server.token_for_reads is set
+  kPlanner,   // works alerts and resets forecasts
+  kOperator,  // everything else that writes
+};
+
 struct Api::Route {
   const char* method;
-  const char* pattern;  // literal segments, {key} (one or more segments) or {id} (one segment)
-  bool writes;          // needs the bearer token when one is configured
+  const char* pattern;  // literal segments, {key} (one or more segments), {id} (one segment),
+                        // {file} (one segment)
+  Need need;
   void (Api::*handler)(const std::shared_ptr<Call>&);
 };
 
 const std::vector<Api::Route>& Api::Routes() {
   static const std::vector<Route> kRoutes = {
-      {"GET", "/healthz", false, &Api::Health},
-      {"GET", "/readyz", false, &Api::Ready},
-      {"GET", "/metrics", false, &Api::MetricsText},
-      {"POST", "/v1/actuals", true, &Api::Ingest},
-      {"GET", "/v1/policies", false, &Api::Policies},
-      {"GET", "/v1/series", false, &Api::SeriesList},
-      {"GET", "/v1/series/{key}/history", false, &Api::SeriesHistory},
-      {"POST", "/v1/series/{key}/reset", true, &Api::SeriesReset},
-      {"GET", "/v1/series/{key}", false, &Api::SeriesDetailOf},
-      {"GET", "/v1/alerts", false, &Api::AlertList},
-      {"POST", "/v1/alerts/{id}/acknowledge", true, &Api::AlertAct},
-      {"POST", "/v1/alerts/{id}/snooze", true, &Api::AlertAct},
-      {"POST", "/v1/alerts/{id}/resolve", true, &Api::AlertAct},
-      {"GET", "/v1/alerts/{id}", false, &Api::AlertDetail},
-      {"GET", "/v1/deliveries", false, &Api::DeliveryList},
-      {"POST", "/v1/deliveries/retry", true, &Api::DeliveryRetry},
+      {"GET", "/healthz", Need::kNothing, &Api::Health},
+      {"GET", "/readyz", Need::kNothing, &Api::Ready},
+      {"GET", "/metrics", Need::kNothing, &Api::MetricsText},
+      {"GET", "/", Need::kNothing, &Api::Page},
+      {"GET", "/page/{id}", Need::kNothing, &Api::Page},
+      {"GET", "/v1/access", Need::kNothing, &Api::AccessInfo},
+      {"POST", "/v1/actuals", Need::kOperator, &Api::Ingest},
+      {"GET", "/v1/policies", Need::kRead, &Api::Policies},
+      {"GET", "/v1/attention", Need::kRead, &Api::Attention},
+      {"GET", "/v1/series", Need::kRead, &Api::SeriesList},
+      {"GET", "/v1/series/{key}/history", Need::kRead, &Api::SeriesHistory},
+      {"POST", "/v1/series/{key}/reset", Need::kPlanner, &Api::SeriesReset},
+      {"GET", "/v1/series/{key}", Need::kRead, &Api::SeriesDetailOf},
+      {"GET", "/v1/alerts", Need::kRead, &Api::AlertList},
+      {"POST", "/v1/alerts/{id}/acknowledge", Need::kPlanner, &Api::AlertAct},
+      {"POST", "/v1/alerts/{id}/snooze", Need::kPlanner, &Api::AlertAct},
+      {"POST", "/v1/alerts/{id}/resolve", Need::kPlanner, &Api::AlertAct},
+      {"GET", "/v1/alerts/{id}", Need::kRead, &Api::AlertDetail},
+      {"GET", "/v1/deliveries", Need::kRead, &Api::DeliveryList},
+      {"POST", "/v1/deliveries/retry", Need::kOperator, &Api::DeliveryRetry},
   };
   return kRoutes;
 }
@@ -366,17 +383,17 @@ bool Match(std::string_view pattern, std::string_view path, std::string& key, st
 
 }  // namespace
 
-Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
+Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, Access access,
          Metrics* metrics)
     : engine_(engine),
       metrics_(metrics),
       settings_(std::move(settings)),
-      token_(std::move(token)) {}
+      access_(std::move(access)) {}
 
-void Api::Update(std::shared_ptr<const config::Settings> settings, std::string token) {
+void Api::Update(std::shared_ptr<const config::Settings> settings, Access access) {
   std::lock_guard lock(mu_);
   settings_ = std::move(settings);
-  token_ = std::move(token);
+  access_ = std::move(access);
 }
 
 std::shared_ptr<const config::Settings> Api::settings() const {
@@ -384,18 +401,37 @@ std::shared_ptr<const config::Settings> Api::settings() const {
   return settings_;
 }
 
-bool Api::Authorized(const HttpRequest& request) {
-  std::string token;
+bool Api::Authorized(Call& call) {
+  const Need need = call.route->need;
+  if (need == Need::kNothing) return true;
+  Access access;
   {
     std::lock_guard lock(mu_);
-    token = token_;
+    access = access_;
   }
-  if (token.empty()) return true;
-  const std::string prefix = "Bearer ";
-  const bool ok = request.authorization.rfind(prefix, 0) == 0 &&
-                  ConstantTimeEqual(request.authorization.substr(prefix.size()), token);
-  if (!ok) counters_.rejected_unauthorized.fetch_add(1);
-  return ok;
+  call.person = access.Identify(call.request.authorization);
+  if (access.open()) return true;
+  if (need == Need::kRead && !access.reads_need_token()) return true;
+  if (!call.person) {
+    counters_.rejected_unauthorized.fetch_add(1);
+    call.Answer(Unauthorized());
+    return false;
+  }
+  const Role want = need == Need::kRead      ? Role::kRead
+                    : need == Need::kPlanner ? Role::kPlanner
+                                             : Role::kOperator;
+  if (call.person->role < want) {
+    counters_.rejected_forbidden.fetch_add(1);
+    call.Answer(Error(403, std::string("the token of ") + call.person->name + " has the role " +
+                               RoleName(call.person->role) + "; this needs " + RoleName(want)));
+    return false;
+  }
+  return true;
+}
+
+std::string Api::Actor(const Call& call, const std::string& from_body) {
+  if (call.person && !call.person->name.empty()) return call.person->name;
+  return from_body;
 }
 
 void Api::Internal(Call& call, const char* what) {
@@ -441,7 +477,7 @@ void Api::Dispatch(const std::shared_ptr<Call>& call) {
     call->route = &r;
     call->key = std::move(key);
     call->id_text = std::move(id);
-    if (r.writes && !Authorized(call->request)) return call->Answer(Unauthorized());
+    if (!Authorized(*call)) return;
     return (this->*r.handler)(call);
   }
   if (other_method) return call->Answer(Error(405, std::string("use ") + other_method));
@@ -544,35 +580,20 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
   if (sort != "key" && sort != "trigg" && sort != "cusum")
     return c->Fail(
         Status::Invalid("sort must be key, trigg or cusum (largest absolute signal first)"));
-  std::string label_name, label_value;
-  if (!label.empty()) {
-    const std::size_t colon = label.find(':');
-    if (colon == std::string::npos) return c->Fail(Status::Invalid("label must be name:value"));
-    label_name = label.substr(0, colon);
-    label_value = label.substr(colon + 1);
-  }
+  Result<LabelFilter> label_filter = LabelFilter::Parse(label);
+  if (!label_filter) return c->Fail(label_filter.status());
   const long lim = static_cast<long>(*limit), off = static_cast<long>(*offset);
-  OnEngine(c, [=, this] {
+  OnEngine(c, [=, this, labels = std::move(*label_filter)]() mutable {
     // Filter and sort light entries; JSON is built for the requested page only.
     struct Entry {
       SeriesView view;
       double order;  // |signal| (-1 when undefined) for sort=trigg|cusum
     };
     std::vector<Entry> rows;
-    std::unordered_map<const char*, bool> label_match;  // label sets are interned: one parse each
     auto visit = [&](const SeriesView& v) {
       if (!policy.empty() && v.policy != policy) return;
       if (!status.empty() && SeriesStatusText(v) != status) return;
-      if (!label_name.empty()) {
-        auto cached = label_match.find(v.labels.data());
-        if (cached == label_match.end()) {
-          json labels = json::parse(v.labels, nullptr, false);
-          auto it = labels.is_object() ? labels.find(label_name) : labels.end();
-          const bool ok = labels.is_object() && it != labels.end() && *it == label_value;
-          cached = label_match.emplace(v.labels.data(), ok).first;
-        }
-        if (!cached->second) return;
-      }
+      if (!labels.Matches(v.labels)) return;
       double order = -1;
       if (sort != "key") {
         const std::optional<double> sig = Signal(v, sort == "trigg");
@@ -606,7 +627,11 @@ void Api::SeriesDetailOf(const std::shared_ptr<Call>& c) {
   OnEngine(c, [this, c] {
     auto v = engine_.FindSeries(c->key);
     if (!v) return c->Fail(Status::NotFound("no series '" + c->key + "'"));
-    c->Answer(Json(200, SeriesDetail(*v)));
+    json out = SeriesDetail(*v);
+    Result<json> audit = AuditOf(engine_.db(), c->key, 100);
+    if (!audit) return c->Fail(audit.status());
+    out["audit"] = std::move(*audit);
+    c->Answer(Json(200, out));
   });
 }
 
@@ -674,9 +699,12 @@ void Api::SeriesReset(const std::shared_ptr<Call>& c) {
     if (!n) return c->Fail(n.status());
     k = static_cast<int>(*n);
   }
+  // With a person's token the audit log records the person; the body cannot say otherwise.
+  const bool named = !Actor(*c, "").empty();
   Result<std::string> who =
-      body->Text("who", true, "say who re-levels the series (recorded in the audit log)");
+      body->Text("who", !named, "say who re-levels the series (recorded in the audit log)");
   if (!who) return c->Fail(who.status());
+  *who = Actor(*c, *who);
   Result<std::string> note = body->Text("note", false, "a note for the audit log");
   if (!note) return c->Fail(note.status());
   OnEngine(c, [this, c, how = *how, value, k, who = *who, note = *note] {
@@ -752,9 +780,11 @@ void Api::AlertAct(const std::shared_ptr<Call>& c) {
   const std::string action = pattern.substr(pattern.rfind('/') + 1);
   Result<Body> body = Body::Parse(c->request.body, "{\"by\": \"name\", \"note\": \"...\"}");
   if (!body) return c->Fail(body.status());
+  const bool named = !Actor(*c, "").empty();
   Result<std::string> by =
-      body->Text("by", true, "say who does this (kept in the alert's history)");
+      body->Text("by", !named, "say who does this (kept in the alert's history)");
   if (!by) return c->Fail(by.status());
+  *by = Actor(*c, *by);
   Result<std::string> note = body->Text("note", false, "a note kept in the alert's history");
   if (!note) return c->Fail(note.status());
   std::string until;
@@ -826,6 +856,84 @@ void Api::DeliveryRetry(const std::shared_ptr<Call>& c) {
     if (!done) return c->Fail(done);
     c->Answer(Json(200, {{"requeued", changed}}));
   });
+}
+
+void Api::Attention(const std::shared_ptr<Call>& c) {
+  AttentionQuery q;
+  Result<std::int64_t> limit = ParseWholeNumber(c->ParamOr("limit", "50"), 1, 500);
+  if (!limit) return c->Fail(Status(limit.status()).Prefix("limit: "));
+  Result<std::int64_t> offset = ParseWholeNumber(c->ParamOr("offset", "0"), 0, 100000000);
+  if (!offset) return c->Fail(Status(offset.status()).Prefix("offset: "));
+  Result<std::int64_t> recent = ParseWholeNumber(c->ParamOr("recent", "26"), 0, 104);
+  if (!recent) return c->Fail(Status(recent.status()).Prefix("recent: "));
+  q.limit = static_cast<long>(*limit);
+  q.offset = static_cast<long>(*offset);
+  q.recent = static_cast<int>(*recent);
+  if (auto near = c->Param("near")) {
+    double v = 0;
+    if (!ParseNumber(*near, v)) return c->Fail(Status::Invalid("near: not a number: " + *near));
+    q.near = v;
+  }
+  const std::string state = c->ParamOr("state");
+  if (!state.empty()) q.state = state;
+  q.policy = c->ParamOr("policy");
+  q.label = c->ParamOr("label");
+  q.rule = c->ParamOr("rule");
+  q.severity = c->ParamOr("severity");
+  q.q = c->ParamOr("q");
+  if (Status ok = CheckAttentionQuery(q); !ok) return c->Fail(ok);
+  if (Result<LabelFilter> l = LabelFilter::Parse(q.label); !l) return c->Fail(l.status());
+  OnEngine(c, [this, c, q] {
+    Result<json> page = AttentionPage(engine_, q);
+    if (!page) return c->Fail(page.status());
+    c->Answer(Json(200, *page));
+  });
+}
+
+void Api::AccessInfo(const std::shared_ptr<Call>& c) {
+  Access access;
+  {
+    std::lock_guard lock(mu_);
+    access = access_;
+  }
+  const std::optional<Person> person = access.Identify(c->request.authorization);
+  json you = nullptr;
+  if (person)
+    you = {{"name", person->name.empty() ? json(nullptr) : json(person->name)},
+           {"role", RoleName(person->role)}};
+  // What the caller may do now: open services allow everything.
+  const Role role = access.open() ? Role::kOperator : person ? person->role : Role::kRead;
+  const bool reads = access.open() || !access.reads_need_token() || person;
+  const bool token_given = !c->request.authorization.empty();
+  json may = {{"read", reads},
+              {"work_alerts", (access.open() || person) && role >= Role::kPlanner},
+              {"operate", (access.open() || person) && role >= Role::kOperator}};
+  c->Answer(Json(200, {{"mode", access.mode()},
+                       {"reads_need_token", access.reads_need_token()},
+                       {"token_accepted", token_given ? json(person.has_value()) : json(nullptr)},
+                       {"names_recorded", person && !person->name.empty()},
+                       {"you", you},
+                       {"may", may}}));
+}
+
+void Api::Page(const std::shared_ptr<Call>& c) {
+  const std::string name = c->id_text.empty() ? "index.html" : c->id_text;
+  const PageFile* file = FindPageFile(name);
+  if (!file || (name == "index.html" && !c->id_text.empty()))
+    return c->Fail(Status::NotFound("no such page file: " + name.substr(0, 64)));
+  HttpResponse r;
+  r.content_type = file->content_type;
+  r.headers.emplace_back("Content-Security-Policy", PageSecurityPolicy());
+  r.headers.emplace_back("X-Frame-Options", "DENY");
+  r.headers.emplace_back("Referrer-Policy", "no-referrer");
+  r.headers.emplace_back("Cache-Control", "no-cache");
+  r.headers.emplace_back("ETag", file->etag);
+  if (c->request.if_none_match == file->etag) {
+    r.status = 304;
+    return c->Answer(std::move(r));
+  }
+  r.body = std::string(file->body);
+  c->Answer(std::move(r));
 }
 
 void Api::Ingest(const std::shared_ptr<Call>& c) {

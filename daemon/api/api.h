@@ -12,11 +12,13 @@
 //   ?state=dead|pending|delivered &sink= POST /v1/deliveries/retry             ?sink=  dead
 //   deliveries back to pending GET  /healthz, /readyz GET  /metrics Prometheus text exposition
 //   (metrics.h)
-// Write endpoints need "Authorization: Bearer TOKEN" when a token is configured (compared in
-// constant time, never logged). Reads run as jobs on the engine thread. Every route is one row of
-// the table in api.cpp (method, pattern, whether it writes, handler); the route label of the
-// request metrics is the pattern. Domain errors (common/status.h) become HTTP statuses in one
-// function, HttpStatusOf, and nowhere else.
+//   GET  /v1/attention                    the planner's list (attention.h)
+//   GET  /v1/access                       how the service is protected and who the token is
+//   GET  /, /page/{file}                  the planner page (web/assets.h)
+// Who may call what is the role the bearer token carries (access.h). Reads run as jobs on the
+// engine thread. Every route is one row of the table in api.cpp (method, pattern, the role it
+// needs, handler); the route label of the request metrics is the pattern. Domain errors
+// (common/status.h) become HTTP statuses in one function, HttpStatusOf, and nowhere else.
 #pragma once
 
 #include <memory>
@@ -25,6 +27,7 @@
 #include <vector>
 
 #include "config/settings.h"
+#include "daemon/api/access.h"
 #include "daemon/engine/engine.h"
 #include "daemon/http/http_server.h"
 #include "daemon/observe/metrics.h"
@@ -33,13 +36,13 @@ namespace forewarden {
 
 class Api {
  public:
-  Api(Engine& engine, std::shared_ptr<const config::Settings> settings, std::string token,
+  Api(Engine& engine, std::shared_ptr<const config::Settings> settings, Access access,
       Metrics* metrics = nullptr);
   // Answers every request exactly once. No exception leaves it: a handler that throws (here or
   // in its engine job) is answered 500, logged with its request line and counted.
   void Handle(HttpRequest&& request, Respond respond);
-  // Thread-safe: settings and token after a reload.
-  void Update(std::shared_ptr<const config::Settings> settings, std::string token);
+  // Thread-safe: settings and tokens after a reload.
+  void Update(std::shared_ptr<const config::Settings> settings, Access access);
   const ApiCounters& counters() const { return counters_; }
 
   struct Call;  // one request on its way through a handler (api.cpp)
@@ -50,7 +53,10 @@ class Api {
   // Runs `job` on the engine thread behind the same guard as Handle; busy when the queue is full.
   void OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job);
   void Internal(Call& call, const char* what);
-  bool Authorized(const HttpRequest& request);
+  // Whether the caller may use the route; answers 401 or 403 when not.
+  bool Authorized(Call& call);
+  // Who an action records: the token's person, else the body's field; empty when neither.
+  static std::string Actor(const Call& call, const std::string& from_body);
   std::shared_ptr<const config::Settings> settings() const;
 
   void Health(const std::shared_ptr<Call>& c);
@@ -67,6 +73,9 @@ class Api {
   void AlertAct(const std::shared_ptr<Call>& c);
   void DeliveryList(const std::shared_ptr<Call>& c);
   void DeliveryRetry(const std::shared_ptr<Call>& c);
+  void Attention(const std::shared_ptr<Call>& c);
+  void AccessInfo(const std::shared_ptr<Call>& c);
+  void Page(const std::shared_ptr<Call>& c);
 
   static const std::vector<Route>& Routes();
 
@@ -74,7 +83,7 @@ class Api {
   Metrics* metrics_;
   mutable std::mutex mu_;
   std::shared_ptr<const config::Settings> settings_;
-  std::string token_;
+  Access access_;
   ApiCounters counters_;
 };
 

@@ -53,22 +53,6 @@ void Log(std::ostream& err, const std::string& line, const char* level = "info")
   WriteLog(err, LogLine(level, line));
 }
 
-// The bearer token from the file or environment variable the settings name ("" = none).
-bool LoadToken(const config::Server& s, std::string& token, std::string& error) {
-  Result<std::string> read = ReadSecretText(
-      s.token_file, s.token_env, s.token_file.empty() ? "server.token_env" : "server.token_file");
-  if (!read) {
-    error = read.status().message();
-    return false;
-  }
-  token = std::move(*read);
-  if ((!s.token_file.empty() || !s.token_env.empty()) && token.size() < 16) {
-    error = "the bearer token must be at least 16 characters";
-    return false;
-  }
-  return true;
-}
-
 bool LoadSettings(const ServeOptions& o, std::shared_ptr<const config::Settings>& out,
                   std::string& error) {
   config::LoadResult r = config::LoadSettingsFile(o.config);
@@ -102,15 +86,15 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
     err << "forewarden serve: listen address '" << srv.listen << "' is not HOST:PORT\n";
     return 2;
   }
-  std::string token;
-  if (!LoadToken(srv, token, error)) {
-    err << "forewarden serve: " << error << '\n';
+  Result<Access> access = Access::Load(srv);
+  if (!access) {
+    err << "forewarden serve: " << access.status().message() << '\n';
     return 2;
   }
-  if (!IsLoopback(host) && token.empty()) {
+  if (!IsLoopback(host) && access->open()) {
     err << "forewarden serve: refusing to listen on " << host
-        << " without a bearer token: set server.token_file or server.token_env, or listen on "
-           "127.0.0.1\n";
+        << " without a bearer token: set server.token_file, server.token_env or "
+           "server.people_file, or listen on 127.0.0.1\n";
     return 2;
   }
   // A token that crosses a network in clear text is as good as published.
@@ -143,7 +127,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
     engine.Stop();
     return exit_code(started);
   }
-  Api api(engine, settings, token, &metrics);
+  Api api(engine, settings, std::move(*access), &metrics);
   HttpOptions http;
   http.host = host;
   http.port = port;
@@ -196,15 +180,16 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
         Log(err, "reload refused, the settings in force stay:\n" + why, "warn");
         return;
       }
-      std::string next_token;
-      if (!LoadToken(next->server, next_token, why)) {
+      Result<Access> next_access = Access::Load(next->server);
+      if (!next_access) {
         ++reloads_failed;
-        Log(err, "reload refused, the settings in force stay: " + why, "warn");
+        Log(err, "reload refused, the settings in force stay: " + next_access.status().message(),
+            "warn");
         return;
       }
       // Series keep their policy by name; a policy holding series must stay with the same
       // period, method and season length. Checked on the engine thread, then swapped there.
-      const bool queued = engine.Post([&, next, next_token] {
+      const bool queued = engine.Post([&, next, next_access = std::move(*next_access)] {
         std::string problem;
         engine.ForEachSeries([&](const SeriesView& v) {
           if (!problem.empty()) return;
@@ -257,7 +242,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
             Log(err, "certificate not renewed, the one in force stays: " + used.message(), "warn");
         }
         engine.Reload(next);
-        api.Update(next, next_token);
+        api.Update(next, next_access);
         ++reloads_ok;
         NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(next->policies.size()) +
                              " policies");
@@ -288,13 +273,12 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
                  " series by replaying actuals committed after their last saved state");
   Log(err, "serving " + std::to_string(settings->policies.size()) + " policies from " + o.config +
                ", data in " + srv.data);
-  if (!srv.token_file.empty()) {
+  for (const std::string& file : {srv.token_file, srv.people_file}) {
     struct stat st {};
-    if (stat(srv.token_file.c_str(), &st) == 0 && (st.st_mode & (S_IROTH | S_IWOTH)))
+    if (!file.empty() && stat(file.c_str(), &st) == 0 && (st.st_mode & (S_IROTH | S_IWOTH)))
       Log(err,
-          "the token file " + srv.token_file +
-              " is readable or writable by other users; chmod o-rw it (the token itself is never "
-              "logged)",
+          "the token file " + file +
+              " is readable or writable by other users; chmod o-rw it (tokens are never logged)",
           "warn");
   }
   NotifyServiceManager("READY=1\nSTATUS=serving " + std::to_string(settings->policies.size()) +

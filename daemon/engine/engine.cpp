@@ -823,14 +823,15 @@ bool Engine::IsStale(const Series& s, std::int64_t today) const {
   return now - s.state.last_period - 1 >= s.policy->stale_after;
 }
 
-SeriesView Engine::View(const Series& s, std::int64_t today) const {
-  return SeriesView{s.key,    s.policy->name, label_sets_[s.labels],
-                    &s.state, s.policy,       IsStale(s, today)};
+SeriesView Engine::View(std::size_t index, std::int64_t today) const {
+  const Series& s = series_[index];
+  return SeriesView{
+      s.key, s.policy->name, label_sets_[s.labels], &s.state, s.policy, IsStale(s, today), index};
 }
 
 void Engine::ForEachSeries(const std::function<void(const SeriesView&)>& each) const {
   const std::int64_t today = Today();
-  for (std::size_t i = 0; i < series_.size(); ++i) each(View(series_[i], today));
+  for (std::size_t i = 0; i < series_.size(); ++i) each(View(i, today));
 }
 
 void Engine::NoteAlerting(std::size_t index) {
@@ -853,13 +854,13 @@ void Engine::ForEachAlertingSeries(const std::function<void(const SeriesView&)>&
     alerting_[kept++] = i;
   }
   alerting_.resize(kept);
-  for (std::uint32_t i : alerting_) each(View(series_[i], today));
+  for (std::uint32_t i : alerting_) each(View(i, today));
 }
 
 std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {
   const long pos = index_.Find(key);
   if (pos < 0) return std::nullopt;
-  return View(series_[static_cast<std::size_t>(pos)], Today());
+  return View(static_cast<std::size_t>(pos), Today());
 }
 
 bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,

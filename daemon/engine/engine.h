@@ -66,6 +66,7 @@ struct SeriesView {
   const monitors::SeriesState* state = nullptr;
   const config::Policy* spec = nullptr;
   bool stale = false;
+  std::size_t index = 0;  // the engine's index (the alert book's series index)
 };
 
 // One retained period of a series, recomputed with the engine's own step.
@@ -259,7 +260,7 @@ class Engine {
                       std::vector<AlertChange>& out) const;
   std::int64_t Today() const;  // days since 1970-01-01 by the clock
   bool IsStale(const Series& s, std::int64_t today) const;
-  SeriesView View(const Series& s, std::int64_t today) const;
+  SeriesView View(std::size_t index, std::int64_t today) const;
   // Loads the checkpoint and runs all but the newest `leave_last` retained actuals through the
   // step, applying re-levels; `actuals` gets every retained actual. False on a store failure
   // (recorded) or when an actual does not step.

@@ -170,6 +170,7 @@ struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Ses
     r.target = std::string(req.target());
     r.content_type = std::string(req[http::field::content_type]);
     r.authorization = std::string(req[http::field::authorization]);
+    r.if_none_match = std::string(req[http::field::if_none_match]).substr(0, 256);
     r.body = std::move(req.body());
     auto self = shared_from_this();
     server->handler(std::move(r), [self](HttpResponse out) {
@@ -197,6 +198,8 @@ struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Ses
     response->result(static_cast<unsigned>(out.status));
     response->set(http::field::server, "forewarden");
     response->set(http::field::content_type, out.content_type);
+    // Every answer: the browser must not guess another type than the one sent.
+    response->set("X-Content-Type-Options", "nosniff");
     for (auto& [name, value] : out.headers) response->set(name, value);
     response->body() = std::move(out.body);
     if (server->stopping) keep_alive = false;

@@ -23,6 +23,7 @@ struct HttpRequest {
   std::string target;  // path and query, as sent
   std::string content_type;
   std::string authorization;
+  std::string if_none_match;  // a page file's tag the browser holds
   std::string body;
 };
 

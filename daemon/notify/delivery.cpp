@@ -117,10 +117,10 @@ json AmAlert(const json& alert, const std::string& severity, bool firing, std::i
               {"severity", severity},
               {"service", "forewarden"}};
   json a{{"labels", labels},
-         {"annotations", {{"url", alert.value("url", "")}}},
+         {"annotations", {{"url", alert.value("url", "")}, {"page", alert.value("page_url", "")}}},
          {"startsAt", alert.value("opened_at", IsoTime(now_ms))},
          {"endsAt", IsoTime(firing ? ends_ms : now_ms)},
-         {"generatorURL", alert.value("url", "")}};
+         {"generatorURL", alert.value("page_url", alert.value("url", ""))}};
   return a;
 }
 
@@ -380,10 +380,13 @@ void Delivery::Impl::Round(std::int64_t now) {
           std::string error;
           const bool ok = notifications.Event(e.event, note, error);
           if (ok)
-            WriteLog(std::cerr, LogLine("info", "alert",
-                                        {{"event", std::to_string(e.event)},
-                                         {"kind", e.kind},
-                                         {"summary", note.value("summary", "")}}));
+            WriteLog(std::cerr,
+                     LogLine("info", "alert",
+                             {{"event", std::to_string(e.event)},
+                              {"kind", e.kind},
+                              {"summary", note.value("summary", "")},
+                              {"page", note.contains("alert") ? note["alert"].value("page_url", "")
+                                                              : std::string()}}));
           Finish(s, e, ok, error, now);
         }
         break;

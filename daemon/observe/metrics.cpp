@@ -367,6 +367,8 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
         .Increment(static_cast<double>(a->internal_errors.load()));
     rejections.Add({{"reason", "unauthorized"}})
         .Increment(static_cast<double>(a->rejected_unauthorized.load()));
+    rejections.Add({{"reason", "forbidden"}})
+        .Increment(static_cast<double>(a->rejected_forbidden.load()));
     rejections.Add({{"reason", "media_type"}})
         .Increment(static_cast<double>(a->rejected_media_type.load()));
     rejections.Add({{"reason", "bad_input"}})

@@ -33,6 +33,7 @@ class Delivery;
 // What the API refused, by reason (kept by the API, read at scrape time).
 struct ApiCounters {
   std::atomic<long> rejected_unauthorized{0};
+  std::atomic<long> rejected_forbidden{0};  // a known token whose role does not allow the route
   std::atomic<long> rejected_media_type{0};
   std::atomic<long> rejected_bad_input{0};
   std::atomic<long> rejected_too_many_rows{0};

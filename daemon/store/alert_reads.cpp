@@ -173,6 +173,23 @@ Result<AlertPage> ListAlerts(Db& db, const AlertFilter& f) {
   return page;
 }
 
+Result<json> AuditOf(Db& db, const std::string& series_key, long limit) {
+  Stmt q = db.Prepare(
+      "SELECT at_ms, who, action, detail FROM audit WHERE series_key = ?1 ORDER BY id DESC "
+      "LIMIT ?2");
+  if (!q.valid()) return Status::StoreFailed(db.error());
+  q.Bind(1, series_key).Bind(2, static_cast<std::int64_t>(limit));
+  json out = json::array();
+  if (!q.Step()) return Status::StoreFailed(db.error());
+  for (; q.Row(); q.Step())
+    out.push_back({{"at", IsoTime(q.Int(0))},
+                   {"who", std::string(q.Text(1))},
+                   {"action", std::string(q.Text(2))},
+                   {"detail", std::string(q.Text(3))}});
+  q.Reset();
+  return out;
+}
+
 Result<json> ListDeliveries(Db& db, const std::string& state, const std::string& sink) {
   Stmt q = db.Prepare(
       "SELECT d.event_id, d.sink, d.state, d.attempts, d.last_error, e.kind, e.alert_id, "
@@ -193,8 +210,10 @@ Result<json> ListDeliveries(Db& db, const std::string& state, const std::string&
   return list;
 }
 
-std::string SeriesUrl(const std::string& base, const std::string& key) {
-  std::string out = base + "/v1/series/";
+namespace {
+
+std::string PercentEncoded(const std::string& prefix, const std::string& key) {
+  std::string out = prefix;
   static const char* kHex = "0123456789ABCDEF";
   for (unsigned char c : key) {
     if (std::isalnum(c) || c == '-' || c == '_' || c == '.' || c == '~') {
@@ -206,6 +225,16 @@ std::string SeriesUrl(const std::string& base, const std::string& key) {
     }
   }
   return out;
+}
+
+}  // namespace
+
+std::string SeriesUrl(const std::string& base, const std::string& key) {
+  return PercentEncoded(base + "/v1/series/", key);
+}
+
+std::string SeriesPageUrl(const std::string& base, const std::string& key) {
+  return PercentEncoded(base + "/#/series/", key);
 }
 
 std::string PublicUrl(const config::Settings& settings) {
@@ -317,6 +346,7 @@ bool Notifications::Event(std::int64_t event, json& out, std::string& error) {
   if (!severity.empty()) a["severity"] = severity;
   if (has_value) a["value"] = value;
   a["url"] = SeriesUrl(public_url_, a["series"].get<std::string>());
+  a["page_url"] = SeriesPageUrl(public_url_, a["series"].get<std::string>());
   std::string summary = kind + " " + a["rule"].get<std::string>() + " on " +
                         a["series"].get<std::string>() + " (" + a["policy"].get<std::string>() +
                         "): " + a["severity"].get<std::string>() + " " +
@@ -342,6 +372,7 @@ bool Notifications::Current(std::int64_t alert, json& out, std::string& error) {
   json a;
   if (!SelectAlert(alert_, alert, a, error, *db_)) return false;
   a["url"] = SeriesUrl(public_url_, a["series"].get<std::string>());
+  a["page_url"] = SeriesPageUrl(public_url_, a["series"].get<std::string>());
   out = json{{"kind", "opened"}, {"alert", std::move(a)}};
   out["summary"] = "open " + out["alert"]["rule"].get<std::string>() + " on " +
                    out["alert"]["series"].get<std::string>();

@@ -33,6 +33,10 @@ struct AlertPage {
 };
 Result<AlertPage> ListAlerts(Db& db, const AlertFilter& filter);
 
+// The audit log of a series (resets by hand), newest first, at most `limit`:
+// [{"at", "who", "action", "detail"}].
+Result<nlohmann::json> AuditOf(Db& db, const std::string& series_key, long limit);
+
 // Deliveries in `state` (dead, pending, delivered) of `sink` (every sink when empty), oldest
 // event first, at most 1,000.
 Result<nlohmann::json> ListDeliveries(Db& db, const std::string& state, const std::string& sink);
@@ -41,6 +45,8 @@ Result<nlohmann::json> ListDeliveries(Db& db, const std::string& state, const st
 std::string PublicUrl(const config::Settings& settings);
 // The API URL of a series under `base` (the key percent-encoded).
 std::string SeriesUrl(const std::string& base, const std::string& key);
+// The planner page's view of a series under `base` (web/page/app.js, "#/series/KEY").
+std::string SeriesPageUrl(const std::string& base, const std::string& key);
 
 // Notifications built at delivery time from an event row and its alert's (or group's) row: the
 // outbox stores facts, not message text. Used by the delivery worker on its own connection.

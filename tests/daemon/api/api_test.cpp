@@ -53,7 +53,7 @@ struct World {
   TempDir dir;
   std::shared_ptr<const config::Settings> settings = Settings(dir.File("data"));
   Engine engine{settings, [] { return std::int64_t{0}; }};
-  Api api{engine, settings, ""};
+  Api api{engine, settings, forewarden::Access{}};
   World() {
     std::string error;
     REQUIRE(engine.Start().ok());
