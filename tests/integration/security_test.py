@@ -4,10 +4,12 @@ start-up; JSON answers escape whatever a series key holds; query values are boun
 spliced into SQL."""
 import json
 import os
+import signal
+import subprocess
 import sys
 
 sys.path.insert(0, os.path.dirname(__file__))
-from harness import Server, run, temp_dir  # noqa: E402
+from harness import BINARY, Server, run, temp_dir  # noqa: E402
 
 TOKEN = "tok-abcdefghijklmnop-0123"
 WRITES = [
@@ -53,6 +55,128 @@ policies:
     assert all(TOKEN not in line for line in srv.stderr_lines), srv.stderr_lines
 
 
+PEOPLE = {  # name: (role, token)
+    "rita": ("read", "rita-token-0123456789abcdef"),
+    "pablo": ("planner", "pablo-token-0123456789abcdef"),
+    "olga": ("operator", "olga-token-0123456789abcdef"),
+}
+# What each role may do, by write endpoint (api/access.h): planners work alerts and reset
+# forecasts; operators also send actuals and retry deliveries.
+ALLOWED = {
+    "read": set(),
+    "planner": {"/v1/series/w%2Fa/reset", "/v1/alerts/1/acknowledge", "/v1/alerts/1/snooze",
+                "/v1/alerts/1/resolve"},
+    "operator": {path for path, _, _ in WRITES},
+}
+
+
+def _people_file(path, people):
+    import hashlib
+    with open(path, "w") as f:
+        f.write("# name role sha256-of-token\n")
+        for name, (role, token) in people.items():
+            f.write("%s %s %s\n" % (name, role, hashlib.sha256(token.encode()).hexdigest()))
+    os.chmod(path, 0o600)
+
+
+def test_each_role_against_each_write_endpoint_and_names_are_recorded():
+    d = temp_dir()
+    people = os.path.join(d, "people")
+    _people_file(people, PEOPLE)
+    srv = Server("""
+server: {people_file: '%s', token_for_reads: true}
+policies:
+  - {name: p, match: '*', period: week, warmup: 0, start: {mean_of_first: 1},
+     rules: [{name: r, signal: cusum, limit: 1}]}
+""" % people, workdir=d)
+    try:
+        # a series with an open alert for the alert endpoints
+        feed = "series,period,value\n" + "".join("w/a,2026-W%02d,%d\n" % (w, v)
+                                                  for w, v in zip(range(1, 9), [10, 10, 10, 11, 30, 31, 32, 33]))
+        status, answer, _ = srv.request("POST", "/v1/actuals", feed, "text/csv", token=PEOPLE["olga"][1])
+        assert status == 200 and answer["alerts_opened"] >= 1, answer
+        # reads need a token of any role; health, metrics and the page never do
+        assert srv.request("GET", "/v1/series")[0] == 401
+        for path in ("/healthz", "/metrics", "/", "/page/app.js", "/v1/access"):
+            assert srv.request("GET", path)[0] == 200, path
+        for name, (role, token) in PEOPLE.items():
+            assert srv.request("GET", "/v1/series", token=token)[0] == 200, name
+            status, access, _ = srv.request("GET", "/v1/access", token=token)
+            assert access["mode"] == "people" and access["you"] == {"name": name, "role": role}, access
+            assert access["names_recorded"] is True
+            assert access["may"]["work_alerts"] == (role != "read"), access
+            assert access["may"]["operate"] == (role == "operator"), access
+        status, access, _ = srv.request("GET", "/v1/access", token="not-a-known-token-at-all")
+        assert access["token_accepted"] is False and access["you"] is None, access
+        # each role against each write endpoint (alert 1 stays open until the resolve, which
+        # comes before the reset, which resolves what is left)
+        for name in ("rita", "pablo", "olga"):
+            role, token = PEOPLE[name]
+            for path, ctype, body in WRITES[2:] + WRITES[:2]:  # the alert ones before the reset
+                status, answer, _ = srv.request("POST", path, body, ctype, token=token)
+                if path in ALLOWED[role]:
+                    assert status not in (401, 403), (name, path, status, answer)
+                else:
+                    assert status == 403, (name, path, status, answer)
+                    assert role in answer["error"], answer
+            status, _, _ = srv.request("POST", WRITES[0][0], WRITES[0][2], WRITES[0][1], token="wrong-token-0123456789")
+            assert status == 401
+        # the audit trail holds the token's name, not what the body typed
+        status, alert, _ = srv.request("GET", "/v1/alerts/1")
+        assert status == 401
+        status, alert, _ = srv.request("GET", "/v1/alerts/1", token=PEOPLE["rita"][1])
+        by = {(e["kind"], e["by"]) for e in alert["history"]}
+        assert ("acknowledged", "pablo") in by and ("resolved", "pablo") in by, alert["history"]
+        assert all(e["by"] != "x" for e in alert["history"]), alert["history"]
+        status, series, _ = srv.request("GET", "/v1/series/w%2Fa", token=PEOPLE["rita"][1])
+        assert {a["who"] for a in series["audit"]} == {"pablo", "olga"}, series["audit"]
+        # a planner needs no "by": the service knows who it is
+        status, answer, _ = srv.request("POST", "/v1/series/w%2Fa/reset", '{"to": "last"}', "application/json",
+                                        token=PEOPLE["pablo"][1])
+        assert status == 200 and answer["reset"]["who"] == "pablo", answer
+        status, metrics, _ = srv.request("GET", "/metrics")
+        assert 'forewarden_http_rejections_total{reason="forbidden"} 8' in metrics, metrics
+        # SIGHUP reloads the people file: rita leaves, a bad line is refused whole
+        _people_file(people, {k: v for k, v in PEOPLE.items() if k != "rita"})
+        srv.signal(signal.SIGHUP)
+        srv.wait_stderr("reloaded")
+        assert srv.request("GET", "/v1/series", token=PEOPLE["rita"][1])[0] == 401
+        with open(people, "a") as f:
+            f.write("eve boss 1234\n")
+        srv.signal(signal.SIGHUP)
+        line = srv.wait_stderr("reload refused")
+        assert "line 4, field role" in line, line
+        assert srv.request("GET", "/v1/series", token=PEOPLE["pablo"][1])[0] == 200
+    finally:
+        srv.stop()
+    for name, (role, token) in PEOPLE.items():
+        assert all(token not in line for line in srv.stderr_lines), name
+
+
+def test_people_file_problems_name_line_and_field():
+    d = temp_dir()
+    cases = [
+        ("ana planner\n", "line 1, field hash: missing"),
+        ("ana chief " + "a" * 64 + "\n", "line 1, field role"),
+        ("ana planner xyz\n", "line 1, field hash: must be 64 hex digits"),
+        ("# c\nana planner " + "a" * 64 + "\nana read " + "b" * 64 + "\n", "line 3, field name: 'ana' is listed twice"),
+        ("a<b planner " + "a" * 64 + "\n", "line 1, field name"),
+        ("ana planner " + "a" * 64 + "\nbob read " + "a" * 64 + "\n", "line 2, field hash: the same token as ana"),
+        ("# nobody\n", "lists nobody"),
+    ]
+    for text, expected in cases:
+        people = os.path.join(d, "people")
+        with open(people, "w") as f:
+            f.write(text)
+        config = os.path.join(d, "s.yaml")
+        with open(config, "w") as f:
+            f.write("server: {people_file: '%s'}\npolicies:\n  - {name: p, match: '*', period: week}\n" % people)
+        proc = subprocess.run([BINARY, "serve", "--config", config, "--listen", "127.0.0.1:0", "--data",
+                               os.path.join(d, "data")], capture_output=True, text=True, timeout=60)
+        assert proc.returncode == 2, (text, proc.returncode, proc.stderr)
+        assert expected in proc.stderr, (text, proc.stderr)
+
+
 def test_json_escapes_keys_and_queries_are_bound():
     srv = Server("""
 policies:
@@ -78,4 +202,6 @@ policies:
 
 
 if __name__ == "__main__":
-    sys.exit(run([test_writes_need_the_token_and_the_token_stays_secret, test_json_escapes_keys_and_queries_are_bound]))
+    sys.exit(run([test_writes_need_the_token_and_the_token_stays_secret, test_json_escapes_keys_and_queries_are_bound,
+              test_each_role_against_each_write_endpoint_and_names_are_recorded,
+              test_people_file_problems_name_line_and_field]))

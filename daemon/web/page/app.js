@@ -158,8 +158,11 @@
     const a = state.access;
     return !!a && a.may.work_alerts;
   }
+  // Whether the service records the token's name as who acts (no name to type): with a
+  // person's token, and in people mode before one is given (the shared token aside).
   function namesRecorded() {
-    return !!state.access && state.access.names_recorded;
+    const a = state.access;
+    return !!a && (a.names_recorded || (a.mode === 'people' && !a.you));
   }
 
   function renderAccess() {
@@ -395,6 +398,7 @@
     main.append(summary, table, pager);
     for (const [box, row] of sparks) sparkline(box, row.recent_actual, row.recent_forecast);
     state.current = -1;
+    if (window.forewardenReadyMs === undefined) window.forewardenReadyMs = performance.now();
     main.dataset.ready = 'attention';
   }
 
@@ -683,7 +687,9 @@
       const until = action === 'snooze' ? el('input', { id: id + '-until', type: 'text', required: true, placeholder: 'a period such as ' + (alert.opened_period || '2026-12-07') + ' or 2026-12-31T09:00:00Z' }) : null;
       const preview = el('p', { class: 'preview', role: 'status' });
       const describe = () => {
-        const name = namesRecorded() ? state.access.you.name : (who && who.querySelector('input').value.trim()) || '(your name)';
+        const you = state.access && state.access.you;
+        const name = who ? who.querySelector('input').value.trim() || '(your name)'
+          : you && you.name ? you.name : 'the person whose token you give';
         const verb = { acknowledge: 'Acknowledge', snooze: 'Snooze', resolve: 'Resolve' }[action];
         let text = verb + ' alert #' + alert.id + ' (' + alert.rule + ', ' + alert.severity + ') as ' + name;
         if (action === 'snooze') text += ' until ' + ((until && until.value.trim()) || '\u2026') + '; it opens again then if the rule still holds';
