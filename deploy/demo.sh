@@ -1,8 +1,9 @@
 #!/usr/bin/env bash
 # Quick start, part 1: install what is missing, build (Release), start the service on
 # config/demo.yaml with an empty data folder, invent three years of weekly sales for 2,000
-# series of a chain of garden and hardware stores, push them week by week, show what the
-# service raised, and keep it running until Ctrl-C.
+# series of a chain of garden and hardware stores (ending this week), push them week by week,
+# show what the service raised, print the planner page's address, and keep it running until
+# Ctrl-C.
 # Everything stays under build/demo/ (feed.csv, truth.csv with the injected changes, data/).
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -17,7 +18,10 @@ port=${FOREWARDEN_DEMO_PORT:-8700}
 rm -rf "$out/data"
 mkdir -p "$out"
 "$bin" check-config config/demo.yaml
-"$bin" simulate --series 2000 --periods 156 --seed 20261201 \
+# 156 weeks ending with the current one, so alerts open in the recent past and the staleness
+# rules run on today's clock.
+start=$(date -u -d "$(date -u +%F) - 155 weeks" +%F)
+"$bin" simulate --series 2000 --periods 156 --seed 20261201 --start "$start" \
   --output "$out/feed.csv" --truth "$out/truth.csv"
 
 "$bin" serve --config config/demo.yaml --listen "127.0.0.1:$port" --data "$out/data" \
@@ -51,9 +55,13 @@ for a in json.load(sys.stdin)["alerts"]:
     print("  #%-6d %-28s %-14s %-7s %-8s since %s" % (
         a["id"], a["series"], a["policy"], a["rule"], a["severity"], a["opened_period"]))'
 alert=$(curl -s "$url/v1/alerts?state=open&limit=1" | python3 -c 'import json,sys; a=json.load(sys.stdin)["alerts"]; print(a[0]["id"] if a else 1)')
+snooze_to=$(date -u -d "$(date -u +%F) + 14 days" +%F)
 cat <<EOT
 
-Where to look (the service keeps running; Ctrl-C stops it):
+The planner page: $url/
+  (the attention list; open a series for its charts, alerts and actions)
+
+Where to look with curl (the service keeps running; Ctrl-C stops it):
   curl -s '$url/v1/policies'
   curl -s '$url/v1/series?status=alerting&sort=cusum&limit=20'
   curl -s '$url/v1/series/$first'
@@ -62,7 +70,7 @@ Where to look (the service keeps running; Ctrl-C stops it):
   curl -s '$url/v1/alerts?state=open&rule=shift'
   curl -s '$url/v1/alerts/$alert'
   curl -s -X POST '$url/v1/alerts/$alert/acknowledge' -d '{"by": "you", "note": "looking"}'
-  curl -s -X POST '$url/v1/alerts/$alert/snooze' -d '{"by": "you", "until": "2028-02-07"}'
+  curl -s -X POST '$url/v1/alerts/$alert/snooze' -d '{"by": "you", "until": "$snooze_to"}'
   injected changes to compare with: $out/truth.csv
 EOT
 wait $pid

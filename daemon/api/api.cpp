@@ -522,8 +522,10 @@ void Api::MetricsText(const std::shared_ptr<Call>& c) {
 void Api::Policies(const std::shared_ptr<Call>& c) {
   OnEngine(c, [this, c] {
     json list = json::array();
+    std::unordered_map<const config::Policy*, long> by_policy;
+    engine_.ForEachSeries([&](const SeriesView& v) { ++by_policy[v.spec]; });
     std::unordered_map<std::string, long> counts;
-    engine_.ForEachSeries([&](const SeriesView& v) { ++counts[v.policy]; });
+    for (const config::Policy& p : engine_.settings().policies) counts[p.name] = by_policy[&p];
     for (const config::Policy& p : engine_.settings().policies) {
       json labels = json::object();
       for (auto& [k, v] : p.match.labels) labels[k] = v;

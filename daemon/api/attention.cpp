@@ -109,25 +109,33 @@ struct PolicyCount {
 
 Result<json> AttentionPage(Engine& engine, const AttentionQuery& q) {
   const auto& policies = engine.settings().policies;
-  // The unresolved alerts, by series.
-  std::unordered_map<std::size_t, AlertSum> sums;
+  // The unresolved alerts, summed by series and sorted by series index: the pass over the
+  // series below goes in index order and walks this list beside it.
+  std::vector<std::pair<std::size_t, AlertSum>> sums;
+  {
+    std::unordered_map<std::size_t, AlertSum> by_series;
+    engine.alerts().Tally(
+        [&](std::size_t index, std::size_t rule, const char* state, monitors::Severity severity) {
+          AlertSum& a = by_series[index];
+          const char st = state[0];
+          if (st == 'o') ++a.open;
+          if (st == 'a') ++a.acknowledged;
+          if (st == 's') ++a.snoozed;
+          a.worst = std::max(a.worst, static_cast<int>(severity));
+          if (rule < 64) a.rules |= std::uint64_t{1} << rule;
+          a.severities |= 1u << static_cast<int>(severity);
+        });
+    sums.assign(by_series.begin(), by_series.end());
+    std::sort(sums.begin(), sums.end(),
+              [](const auto& x, const auto& y) { return x.first < y.first; });
+  }
+  std::size_t cursor = 0;
   std::vector<PolicyCount> counts(policies.size());
   auto policy_index = [&](const config::Policy* p) -> std::size_t {
     for (std::size_t i = 0; i < policies.size(); ++i)
       if (&policies[i] == p) return i;
     return policies.size();
   };
-  engine.alerts().Tally(
-      [&](std::size_t index, std::size_t rule, const char* state, monitors::Severity severity) {
-        AlertSum& a = sums[index];
-        const char st = state[0];
-        if (st == 'o') ++a.open;
-        if (st == 'a') ++a.acknowledged;
-        if (st == 's') ++a.snoozed;
-        a.worst = std::max(a.worst, static_cast<int>(severity));
-        if (rule < 64) a.rules |= std::uint64_t{1} << rule;
-        a.severities |= 1u << static_cast<int>(severity);
-      });
   const std::optional<monitors::Severity> severity =
       q.severity.empty() ? std::nullopt : monitors::ParseSeverity(q.severity);
   Result<LabelFilter> labels = LabelFilter::Parse(q.label);
@@ -139,13 +147,15 @@ Result<json> AttentionPage(Engine& engine, const AttentionQuery& q) {
     int worst;
     double closeness;
     int nearest;
+    bool alerts;  // has an unresolved alert
   };
   std::vector<Entry> rows;
   engine.ForEachSeries([&](const SeriesView& v) {
     const std::size_t pi = policy_index(v.spec);
     const auto [closeness, nearest] = Closeness(*v.state, *v.spec);
-    auto found = sums.find(v.index);
-    const AlertSum* a = found == sums.end() ? nullptr : &found->second;
+    while (cursor < sums.size() && sums[cursor].first < v.index) ++cursor;
+    const AlertSum* a =
+        cursor < sums.size() && sums[cursor].first == v.index ? &sums[cursor].second : nullptr;
     const SeriesStatus status = StatusOf(*v.state, *v.spec, v.stale);
     const bool near = !v.state->active && closeness >= q.near && !a;
     if (pi < counts.size()) {
@@ -191,7 +201,7 @@ Result<json> AttentionPage(Engine& engine, const AttentionQuery& q) {
     }
     if (!ContainsNoCase(v.key, q.q)) return;
     if (!labels->Matches(v.labels)) return;
-    rows.push_back({v, group, a ? a->worst : -1, closeness, nearest});
+    rows.push_back({v, group, a ? a->worst : -1, closeness, nearest, a != nullptr});
   });
   auto before = [](const Entry& x, const Entry& y) {
     if (x.group != y.group) return x.group < y.group;
@@ -236,7 +246,7 @@ Result<json> AttentionPage(Engine& engine, const AttentionQuery& q) {
     f.state = "unresolved";
     f.series = key;
     f.limit = 64;
-    if (sums.count(v.index)) {
+    if (e.alerts) {
       Result<AlertPage> alerts = ListAlerts(engine.db(), f);
       if (!alerts) return alerts.status();
       row["alerts"] = std::move(alerts->alerts);

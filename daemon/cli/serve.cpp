@@ -197,11 +197,11 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
           for (const auto& p : next->policies)
             if (p.name == v.policy) np = &p;
           if (!np)
-            problem = "policy '" + v.policy + "' holds series (e.g. '" + std::string(v.key) +
-                      "') but is gone";
+            problem = "policy '" + std::string(v.policy) + "' holds series (e.g. '" +
+                      std::string(v.key) + "') but is gone";
           else if (np->period != v.spec->period || np->spec.method != v.spec->spec.method ||
                    np->spec.constants.season_length != v.spec->spec.constants.season_length)
-            problem = "policy '" + v.policy +
+            problem = "policy '" + std::string(v.policy) +
                       "' changed its period, method or season length; "
                       "that needs a new policy name";
         });

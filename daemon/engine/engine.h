@@ -61,7 +61,7 @@ struct IngestReply {
 // One series as the read API sees it.
 struct SeriesView {
   std::string_view key;
-  std::string policy;
+  std::string_view policy;  // the policy's name (lives as long as the settings in force)
   std::string_view labels;  // JSON object text
   const monitors::SeriesState* state = nullptr;
   const config::Policy* spec = nullptr;
@@ -157,7 +157,7 @@ class Engine {
   // ---- Engine thread only (inside Post jobs) ----
   const config::Settings& settings() const { return *settings_; }
   std::size_t series_count() const { return series_.size(); }
-  // Every series, in creation order.
+  // Every series, in creation order (ascending SeriesView::index).
   void ForEachSeries(const std::function<void(const SeriesView&)>& each) const;
   // Only the series that hold a rule now (an index kept with each batch and housekeeping, so
   // an alerting list costs the alerting series, not all of them). Any order.
