@@ -44,11 +44,11 @@ HOSTILE = '<img src=x onerror="window.__pwned=1">'
 SHOTS = os.path.join(os.environ.get("FOREWARDEN_BUILD_DIR", temp_dir()), "screenshots")
 
 
-def feed(d, series=120, periods=104, seed=20261202):
+def feed(d, series=120, periods=104, seed=20261202, start="2024-01-01"):
     """An invented feed from the service's own simulator; returns its CSV text."""
     path = os.path.join(d, "feed.csv")
     subprocess.run([BINARY, "simulate", "--series", str(series), "--periods", str(periods), "--seed", str(seed),
-                    "--start", "2024-01-01", "--output", path, "--truth", os.path.join(d, "truth.csv")],
+                    "--start", start, "--output", path, "--truth", os.path.join(d, "truth.csv")],
                    check=True, capture_output=True, timeout=DEADLINE)
     with open(path) as f:
         return f.read()
@@ -364,7 +364,10 @@ def test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so():
 def test_each_view_at_1280_and_360_wide_with_screenshots_and_timing():
     d, srv = service()
     try:
-        load(srv, feed(d, series=400))
+        # the pictures show a feed that ends this week, as a planner's would (same values)
+        import datetime
+        start = datetime.date.today() - datetime.timedelta(weeks=103)
+        load(srv, feed(d, series=400, start=start.isoformat()))
         _, api, _ = srv.request("GET", "/v1/attention?state=open&limit=1")
         key = api["rows"][0]["key"]
         b = Browser()
