@@ -36,6 +36,12 @@ class Access {
  public:
   // Reads the shared token and the people file that `server` names.
   static Result<Access> Load(const config::Server& server);
+  // One shared token (the operator), as token_file would give; for embedding and tests.
+  static Access Shared(std::string token) {
+    Access a;
+    a.shared_ = std::move(token);
+    return a;
+  }
   // Parses people-file text; `source` names it in errors ("FILE line N, field role: ...").
   static Result<std::vector<std::pair<Person, std::string>>> ParsePeople(const std::string& text,
                                                                          const std::string& source);

@@ -49,8 +49,9 @@ World& TheWorld() {
     if (!world.engine->Start().ok()) std::abort();
     world.metrics = std::make_unique<forewarden::Metrics>();
     world.metrics->SetSources(forewarden::MetricSources{world.engine.get()});
-    world.api = std::make_unique<forewarden::Api>(*world.engine, world.settings,
-                                                  "fuzz-token-0123456789", world.metrics.get());
+    world.api = std::make_unique<forewarden::Api>(
+        *world.engine, world.settings, forewarden::Access::Shared("fuzz-token-0123456789"),
+        world.metrics.get());
     return world;
   }();
   return w;
