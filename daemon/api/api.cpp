@@ -221,6 +221,23 @@ json SeriesSummary(const SeriesView& v) {
   return out;
 }
 
+// The constants a method uses (alpha always; beta, phi, gamma and the season where it has them).
+json ConstantsJson(monitors::Method method, const monitors::Constants& k) {
+  json constants{{"alpha", k.alpha}};
+  if (monitors::HasTrend(method)) constants["beta"] = k.beta;
+  if (k.phi != 1.0) constants["phi"] = k.phi;
+  if (k.season_length > 1) {
+    constants["gamma"] = k.gamma;
+    constants["season_length"] = k.season_length;
+  }
+  return constants;
+}
+
+json AdaptiveJson(const monitors::PolicySpec& spec) {
+  return spec.adaptive.enabled ? json{{"floor", spec.adaptive.floor}, {"cap", spec.adaptive.cap}}
+                               : json(nullptr);
+}
+
 json SeriesDetail(const SeriesView& v) {
   json out = SeriesSummary(v);
   const monitors::SeriesState& s = *v.state;
@@ -241,18 +258,8 @@ json SeriesDetail(const SeriesView& v) {
   out["coverage"] = spec.coverage;
   out["method"] = monitors::MethodName(spec.method);
   out["alpha"] = s.alpha;
-  const monitors::Constants k = monitors::EffectiveConstants(spec, s);
-  json constants{{"alpha", k.alpha}};
-  if (monitors::HasTrend(spec.method)) constants["beta"] = k.beta;
-  if (k.phi != 1.0) constants["phi"] = k.phi;
-  if (k.season_length > 1) {
-    constants["gamma"] = k.gamma;
-    constants["season_length"] = k.season_length;
-  }
-  out["constants"] = constants;
-  out["adaptive"] = spec.adaptive.enabled
-                        ? json{{"floor", spec.adaptive.floor}, {"cap", spec.adaptive.cap}}
-                        : json(nullptr);
+  out["constants"] = ConstantsJson(spec.method, monitors::EffectiveConstants(spec, s));
+  out["adaptive"] = AdaptiveJson(spec);
   out["smoothed_error"] = s.stats.smoothed_error;
   out["mad"] = s.stats.mad;
   out["cusum"] = s.stats.cusum;
@@ -557,6 +564,8 @@ void Api::Policies(const std::shared_ptr<Call>& c) {
                       {"match", {{"key", p.match.key}, {"labels", labels}}},
                       {"period", monitors::PeriodKindName(p.period)},
                       {"method", monitors::MethodName(p.spec.method)},
+                      {"constants", ConstantsJson(p.spec.method, p.spec.constants)},
+                      {"adaptive", AdaptiveJson(p.spec)},
                       {"history", p.history},
                       {"stale_after", p.stale_after},
                       {"series", counts[p.name]},

@@ -67,6 +67,11 @@
     return Object.entries(labels).map(([k, v]) => k + ':' + v).join('  ');
   }
 
+  function constantsText(constants, adaptive) {
+    const text = Object.entries(constants || {}).map(([k, x]) => k + ' ' + fmt(x, 3)).join(', ');
+    return adaptive ? text + ', adaptive alpha ' + fmt(adaptive.floor, 3) + '\u2013' + fmt(adaptive.cap, 3) : text;
+  }
+
   function seriesHref(key) {
     return '#/series/' + encodeURIComponent(key);
   }
@@ -846,7 +851,7 @@
     banner('');
     const policy = policies.find((p) => p.name === detail.policy);
     const rows = history.rows;
-    const constants = Object.entries(detail.constants || {}).map(([k, x]) => k + ' ' + fmt(x, 3)).join(', ');
+    const constants = constantsText(detail.constants);
     main.append(el('h1', { class: 'key', id: 'series-key' }, detail.key),
       el('p', { class: 'sub' }, 'Policy ', el('a', { href: '#/policies' }, detail.policy), ' \u00B7 method ' + detail.method + ' \u00B7 ' + constants +
         (detail.adaptive ? ' \u00B7 adaptive alpha ' + fmt(detail.adaptive.floor, 3) + '\u2013' + fmt(detail.adaptive.cap, 3) : '') +
@@ -908,7 +913,7 @@
       main.append(el('section', { class: 'panel policy', 'data-policy': p.name, 'aria-labelledby': 'policy-' + p.name },
         el('h2', { id: 'policy-' + p.name }, p.name),
         el('p', { class: 'sub' }, 'Matches ' + (p.match.key || '*') + (labelsText(p.match.labels) ? ' with ' + labelsText(p.match.labels) : '') +
-          ' \u00B7 ' + p.period + 'ly \u00B7 ' + p.method + ' \u00B7 ' + fmt(p.series, 0) + ' series \u00B7 last actual received ' + last +
+          ' \u00B7 ' + p.period + 'ly \u00B7 ' + p.method + ' (' + constantsText(p.constants, p.adaptive) + ') \u00B7 ' + fmt(p.series, 0) + ' series \u00B7 last actual received ' + last +
           ' \u00B7 stale after ' + p.stale_after + ' periods without one \u00B7 keeps ' + p.history + ' periods'),
         el('p', { class: 'sub' }, fmt(count.stale || 0, 0) + ' stale, ' + fmt(count.warming || 0, 0) + ' warming up, ' +
           fmt(count.alerting || 0, 0) + ' with a rule holding, ' + fmt(count.open || 0, 0) + ' open alerts'),
