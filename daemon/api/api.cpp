@@ -491,8 +491,9 @@ void Api::Dispatch(const std::shared_ptr<Call>& call) {
   call->Answer(Error(404, "no such endpoint: " + call->path));
 }
 
-void Api::OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job) {
-  const bool queued = engine_.Post([this, call, job = std::move(job)] {
+// `job` behind the same guard as Handle: what it throws is answered 500.
+std::function<void()> Api::Guarded(const std::shared_ptr<Call>& call, std::function<void()> job) {
+  return [this, call, job = std::move(job)] {
     try {
       job();
     } catch (const std::exception& e) {
@@ -500,8 +501,16 @@ void Api::OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job)
     } catch (...) {
       Internal(*call, "unknown exception");
     }
-  });
-  if (!queued) call->Fail(EngineBusy());
+  };
+}
+
+void Api::OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job) {
+  if (!engine_.Post(Guarded(call, std::move(job)))) call->Fail(EngineBusy());
+}
+
+void Api::OffEngine(const std::shared_ptr<Call>& call, std::function<void()> job) {
+  if (!reader_.Post(Guarded(call, std::move(job))))
+    call->Fail(Status::Busy("too many list requests are waiting; retry later"));
 }
 
 // ---- handlers --------------------------------------------------------------------------------
@@ -594,43 +603,55 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
   Result<LabelFilter> label_filter = LabelFilter::Parse(label);
   if (!label_filter) return c->Fail(label_filter.status());
   const long lim = static_cast<long>(*limit), off = static_cast<long>(*offset);
+  // On the engine: the read view. On the reader thread: filter and sort every series of it.
+  // On the engine again: the page's rows as they are now.
   OnEngine(c, [=, this, labels = std::move(*label_filter)]() mutable {
-    // Filter and sort light entries; JSON is built for the requested page only.
-    struct Entry {
-      SeriesView view;
-      double order;  // |signal| (-1 when undefined) for sort=trigg|cusum
-    };
-    std::vector<Entry> rows;
-    auto visit = [&](const SeriesView& v) {
-      if (!policy.empty() && v.policy != policy) return;
-      if (!status.empty() && SeriesStatusText(v) != status) return;
-      if (!labels.Matches(v.labels)) return;
-      double order = -1;
-      if (sort != "key") {
-        const std::optional<double> sig = Signal(v, sort == "trigg");
-        if (sig) order = std::fabs(*sig);
+    std::shared_ptr<const ReadView> view = engine_.ReadSnapshot();
+    OffEngine(c, [=, this, labels = std::move(labels)]() mutable {
+      struct Entry {
+        std::uint32_t index;
+        float order;  // |signal| (-1 when undefined) for sort=trigg|cusum
+      };
+      std::vector<Entry> rows;
+      const ReadView& v = *view;
+      for (std::size_t i = 0; i < v.size(); ++i) {
+        const ReadRow& r = v.rows[i];
+        if (!policy.empty() && v.policy(i).name != policy) continue;
+        if (!status.empty()) {
+          const SeriesStatus st = r.flags & ReadRow::kActive    ? SeriesStatus::kAlerting
+                                  : v.stale(i)                  ? SeriesStatus::kStale
+                                  : r.flags & ReadRow::kWarming ? SeriesStatus::kWarming
+                                                                : SeriesStatus::kOk;
+          if (StatusName(st) != status) continue;
+        }
+        if (!labels.Matches(v.labels(i))) continue;
+        float order = -1;
+        if (sort != "key") {
+          const float sig = sort == "trigg" ? r.trigg : r.cusum;
+          if (!std::isnan(sig)) order = std::fabs(sig);
+        }
+        rows.push_back({static_cast<std::uint32_t>(i), order});
       }
-      rows.push_back({v, order});
-    };
-    if (status == "alerting")
-      engine_.ForEachAlertingSeries(visit);
-    else
-      engine_.ForEachSeries(visit);
-    auto before = [&](const Entry& a, const Entry& b) {
-      if (sort != "key" && a.order != b.order) return a.order > b.order;
-      return a.view.key < b.view.key;
-    };
-    const std::size_t end =
-        std::min(rows.size(), static_cast<std::size_t>(off) + static_cast<std::size_t>(lim));
-    if (end < rows.size())
+      auto before = [&](const Entry& a, const Entry& b) {
+        if (sort != "key" && a.order != b.order) return a.order > b.order;
+        return v.key(a.index) < v.key(b.index);
+      };
+      const std::size_t end =
+          std::min(rows.size(), static_cast<std::size_t>(off) + static_cast<std::size_t>(lim));
+      const std::size_t from = std::min(rows.size(), static_cast<std::size_t>(off));
       std::partial_sort(rows.begin(), rows.begin() + static_cast<long>(end), rows.end(), before);
-    else
-      std::sort(rows.begin(), rows.end(), before);
-    json page = json::array();
-    for (std::size_t i = static_cast<std::size_t>(off); i < end; ++i)
-      page.push_back(SeriesSummary(rows[i].view));
-    c->Answer(
-        Json(200, {{"total", rows.size()}, {"offset", off}, {"limit", lim}, {"series", page}}));
+      std::vector<std::uint32_t> page;
+      for (std::size_t i = from; i < end; ++i) page.push_back(rows[i].index);
+      const std::size_t total = rows.size();
+      OnEngine(c, [=, this] {
+        json out = json::array();
+        for (std::uint32_t i : page) {
+          const std::optional<SeriesView> s = engine_.SeriesAt(i);
+          if (s && s->key == view->key(i)) out.push_back(SeriesSummary(*s));
+        }
+        c->Answer(Json(200, {{"total", total}, {"offset", off}, {"limit", lim}, {"series", out}}));
+      });
+    });
   });
 }
 
@@ -894,10 +915,21 @@ void Api::Attention(const std::shared_ptr<Call>& c) {
   q.q = c->ParamOr("q");
   if (Status ok = CheckAttentionQuery(q); !ok) return c->Fail(ok);
   if (Result<LabelFilter> l = LabelFilter::Parse(q.label); !l) return c->Fail(l.status());
+  // The read view and the alert sums on the engine, the pass over them on the reader thread,
+  // the page's rows on the engine.
   OnEngine(c, [this, c, q] {
-    Result<json> page = AttentionPage(engine_, q);
-    if (!page) return c->Fail(page.status());
-    c->Answer(Json(200, *page));
+    std::shared_ptr<const ReadView> view = engine_.ReadSnapshot();
+    auto sums = std::make_shared<const AlertSums>(TallyAlerts(engine_));
+    OffEngine(c, [this, c, q, view, sums] {
+      Result<AttentionPick> pick = PickAttention(*view, *sums, q);
+      if (!pick) return c->Fail(pick.status());
+      auto picked = std::make_shared<const AttentionPick>(std::move(*pick));
+      OnEngine(c, [this, c, q, view, picked] {
+        Result<json> page = AttentionRows(engine_, *view, *picked, q);
+        if (!page) return c->Fail(page.status());
+        c->Answer(Json(200, *page));
+      });
+    });
   });
 }
 

@@ -16,9 +16,11 @@
 //   GET  /v1/access                       how the service is protected and who the token is
 //   GET  /, /page/{file}                  the planner page (web/assets.h)
 // Who may call what is the role the bearer token carries (access.h). Reads run as jobs on the
-// engine thread. Every route is one row of the table in api.cpp (method, pattern, the role it
-// needs, handler); the route label of the request metrics is the pattern. Domain errors
-// (common/status.h) become HTTP statuses in one function, HttpStatusOf, and nowhere else.
+// engine thread; the lists' passes over every series run on the reader thread over a read view
+// (engine/read_view.h) taken between batches, so they do not hold up ingest. Every route is one row
+// of the table in api.cpp (method, pattern, the role it needs, handler); the route label of the
+// request metrics is the pattern. Domain errors (common/status.h) become HTTP statuses in one
+// function, HttpStatusOf, and nowhere else.
 #pragma once
 
 #include <memory>
@@ -28,6 +30,7 @@
 
 #include "config/settings.h"
 #include "daemon/api/access.h"
+#include "daemon/api/read_worker.h"
 #include "daemon/engine/engine.h"
 #include "daemon/http/http_server.h"
 #include "daemon/observe/metrics.h"
@@ -52,6 +55,9 @@ class Api {
   void Dispatch(const std::shared_ptr<Call>& call);
   // Runs `job` on the engine thread behind the same guard as Handle; busy when the queue is full.
   void OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job);
+  std::function<void()> Guarded(const std::shared_ptr<Call>& call, std::function<void()> job);
+  // Runs `job` on the API's reader thread (filters and sorts over a read view), same guard.
+  void OffEngine(const std::shared_ptr<Call>& call, std::function<void()> job);
   void Internal(Call& call, const char* what);
   // Whether the caller may use the route; answers 401 or 403 when not.
   bool Authorized(Call& call);
@@ -85,6 +91,7 @@ class Api {
   std::shared_ptr<const config::Settings> settings_;
   Access access_;
   ApiCounters counters_;
+  ReadWorker reader_{64};  // last: destroyed first, while what its jobs use still exists
 };
 
 // Percent-decoding of a URL path or query component ('+' is a space in queries only).

@@ -14,8 +14,10 @@
 // unresolved alert (unresolved) or the stale ones (stale). Filters: policy, label NAME:VALUE,
 // rule (an unresolved alert of the rule, or the rule nearest its limit), severity (an unresolved
 // alert of it), q (part of the key, any case). Counts cover every series of a policy, unfiltered.
-// Engine thread only: one pass over the series and one over the unresolved alerts, then the
-// page's rows from the store (alerts, the last 26 periods).
+// Three steps, so the pass over every series runs off the engine thread: on the engine, the
+// read view and the unresolved alerts summed by series (TallyAlerts); on the API's reader
+// thread, the pass over the view (PickAttention); on the engine again, the page's rows from
+// the series and the store (AttentionRows: alerts, the last 26 periods).
 #pragma once
 
 #include <optional>
@@ -52,7 +54,39 @@ struct AttentionQuery {
 // Checks the query's values; the message names the parameter.
 Status CheckAttentionQuery(const AttentionQuery& q);
 
-// {"counts": [per policy], "total", "offset", "limit", "near", "rows": [...]} (README, "HTTP API").
-Result<nlohmann::json> AttentionPage(Engine& engine, const AttentionQuery& q);
+// What the unresolved alerts of one series add up to.
+struct AlertSum {
+  int open = 0, acknowledged = 0, snoozed = 0;
+  int worst = -1;           // highest severity (monitors::Severity), -1: none
+  std::uint64_t rules = 0;  // rules with an unresolved alert
+  unsigned severities = 0;  // bit per severity
+};
+// By series index, ascending.
+using AlertSums = std::vector<std::pair<std::size_t, AlertSum>>;
+
+// Engine thread.
+AlertSums TallyAlerts(Engine& engine);
+
+struct AttentionPick {
+  struct Entry {
+    std::uint32_t index;
+    int group;  // 0 open, 1 acknowledged, 2 near, 3 snoozed
+    int worst;
+    float closeness;
+    int nearest;
+    bool alerts;
+  };
+  std::vector<Entry> page;
+  std::size_t total = 0;
+  nlohmann::json counts;
+};
+// Any thread: the pass over the view.
+Result<AttentionPick> PickAttention(const ReadView& view, const AlertSums& sums,
+                                    const AttentionQuery& q);
+
+// Engine thread: {"counts": [per policy], "total", "offset", "limit", "near", "rows": [...]}
+// (README, "HTTP API").
+Result<nlohmann::json> AttentionRows(Engine& engine, const ReadView& view,
+                                     const AttentionPick& pick, const AttentionQuery& q);
 
 }  // namespace forewarden

@@ -285,6 +285,7 @@ void Engine::Housekeeping() {
     monitors::StepResult r;
     Saved saved{i, s.state.rules, s.state.active};
     monitors::CheckStale(s.policy->spec, s.state, static_cast<long>(overdue), r);
+    NoteChanged(i);  // its stale rule's run counts moved
     if (r.episodes_opened) {
       NoteAlerting(i);
       before.push_back(std::move(saved));
@@ -305,6 +306,7 @@ void Engine::Housekeeping() {
     for (Saved& b : before) {
       series_[b.index].state.rules = std::move(b.rules);
       series_[b.index].state.active = b.active;
+      NoteChanged(b.index);
     }
     return;
   }
@@ -404,6 +406,7 @@ bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
         }
     }
     settings_ = settings;
+    read_all_ = true;
     std::string error;
     if (!OpenAlerts(error)) Fail(error);  // rule indexes may have moved: place alerts again
   });
@@ -535,6 +538,7 @@ void Engine::Rewind(Pending& p) {
     Series& s = series_[it->index];
     s.state = std::move(it->state);
     s.retained = it->retained;
+    NoteChanged(it->index);
   }
   while (series_.size() > p.series_before) {
     index_.Erase(series_.back().key);
@@ -577,6 +581,7 @@ void Engine::ApplyBatch(Pending& p) {
       // Every series that holds a rule now is in the alerting index (a rejected batch restores
       // states that were already there; a later rollback leaves a superset, which reads filter).
       NoteAlerting(i);
+      NoteChanged(i);
       Series& s = series_[i];
       bool trimmed = false;
       if (!Trim(s, trimmed)) {
@@ -857,6 +862,101 @@ void Engine::ForEachAlertingSeries(const std::function<void(const SeriesView&)>&
   for (std::uint32_t i : alerting_) each(View(i, today));
 }
 
+std::optional<SeriesView> Engine::SeriesAt(std::size_t index) const {
+  if (index >= series_.size()) return std::nullopt;
+  return View(index, Today());
+}
+
+void Engine::NoteChanged(std::size_t index) {
+  if (read_all_) return;
+  if (in_read_changed_.size() <= index) in_read_changed_.resize(index + 1, 0);
+  if (in_read_changed_[index]) return;
+  in_read_changed_[index] = 1;
+  read_changed_.push_back(static_cast<std::uint32_t>(index));
+}
+
+ReadRow Engine::ReadRowOf(std::size_t index) const {
+  const Series& s = series_[index];
+  const monitors::SeriesState& st = s.state;
+  const config::Policy& p = *s.policy;
+  ReadRow r;
+  r.policy = static_cast<std::uint16_t>(s.policy - settings_->policies.data());
+  if (st.active) r.flags |= ReadRow::kActive;
+  if (st.seen) {
+    r.flags |= ReadRow::kSeen;
+    r.last_period = static_cast<std::int32_t>(st.last_period);
+  }
+  if (Warming(st, p)) {
+    r.flags |= ReadRow::kWarming;
+    return r;
+  }
+  const auto trigg = monitors::TriggSignal(st.stats), cusum = monitors::CusumSignal(st.stats);
+  if (trigg) r.trigg = static_cast<float>(*trigg);
+  if (cusum) r.cusum = static_cast<float>(*cusum);
+  double best = 0;
+  for (std::size_t i = 0; i < p.spec.rules.size() && i < st.rules.size(); ++i) {
+    const monitors::RuleSpec& rule = p.spec.rules[i];
+    double c = 0;
+    if (rule.signal == monitors::SignalKind::kTrigg && trigg && rule.limit > 0)
+      c = monitors::Excursion(rule.direction, *trigg) / rule.limit;
+    else if (rule.signal == monitors::SignalKind::kCusum && rule.periods == 0 && cusum &&
+             rule.limit > 0)
+      c = monitors::Excursion(rule.direction, *cusum) / rule.limit;
+    if ((st.rules[i].active || st.rules[i].run > 0) && c < 1) c = 1;
+    if (c > best) {
+      best = c;
+      r.nearest = static_cast<std::int8_t>(i);
+    }
+  }
+  r.closeness = static_cast<float>(best);
+  return r;
+}
+
+std::shared_ptr<const ReadView> Engine::ReadSnapshot() {
+  const std::int64_t today = Today();
+  const std::size_t n = series_.size();
+  bool changed = read_all_ || !read_changed_.empty() || read_rows_.size() != n;
+  if (read_all_) {
+    read_rows_.resize(n);
+    for (std::size_t i = 0; i < n; ++i) read_rows_[i] = ReadRowOf(i);
+  } else {
+    const std::size_t before = std::min(read_rows_.size(), n);
+    read_rows_.resize(n);
+    for (std::size_t i = before; i < n; ++i) read_rows_[i] = ReadRowOf(i);  // new series
+    for (std::uint32_t i : read_changed_)
+      if (i < n) read_rows_[i] = ReadRowOf(i);
+  }
+  for (std::uint32_t i : read_changed_)
+    if (i < in_read_changed_.size()) in_read_changed_[i] = 0;
+  read_changed_.clear();
+  read_all_ = false;
+  // Keys and label sets: a new table only when series or label sets were added.
+  if (!read_identity_ || read_identity_->keys.size() != n ||
+      read_label_sets_ != label_sets_.size()) {
+    auto identity = std::make_shared<ReadIdentity>();
+    identity->keys.reserve(n);
+    identity->labels.reserve(n);
+    for (std::size_t i = 0; i < n; ++i) {
+      identity->keys.push_back(series_[i].key);
+      identity->labels.push_back(series_[i].labels);
+    }
+    identity->label_sets = label_sets_;
+    read_label_sets_ = label_sets_.size();
+    read_identity_ = std::move(identity);
+    changed = true;
+  }
+  if (changed || !read_view_ || read_view_->today != today || read_view_->settings != settings_) {
+    auto view = std::make_shared<ReadView>();
+    view->version = ++read_version_;
+    view->today = today;
+    view->settings = settings_;
+    view->rows = read_rows_;
+    view->identity = read_identity_;
+    read_view_ = std::move(view);
+  }
+  return read_view_;
+}
+
 std::optional<SeriesView> Engine::FindSeries(const std::string& key) const {
   const long pos = index_.Find(key);
   if (pos < 0) return std::nullopt;
@@ -939,6 +1039,7 @@ Result<double> Engine::Reset(const std::string& key, const std::string& how, dou
   }
   alerts_.Forget();
   s.state = std::move(next);
+  NoteChanged(static_cast<std::size_t>(pos));
   Committed(counts);
   return new_level;
 }

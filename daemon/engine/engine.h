@@ -32,6 +32,7 @@
 #include "daemon/batch/rows.h"
 #include "daemon/common/chunked_vector.h"
 #include "daemon/common/key_arena.h"
+#include "daemon/engine/read_view.h"
 #include "daemon/engine/series_index.h"
 #include "daemon/store/alert_book.h"
 #include "daemon/store/store.h"
@@ -163,6 +164,11 @@ class Engine {
   // an alerting list costs the alerting series, not all of them). Any order.
   void ForEachAlertingSeries(const std::function<void(const SeriesView&)>& each) const;
   std::optional<SeriesView> FindSeries(const std::string& key) const;
+  // The series at `index` (from a read view); nullopt beyond the series held.
+  std::optional<SeriesView> SeriesAt(std::size_t index) const;
+  // The read view as of now (read_view.h): the last one again when nothing changed since,
+  // else a new one (a copy of 20 bytes a series, plus the rows of series that changed).
+  std::shared_ptr<const ReadView> ReadSnapshot();
   // Recomputed retained history of a series within [from, to].
   bool History(const std::string& key, std::int64_t from, std::int64_t to,
                std::vector<HistoryRow>& rows, std::string& error);
@@ -245,6 +251,10 @@ class Engine {
   void MarkDirty(std::size_t index);
   // Adds series `index` to the alerting index when it holds a rule.
   void NoteAlerting(std::size_t index);
+  // Series `index` changed outside a batch's own bookkeeping, or inside it: its read row is
+  // recomputed for the next read view.
+  void NoteChanged(std::size_t index);
+  ReadRow ReadRowOf(std::size_t index) const;
   bool FlushDirty();  // inside an open transaction; the caller commits
   void ClearDirty();
   void Rewind(Pending& p);
@@ -288,6 +298,16 @@ class Engine {
   // those); 4 bytes per alerting series and a flag per series.
   mutable std::vector<std::uint32_t> alerting_;
   mutable std::vector<char> in_alerting_;
+  // The read view's rows kept up to date (by series index), the series changed since the last
+  // view, and the last view and identity table.
+  std::vector<ReadRow> read_rows_;
+  std::vector<std::uint32_t> read_changed_;
+  std::vector<char> in_read_changed_;
+  bool read_all_ = true;  // every row again (start, reload)
+  std::uint64_t read_version_ = 0;
+  std::shared_ptr<const ReadView> read_view_;
+  std::shared_ptr<const ReadIdentity> read_identity_;
+  std::size_t read_label_sets_ = 0;  // label sets in read_identity_
   std::size_t dirty_count_ = 0;
   std::int64_t last_flush_ms_ = 0;
   long recovered_ = 0;

@@ -20,6 +20,7 @@ from harness import BINARY, DEADLINE, Server, run, temp_dir  # noqa: E402
 from selenium import webdriver  # noqa: E402
 from selenium.webdriver.chrome.options import Options  # noqa: E402
 from selenium.webdriver.chrome.service import Service  # noqa: E402
+from selenium.common.exceptions import StaleElementReferenceException  # noqa: E402
 from selenium.webdriver.common.action_chains import ActionChains  # noqa: E402
 from selenium.webdriver.common.by import By  # noqa: E402
 from selenium.webdriver.common.keys import Keys  # noqa: E402
@@ -124,6 +125,15 @@ class Browser:
             self.d.quit()
 
 
+def gone(element):
+    """Whether a found element has left the page (its view was drawn again)."""
+    try:
+        element.is_enabled()
+        return False
+    except StaleElementReferenceException:
+        return True
+
+
 def series_path(key):
     return urllib.parse.quote(key, safe="")
 
@@ -220,7 +230,10 @@ def test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api(
                 b.one(prefix + suffix).send_keys(text)
             preview = b.one("#main form.action-form .preview").text
             assert str(alert) in preview, preview
+            before = b.css("#flash")
             b.one(prefix + "-send").click()
+            if before:  # the view reloads: wait for the old answer to go first
+                b.wait(lambda dr: gone(before[0]), "the view to reload")
             b.wait_ready("series")
             b.wait(lambda dr: b.css("#flash"), "the server's answer")
             return b.one("#flash").text
@@ -256,7 +269,10 @@ def test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api(
         mean = sum(actuals) / len(actuals)
         preview = b.one("#reset-preview").text
         assert ("%.3f" % mean).rstrip("0").rstrip(".") in preview.replace(",", ""), (preview, mean)
+        before = b.css("#flash")
         b.one("#reset-send").click()
+        if before:
+            b.wait(lambda dr: gone(before[0]), "the view to reload")
         b.wait_ready("series")
         b.wait(lambda dr: b.css("#flash"), "the reset's answer")
         _, after, _ = srv.request("GET", "/v1/series/%s" % series_path(key))

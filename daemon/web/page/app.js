@@ -145,6 +145,7 @@
     }
     const main = document.getElementById('main');
     main.replaceChildren();
+    main.dataset.ready = '';
     return { seq: state.view, main };
   }
 

@@ -251,8 +251,8 @@ TEST_CASE("a series is stale once stale_after whole periods have ended without a
 }
 
 TEST_CASE(
-    "the alerting index lists exactly the series that hold a rule, through rejected batches and "
-    "restatements",
+    "the alerting index and the read view follow every series, through rejected batches, "
+    "restatements and resets",
     "[property]") {
   TempDir dir;
   auto settings = Settings(dir.File("data"));
@@ -270,6 +270,29 @@ TEST_CASE(
       });
       e.ForEachAlertingSeries(
           [&](const forewarden::SeriesView& v) { indexed.insert(std::string(v.key)); });
+      // the read view equals the live series, row by row
+      const std::shared_ptr<const forewarden::ReadView> view = e.ReadSnapshot();
+      REQUIRE(view->size() == e.series_count());
+      CHECK(e.ReadSnapshot() == view);  // nothing changed: the same view again
+      e.ForEachSeries([&](const forewarden::SeriesView& v) {
+        const forewarden::ReadRow& r = view->rows[v.index];
+        CHECK(view->key(v.index) == v.key);
+        CHECK(view->labels(v.index) == v.labels);
+        CHECK(&view->policy(v.index) == v.spec);
+        CHECK(view->stale(v.index) == v.stale);
+        CHECK(bool(r.flags & forewarden::ReadRow::kActive) == (v.state->active != 0));
+        CHECK(bool(r.flags & forewarden::ReadRow::kWarming) ==
+              forewarden::Warming(*v.state, *v.spec));
+        if (v.state->seen) CHECK(r.last_period == v.state->last_period);
+        const auto trigg = monitors::TriggSignal(v.state->stats);
+        if (!forewarden::Warming(*v.state, *v.spec) && trigg)
+          CHECK(r.trigg == static_cast<float>(*trigg));
+        else
+          CHECK(std::isnan(r.trigg));
+        bool beyond = false;  // a rule that holds or was just beyond its limit
+        for (const auto& rule : v.state->rules) beyond = beyond || rule.active || rule.run > 0;
+        if (beyond && !forewarden::Warming(*v.state, *v.spec)) CHECK(r.closeness >= 1);
+      });
     });
     CHECK(indexed == all);
     return all.size();
@@ -298,6 +321,11 @@ TEST_CASE(
         next_week[k] = std::max(next_week[k], w + 1);
       }
     most = std::max(most, check());
+    if (round % 7 == 3) {  // a planner re-levels a series between batches
+      bool reset = false;
+      OnEngine(e, [&] { reset = e.Reset("z/4", "last", 0, 1, "planner", "").ok(); });
+      if (reset) check();
+    }
   }
   CHECK(most > 0);  // some series did hold the rule
   e.Stop();
