@@ -527,11 +527,18 @@ void Api::Ready(const std::shared_ptr<Call>& c) {
 
 void Api::MetricsText(const std::shared_ptr<Call>& c) {
   if (!metrics_) return c->Fail(Status::NotFound("metrics are not enabled"));
+  // The engine's own figures and the read view on the engine; the pass over every series and
+  // the text on the reader thread.
   OnEngine(c, [this, c] {
-    HttpResponse r;
-    r.content_type = "text/plain; version=0.0.4; charset=utf-8";
-    r.body = metrics_->Render(engine_.Snapshot());
-    c->Answer(std::move(r));
+    auto snapshot = std::make_shared<EngineSnapshot>(engine_.Snapshot());
+    std::shared_ptr<const ReadView> view = engine_.ReadSnapshot();
+    OffEngine(c, [this, c, snapshot, view] {
+      AddSeriesHealth(*view, *snapshot);
+      HttpResponse r;
+      r.content_type = "text/plain; version=0.0.4; charset=utf-8";
+      r.body = metrics_->Render(*snapshot);
+      c->Answer(std::move(r));
+    });
   });
 }
 

@@ -1054,10 +1054,8 @@ void Engine::Committed(const AlertCounts& c) {
 
 EngineSnapshot Engine::Snapshot() const {
   EngineSnapshot out;
-  const auto& policies = settings_->policies;
-  std::unordered_map<const config::Policy*, std::size_t> at;
-  for (const config::Policy& p : policies) {
-    at[&p] = out.policies.size();
+  out.queue_capacity = settings_->server.queue_depth;
+  for (const config::Policy& p : settings_->policies) {
     PolicyHealth h;
     h.policy = p.name;
     h.trigg_at_most.assign(std::size(kTriggBounds) + 1, 0);
@@ -1070,39 +1068,54 @@ EngineSnapshot Engine::Snapshot() const {
     }
     out.policies.push_back(std::move(h));
   }
-  const std::int64_t today = Today();
+  alerts_.Tally([&](std::size_t index, std::size_t rule, const char* state,
+                    monitors::Severity severity) {
+    const Series& s = series_[index];
+    const std::string& rule_name = s.policy->spec.rules[rule].name;
+    for (AlertTally& t : out.alerts)
+      if (t.policy == s.policy->name && t.rule == rule_name && t.state == state &&
+          t.severity == monitors::SeverityName(severity)) {
+        ++t.count;
+        return;
+      }
+    out.alerts.push_back({s.policy->name, rule_name, monitors::SeverityName(severity), state, 1});
+  });
+  return out;
+}
+
+void AddSeriesHealth(const ReadView& view, EngineSnapshot& out) {
+  const auto& policies = view.settings->policies;
+  if (out.policies.size() != policies.size()) return;  // taken with other settings: a defect
   // per policy: the opted-in top series by |T| (a small heap of K)
   std::vector<std::vector<PolicyHealth::Top>> top(out.policies.size());
   auto smaller = [](const PolicyHealth::Top& a, const PolicyHealth::Top& b) {
     return std::fabs(a.trigg) > std::fabs(b.trigg);
   };
-  for (std::size_t i = 0; i < series_.size(); ++i) {
-    const Series& s = series_[i];
-    auto found = at.find(s.policy);
-    if (found == at.end()) continue;
-    PolicyHealth& h = out.policies[found->second];
-    const monitors::SeriesState& st = s.state;
-    const SeriesStatus status = StatusOf(st, *s.policy, IsStale(s, today));
+  for (std::size_t i = 0; i < view.size(); ++i) {
+    const ReadRow& r = view.rows[i];
+    PolicyHealth& h = out.policies[r.policy];
+    const SeriesStatus status = r.flags & ReadRow::kActive    ? SeriesStatus::kAlerting
+                                : view.stale(i)               ? SeriesStatus::kStale
+                                : r.flags & ReadRow::kWarming ? SeriesStatus::kWarming
+                                                              : SeriesStatus::kOk;
     ++h.series[static_cast<int>(status)];
-    if (Warming(st, *s.policy)) continue;
-    const std::optional<double> t = monitors::TriggSignal(st.stats);
-    const std::optional<double> c = monitors::CusumSignal(st.stats);
-    if (t) {
-      const double v = std::fabs(*t);
+    if (r.flags & ReadRow::kWarming) continue;
+    if (!std::isnan(r.trigg)) {
+      const double v = std::fabs(r.trigg);
       std::size_t k = 0;
       while (k < std::size(kTriggBounds) && v > kTriggBounds[k]) ++k;
       ++h.trigg_at_most[k];
     }
-    if (c) {
-      const double v = std::fabs(*c);
+    if (!std::isnan(r.cusum)) {
+      const double v = std::fabs(r.cusum);
       std::size_t k = 0;
       while (k < std::size(kCusumBounds) && v > kCusumBounds[k]) ++k;
       ++h.cusum_at_most[k];
     }
-    const std::size_t k_top = static_cast<std::size_t>(s.policy->export_top_series);
-    if (k_top && t) {
-      auto& heap = top[found->second];
-      heap.push_back({std::string(s.key), *t, c.value_or(0.0)});
+    const std::size_t k_top = static_cast<std::size_t>(policies[r.policy].export_top_series);
+    if (k_top && !std::isnan(r.trigg)) {
+      auto& heap = top[r.policy];
+      heap.push_back({std::string(view.key(i)), r.trigg, std::isnan(r.cusum) ? 0.0 : r.cusum});
       std::push_heap(heap.begin(), heap.end(), smaller);
       if (heap.size() > k_top) {
         std::pop_heap(heap.begin(), heap.end(), smaller);
@@ -1119,19 +1132,6 @@ EngineSnapshot Engine::Snapshot() const {
     std::sort_heap(top[p].begin(), top[p].end(), smaller);
     h.top = std::move(top[p]);
   }
-  alerts_.Tally([&](std::size_t index, std::size_t rule, const char* state,
-                    monitors::Severity severity) {
-    const Series& s = series_[index];
-    const std::string& rule_name = s.policy->spec.rules[rule].name;
-    for (AlertTally& t : out.alerts)
-      if (t.policy == s.policy->name && t.rule == rule_name && t.state == state &&
-          t.severity == monitors::SeverityName(severity)) {
-        ++t.count;
-        return;
-      }
-    out.alerts.push_back({s.policy->name, rule_name, monitors::SeverityName(severity), state, 1});
-  });
-  return out;
 }
 
 std::int64_t Engine::LastArrival(const std::string& policy) const {

@@ -117,6 +117,7 @@ struct AlertTally {
 struct EngineSnapshot {
   std::vector<PolicyHealth> policies;
   std::vector<AlertTally> alerts;  // unresolved alerts by policy, rule, severity and state
+  long queue_capacity = 0;         // server.queue_depth in force
 };
 inline constexpr double kTriggBounds[] = {0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0};
 inline constexpr double kCusumBounds[] = {1, 2, 3, 4, 5, 6, 8, 10, 15, 20, 50};
@@ -128,6 +129,11 @@ struct EngineCounters {
   std::atomic<long> batches_ok{0}, batches_rejected{0}, batches_unavailable{0};
   std::atomic<long> alerts_opened{0}, alerts_escalated{0}, alerts_resolved{0}, alerts_grouped{0};
 };
+
+// Fills what the pass over every series adds to `out` (statuses, signal histograms, the
+// opted-in top series) from `view`; `out` and `view` taken in the same engine job.
+struct ReadView;
+void AddSeriesHealth(const ReadView& view, EngineSnapshot& out);
 
 class Engine {
  public:
@@ -190,7 +196,8 @@ class Engine {
   // rolled back with its status otherwise (a store failure becomes the sticky failure).
   Status AlertAction(const std::function<Status(AlertBook&, std::int64_t now_ms)>& action);
 
-  // Engine thread: the portfolio as /metrics shows it.
+  // Engine thread: the portfolio as /metrics shows it, but for the pass over the series, which
+  // AddSeriesHealth does from the read view taken with it (on any thread).
   EngineSnapshot Snapshot() const;
   const EngineCounters& counters() const { return counters_; }
   // Before Start: called on the engine thread with each commit's duration in seconds.

@@ -215,7 +215,7 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
         .Help("server.queue_depth: beyond it ingest answers 503.")
         .Register(now)
         .Add({})
-        .Set(static_cast<double>(e->settings().server.queue_depth));
+        .Set(static_cast<double>(snap.queue_capacity));
     BuildGauge()
         .Name("forewarden_store_failed")
         .Help("1 while the store's sticky failure holds (restart needed), else 0.")

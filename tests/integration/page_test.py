@@ -94,11 +94,11 @@ class Browser:
         WebDriverWait(self.d, DEADLINE, poll_frequency=0.05).until(
             lambda d: d.find_element(By.ID, "main").get_attribute("data-ready") == ready)
 
-    def wait(self, condition, what):
+    def wait(self, condition, what, seen=None):
         try:
             return WebDriverWait(self.d, DEADLINE, poll_frequency=0.05).until(lambda d: condition(d))
         except Exception:
-            raise AssertionError("waited for: " + what)
+            raise AssertionError("waited for: " + what + ("; seen: " + seen() if seen else ""))
 
     def css(self, selector):
         return self.d.find_elements(By.CSS_SELECTOR, selector)
@@ -357,7 +357,9 @@ def test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so():
         b.one("#token-input").clear()
         b.one("#token-input").send_keys(token)
         b.one("#token-form button[type=submit]").click()
-        b.wait(lambda dr: b.one("#access-state").text == "Signed in as pablo (planner)", "signed in")
+        b.wait(lambda dr: b.one("#access-state").text == "Signed in as pablo (planner)",
+               "signed in", lambda: "access %r, message %r" % (b.one("#access-state").text,
+                                                               b.one("#token-message").text))
         b.wait_ready("series")
         b.one("#act-ack-%d" % alert).click()
         b.one("#a%d-acknowledge-send" % alert).click()
