@@ -543,53 +543,65 @@ void Api::MetricsText(const std::shared_ptr<Call>& c) {
 }
 
 void Api::Policies(const std::shared_ptr<Call>& c) {
+  // The read view and each policy's last arrival on the engine; the count of series per
+  // policy (a pass over every series) and the answer on the reader thread.
   OnEngine(c, [this, c] {
-    json list = json::array();
-    std::unordered_map<const config::Policy*, long> by_policy;
-    engine_.ForEachSeries([&](const SeriesView& v) { ++by_policy[v.spec]; });
-    std::unordered_map<std::string, long> counts;
-    for (const config::Policy& p : engine_.settings().policies) counts[p.name] = by_policy[&p];
-    for (const config::Policy& p : engine_.settings().policies) {
-      json labels = json::object();
-      for (auto& [k, v] : p.match.labels) labels[k] = v;
-      json rules = json::array();
-      for (const auto& r : p.spec.rules) {
-        json rule{{"name", r.name},
-                  {"signal", monitors::SignalKindName(r.signal)},
-                  {"limit", r.limit},
-                  {"clear", r.clear},
-                  {"persistence", r.persistence},
-                  {"direction", monitors::DirectionName(r.direction)},
-                  {"severity", monitors::SeverityName(r.severity)},
-                  {"resolve_after", r.resolve_after}};
-        if (r.periods > 0) rule["periods"] = r.periods;
-        if (r.escalate_limit)
-          rule["escalate"] = {{"limit", *r.escalate_limit},
-                              {"severity", monitors::SeverityName(r.escalate_severity)}};
-        for (const auto& cal : p.calibrations)
-          if (cal.rule == r.name)
-            rule["calibration"] = {{"false_alert_every", cal.every},
-                                   {"derived_limit", cal.limit},
-                                   {"simulated_rate", cal.rate},
-                                   {"expected_false_alerts_per_week",
-                                    cal.per_series_week * static_cast<double>(counts[p.name])}};
-        rules.push_back(std::move(rule));
-      }
-      const std::int64_t last = engine_.LastArrival(p.name);
-      list.push_back({{"name", p.name},
-                      {"match", {{"key", p.match.key}, {"labels", labels}}},
-                      {"period", monitors::PeriodKindName(p.period)},
-                      {"method", monitors::MethodName(p.spec.method)},
-                      {"constants", ConstantsJson(p.spec.method, p.spec.constants)},
-                      {"adaptive", AdaptiveJson(p.spec)},
-                      {"history", p.history},
-                      {"stale_after", p.stale_after},
-                      {"series", counts[p.name]},
-                      {"last_actual_at", last ? json(IsoTime(last)) : json(nullptr)},
-                      {"rules", rules}});
-    }
-    c->Answer(Json(200, {{"policies", list}}));
+    std::shared_ptr<const ReadView> view = engine_.ReadSnapshot();
+    std::vector<std::int64_t> arrivals;
+    for (const config::Policy& p : view->settings->policies)
+      arrivals.push_back(engine_.LastArrival(p.name));
+    OffEngine(c, [c, view, arrivals] { AnswerPolicies(*c, *view, arrivals); });
   });
+}
+
+void Api::AnswerPolicies(Call& call, const ReadView& view,
+                         const std::vector<std::int64_t>& arrivals) {
+  const auto& policies = view.settings->policies;
+  json list = json::array();
+  std::vector<long> per_policy(policies.size(), 0);
+  for (const ReadRow& r : view.rows) ++per_policy[r.policy];
+  std::unordered_map<std::string, long> counts;
+  for (std::size_t i = 0; i < policies.size(); ++i) counts[policies[i].name] = per_policy[i];
+  for (const config::Policy& p : policies) {
+    json labels = json::object();
+    for (auto& [k, v] : p.match.labels) labels[k] = v;
+    json rules = json::array();
+    for (const auto& r : p.spec.rules) {
+      json rule{{"name", r.name},
+                {"signal", monitors::SignalKindName(r.signal)},
+                {"limit", r.limit},
+                {"clear", r.clear},
+                {"persistence", r.persistence},
+                {"direction", monitors::DirectionName(r.direction)},
+                {"severity", monitors::SeverityName(r.severity)},
+                {"resolve_after", r.resolve_after}};
+      if (r.periods > 0) rule["periods"] = r.periods;
+      if (r.escalate_limit)
+        rule["escalate"] = {{"limit", *r.escalate_limit},
+                            {"severity", monitors::SeverityName(r.escalate_severity)}};
+      for (const auto& cal : p.calibrations)
+        if (cal.rule == r.name)
+          rule["calibration"] = {{"false_alert_every", cal.every},
+                                 {"derived_limit", cal.limit},
+                                 {"simulated_rate", cal.rate},
+                                 {"expected_false_alerts_per_week",
+                                  cal.per_series_week * static_cast<double>(counts[p.name])}};
+      rules.push_back(std::move(rule));
+    }
+    const std::int64_t last = arrivals[static_cast<std::size_t>(&p - policies.data())];
+    list.push_back({{"name", p.name},
+                    {"match", {{"key", p.match.key}, {"labels", labels}}},
+                    {"period", monitors::PeriodKindName(p.period)},
+                    {"method", monitors::MethodName(p.spec.method)},
+                    {"constants", ConstantsJson(p.spec.method, p.spec.constants)},
+                    {"adaptive", AdaptiveJson(p.spec)},
+                    {"history", p.history},
+                    {"stale_after", p.stale_after},
+                    {"series", counts[p.name]},
+                    {"last_actual_at", last ? json(IsoTime(last)) : json(nullptr)},
+                    {"rules", rules}});
+  }
+  call.Answer(Json(200, {{"policies", list}}));
 }
 
 void Api::SeriesList(const std::shared_ptr<Call>& c) {

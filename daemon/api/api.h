@@ -70,6 +70,8 @@ class Api {
   void MetricsText(const std::shared_ptr<Call>& c);
   void Ingest(const std::shared_ptr<Call>& c);
   void Policies(const std::shared_ptr<Call>& c);
+  static void AnswerPolicies(Call& call, const ReadView& view,
+                             const std::vector<std::int64_t>& arrivals);
   void SeriesList(const std::shared_ptr<Call>& c);
   void SeriesDetailOf(const std::shared_ptr<Call>& c);
   void SeriesHistory(const std::shared_ptr<Call>& c);
