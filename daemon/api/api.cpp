@@ -622,8 +622,33 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
   Result<LabelFilter> label_filter = LabelFilter::Parse(label);
   if (!label_filter) return c->Fail(label_filter.status());
   const long lim = static_cast<long>(*limit), off = static_cast<long>(*offset);
-  // On the engine: the read view. On the reader thread: filter and sort every series of it.
-  // On the engine again: the page's rows as they are now.
+  if (status == "alerting") {
+    // The alerting index costs the alerting series: filter and sort them on the engine.
+    OnEngine(c, [=, this, labels = std::move(*label_filter)]() mutable {
+      std::vector<std::pair<double, SeriesView>> rows;
+      engine_.ForEachAlertingSeries([&](const SeriesView& v) {
+        if (!policy.empty() && v.policy != policy) return;
+        if (!labels.Matches(v.labels)) return;
+        const std::optional<double> sig = sort == "key" ? std::nullopt : Signal(v, sort == "trigg");
+        rows.emplace_back(sig ? std::fabs(*sig) : -1, v);
+      });
+      auto before = [&](const auto& a, const auto& b) {
+        if (sort != "key" && a.first != b.first) return a.first > b.first;
+        return a.second.key < b.second.key;
+      };
+      const std::size_t end =
+          std::min(rows.size(), static_cast<std::size_t>(off) + static_cast<std::size_t>(lim));
+      std::partial_sort(rows.begin(), rows.begin() + static_cast<long>(end), rows.end(), before);
+      json page = json::array();
+      for (std::size_t i = std::min(end, static_cast<std::size_t>(off)); i < end; ++i)
+        page.push_back(SeriesSummary(rows[i].second));
+      c->Answer(
+          Json(200, {{"total", rows.size()}, {"offset", off}, {"limit", lim}, {"series", page}}));
+    });
+    return;
+  }
+  // Everything else: the read view on the engine; filter and sort every series of it on the
+  // reader thread; the page's rows as they are now on the engine again.
   OnEngine(c, [=, this, labels = std::move(*label_filter)]() mutable {
     std::shared_ptr<const ReadView> view = engine_.ReadSnapshot();
     OffEngine(c, [=, this, labels = std::move(labels)]() mutable {
