@@ -182,16 +182,16 @@ int Replay(const std::vector<std::string>& args, std::ostream& err) {
   options.input = flags["input"];
   options.output = flags.count("output") ? flags["output"] : "-";
   if (flags.count("alerts")) options.alerts = flags["alerts"];
-  ReplaySummary summary;
-  std::string error;
-  const int rc = RunReplay(settings, options, summary, error);
-  if (rc != 0) {
+  const Result<ReplaySummary> summary = RunReplay(settings, options);
+  if (!summary) {
     err << "forewarden replay: " << (options.input == "-" ? "<stdin>" : options.input) << ": "
-        << error << '\n';
-    if (rc == 2) err << "nothing was written: fix the input and run the replay again\n";
-    return rc;
+        << summary.status().message() << '\n';
+    // bad input exits 2 (nothing was written), a file that cannot be read or written 1
+    if (summary.status().kind() != ErrorKind::kInvalid) return 1;
+    err << "nothing was written: fix the input and run the replay again\n";
+    return 2;
   }
-  err << FormatReplaySummary(summary);
+  err << FormatReplaySummary(*summary);
   return 0;
 }
 
@@ -272,13 +272,13 @@ int RunCommand(const std::vector<std::string>& args, std::ostream& out, std::ost
       err << "usage: forewarden backup --data DIR --to FILE\n";
       return 2;
     }
-    const BackupResult r = BackupStore(flags["data"], flags["to"]);
-    if (!r.error.empty()) {
-      err << "forewarden backup: " << r.error << '\n';
+    const Result<BackupCopy> r = BackupStore(flags["data"], flags["to"]);
+    if (!r) {
+      err << "forewarden backup: " << r.status().message() << '\n';
       return 1;
     }
-    out << "forewarden backup: " << r.pages << " pages, " << r.bytes << " bytes to " << flags["to"]
-        << " (integrity ok)\n";
+    out << "forewarden backup: " << r->pages << " pages, " << r->bytes << " bytes to "
+        << flags["to"] << " (integrity ok)\n";
     return 0;
   }
   if (cmd == "serve") {

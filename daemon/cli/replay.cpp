@@ -307,13 +307,13 @@ bool WriteEpisodes(const std::string& path, const std::vector<EpisodeRow>& episo
 
 }  // namespace
 
-int RunReplay(const config::Settings& settings, const ReplayOptions& options,
-              ReplaySummary& summary, std::string& error) {
+Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOptions& options) {
+  ReplaySummary summary;
+  std::string error;
   const auto t0 = std::chrono::steady_clock::now();
   CsvReader in(options.input);
   if (!in.ok()) {
-    error = in.error();
-    return 1;
+    return Status::Io(in.error());
   }
   OutputFile out_file;
   if (options.output.empty() || options.output == "-") {
@@ -323,22 +323,20 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     out_file.temp_path = options.output + ".partial";
     out_file.file = std::fopen(out_file.temp_path.c_str(), "wb");
     if (!out_file.file) {
-      error = out_file.temp_path + ": cannot create: " + std::strerror(errno);
-      return 1;
+      return Status::Io(out_file.temp_path + ": cannot create: " + std::strerror(errno));
     }
     out_file.owned = true;
   }
 
   std::vector<std::string_view> fields;
   if (!in.Next(fields)) {
-    error = in.ok() ? options.input + ": empty input: expected the header series,period,value"
-                    : in.error();
-    return in.ok() ? 2 : 1;
+    if (!in.ok()) return Status::Io(in.error());
+    return Status::Invalid(options.input +
+                           ": empty input: expected the header series,period,value");
   }
   const ActualsHeader header = ReadActualsHeader(fields);
   if (!header.problems.empty()) {
-    error = "line " + std::to_string(in.line()) + ": " + header.problems.front();
-    return 2;
+    return Status::Invalid("line " + std::to_string(in.line()) + ": " + header.problems.front());
   }
   const int col_series = header.series, col_period = header.period, col_value = header.value;
   const std::vector<std::string>& label_names = header.labels;  // other columns are labels
@@ -372,14 +370,13 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
   while (in.Next(fields)) {
     const long line = in.line();
     if (fields.size() != ncols) {
-      error = "line " + std::to_string(line) + ": expected " + std::to_string(ncols) +
-              " fields, found " + std::to_string(fields.size());
-      return 2;
+      return Status::Invalid("line " + std::to_string(line) + ": expected " +
+                             std::to_string(ncols) + " fields, found " +
+                             std::to_string(fields.size()));
     }
     const std::string_view key = fields[col_series];
     if (key.empty()) {
-      error = Where(line, "series") + "the series key is empty";
-      return 2;
+      return Status::Invalid(Where(line, "series") + "the series key is empty");
     }
     SeriesSlot* found = previous ? previous->next_seen : nullptr;
     if (!found || found->key != key) {
@@ -388,8 +385,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
         found = it->second;
       } else {
         if (std::string why = KeyTextProblem(key); !why.empty()) {
-          error = Where(line, "series") + "the series key holds " + why;
-          return 2;
+          return Status::Invalid(Where(line, "series") + "the series key holds " + why);
         }
         std::vector<std::pair<std::string, std::string>> labels;
         for (std::size_t i = 0; i < ncols; ++i)
@@ -397,8 +393,8 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
             labels.emplace_back(label_names[i], std::string(fields[i]));
         const config::Policy* policy = config::FindPolicy(settings, key, labels);
         if (!policy) {
-          error = Where(line, "series") + "no policy matches the series '" + std::string(key) + "'";
-          return 2;
+          return Status::Invalid(Where(line, "series") + "no policy matches the series '" +
+                                 std::string(key) + "'");
         }
         slots.push_back(
             SeriesSlot{keys.Add(key), policy, nullptr, monitors::NewSeriesState(policy->spec), {}});
@@ -413,14 +409,13 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     const ParsedPeriod& parsed = periods.Parse(policy.period, fields[col_period]);
     const monitors::PeriodParse& period = parsed.parse;
     if (!period.ok()) {
-      error = Where(line, "period") + period.error;
-      return 2;
+      return Status::Invalid(Where(line, "period") + period.error);
     }
     double value = 0.0;
     // Not finite (nan, inf): the step refuses it below with the same words as the service.
     if (ReadNumber(fields[col_value], value) == NumberText::kNotANumber) {
-      error = Where(line, "value") + "'" + std::string(fields[col_value]) + "' is not a number";
-      return 2;
+      return Status::Invalid(Where(line, "value") + "'" + std::string(fields[col_value]) +
+                             "' is not a number");
     }
     Row& row = writer.Next();
     const monitors::StepStatus status =
@@ -434,8 +429,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
                   " is not after the series' last period " +
                   monitors::FormatPeriod(policy.period, slot.state.last_period) +
                   " (periods must increase within a series)";
-      error = Where(line, field) + problem + " (series '" + std::string(key) + "')";
-      return 2;
+      return Status::Invalid(Where(line, field) + problem + " (series '" + std::string(key) + "')");
     }
     ++rows;
     row.key = slot.key;
@@ -482,25 +476,25 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     }
   }
   if (!in.ok()) {
-    error = options.input + ": " + in.error();
-    return in.error().rfind("read error", 0) == 0 ? 1 : 2;
+    const std::string what = options.input + ": " + in.error();
+    if (in.error().rfind("read error", 0) == 0) return Status::Io(what);
+    return Status::Invalid(what);
   }
   abandon_on_error.done = true;
   if (!writer.Finish() || std::fflush(out_file.file) != 0) {
-    error = "cannot write the output: " + std::string(std::strerror(errno));
-    return 1;
+    return Status::Io("cannot write the output: " + std::string(std::strerror(errno)));
   }
   if (out_file.owned) {
     const int rc = std::fclose(out_file.file);
     out_file.file = nullptr;
     if (rc != 0 || std::rename(out_file.temp_path.c_str(), out_file.final_path.c_str()) != 0) {
-      error = out_file.final_path + ": cannot write: " + std::strerror(errno);
+      Status failed = Status::Io(out_file.final_path + ": cannot write: " + std::strerror(errno));
       std::remove(out_file.temp_path.c_str());
-      return 1;
+      return failed;
     }
     out_file.owned = false;
   }
-  if (want_episodes && !WriteEpisodes(options.alerts, episodes, error)) return 1;
+  if (want_episodes && !WriteEpisodes(options.alerts, episodes, error)) return Status::Io(error);
   summary.series = static_cast<long>(series.size());
   summary.actuals = rows;
   for (const config::Policy& p : settings.policies)
@@ -509,7 +503,7 @@ int RunReplay(const config::Settings& settings, const ReplayOptions& options,
     for (std::size_t i = 0; i < counts.size(); ++i)
       summary.alerts_opened[policy->name + "/" + policy->spec.rules[i].name] += counts[i];
   summary.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-  return 0;
+  return summary;
 }
 
 std::string FormatReplaySummary(const ReplaySummary& s) {

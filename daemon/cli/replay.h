@@ -8,6 +8,7 @@
 #include <string>
 
 #include "config/settings.h"
+#include "daemon/common/status.h"
 
 namespace forewarden {
 
@@ -26,10 +27,9 @@ struct ReplaySummary {
   std::map<std::string, long> alerts_opened;  // "policy/rule" -> alert episodes opened
 };
 
-// Returns 0 on success, 2 on bad input (the message in `error` names the line and field),
-// 1 on an I/O failure.
-int RunReplay(const config::Settings& settings, const ReplayOptions& options,
-              ReplaySummary& summary, std::string& error);
+// The summary; invalid on bad input (the message names the line and field), io when a file
+// cannot be read or written.
+Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOptions& options);
 
 // The summary lines written to standard error.
 std::string FormatReplaySummary(const ReplaySummary& summary);

@@ -1,5 +1,7 @@
 #include "daemon/engine/engine.h"
 
+#include <cstdio>
+
 #include <algorithm>
 #include <chrono>
 #include <cmath>
@@ -69,18 +71,16 @@ Engine::~Engine() {
 
 Status Engine::Start() {
   const config::Server& srv = settings_->server;
-  if (!store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull, srv.max_database_bytes,
-                   srv.cache_bytes)) {
-    return Status::StoreFailed("store: " + store_.error());
-  }
+  if (Status opened = store_.Open(srv.data, srv.synchronous == config::Synchronous::kFull,
+                                  srv.max_database_bytes, srv.cache_bytes);
+      !opened)
+    return opened;
   std::string problem;
   std::vector<std::size_t> stale_states;
-  std::int64_t count = 0;
-  if (!store_.CountSeries(count)) {
-    return Status::StoreFailed("store: " + store_.error());
-  }
-  index_.Reserve(static_cast<std::size_t>(count) + 1024);
-  const bool loaded = store_.LoadSeries([&](StoredSeries&& row) {
+  Result<std::int64_t> count = store_.CountSeries();
+  if (!count) return count.status();
+  index_.Reserve(static_cast<std::size_t>(*count) + 1024);
+  Status loaded = store_.LoadSeries([&](StoredSeries&& row) {
     const config::Policy* policy = nullptr;
     for (const auto& p : settings_->policies)
       if (p.name == row.policy) policy = &p;
@@ -111,25 +111,19 @@ Status Engine::Start() {
     if (behind) stale_states.push_back(series_.size() - 1);
     index_.Insert(series_.back().key, series_.size() - 1);
   });
-  if (!loaded) {
-    return Status::StoreFailed("store: " + store_.error());
-  }
+  if (!loaded) return loaded;
   if (!problem.empty()) {
     return Status::Invalid(problem);
   }
   // States are written lazily (README, "Durability"): after a crash some lag their actuals.
   // Replaying the newer actuals with the same step brings them to where they were.
   if (!stale_states.empty()) {
-    if (!store_.Begin()) {
-      return Status::StoreFailed("store: " + store_.error());
-    }
+    if (Status begun = store_.Begin(); !begun) return begun;
     for (std::size_t i : stale_states) {
       Series& s = series_[i];
       std::vector<StoredActual> newer;
       const std::int64_t from = s.state.seen ? s.state.last_period + 1 : INT64_MIN;
-      if (!store_.Actuals(s.id, from, INT64_MAX, newer)) {
-        return Status::StoreFailed("store: " + store_.error());
-      }
+      if (Status read = store_.Actuals(s.id, from, INT64_MAX, newer); !read) return read;
       monitors::StepResult r;
       for (const StoredActual& a : newer)
         if (monitors::Step(s.policy->spec, s.state, a.period, a.value, r) !=
@@ -137,16 +131,12 @@ Status Engine::Start() {
           return Status::Conflict("series '" + std::string(s.key) +
                                   "': its stored actuals cannot be replayed");
         }
-      if (!store_.UpdateState(s.id, s.state)) {
-        return Status::StoreFailed("store: " + store_.error());
-      }
+      if (Status written = store_.UpdateState(s.id, s.state); !written) return written;
     }
-    if (!store_.Commit()) {
-      return Status::StoreFailed("store: " + store_.error());
-    }
+    if (Status committed = store_.Commit(); !committed) return committed;
     recovered_ = static_cast<long>(stale_states.size());
   }
-  if (std::string error; !OpenAlerts(error)) return Status::StoreFailed(error);
+  if (Status opened = OpenAlerts(); !opened) return opened;
   dirty_.assign(series_.size(), 0);
   last_flush_ms_ = last_housekeeping_ms_ = clock_();
   for (std::size_t i = 0; i < series_.size(); ++i) NoteAlerting(i);
@@ -154,7 +144,7 @@ Status Engine::Start() {
   return Status::Ok();
 }
 
-bool Engine::OpenAlerts(std::string& error) {
+Status Engine::OpenAlerts() {
   // Series ids increase with the index (loaded in id order, created in order): binary search,
   // no map of a million entries at start-up.
   const auto index_of = [this](std::int64_t id) -> long {
@@ -168,10 +158,8 @@ bool Engine::OpenAlerts(std::string& error) {
     }
     return lo < series_.size() && series_[lo].id == id ? static_cast<long>(lo) : -1L;
   };
-  if (!alerts_.Open(store_.db(), index_of, error)) {
-    error = "store: alerts: " + error;
-    return false;
-  }
+  if (Status opened = alerts_.Open(store_.db(), index_of); !opened)
+    return opened.Prefix("store: alerts: ");
   alerts_.Configure(*settings_);
   alerts_.Index(
       [&](long index,
@@ -186,7 +174,7 @@ bool Engine::OpenAlerts(std::string& error) {
             monitors::ParsePeriod(series_[static_cast<std::size_t>(index)].policy->period, text);
         return parsed.ok() ? parsed.ordinal : INT64_MAX;
       });
-  return true;
+  return Status::Ok();
 }
 
 AlertSeries Engine::Info(std::size_t index) const {
@@ -229,10 +217,7 @@ void Engine::CollectChanges(std::size_t index, const monitors::StepResult& r, st
 
 Status Engine::AlertAction(const std::function<Status(AlertBook&, std::int64_t now_ms)>& action) {
   if (std::string sticky = failure(); !sticky.empty()) return Status::StoreFailed(sticky);
-  if (!store_.Begin()) {
-    Fail("store: " + store_.error());
-    return Status::StoreFailed(failure());
-  }
+  if (Status begun = store_.Begin(); !begun) return Fail(begun);
   const std::size_t mark = alerts_.Mark();
   Status done = action(alerts_, clock_());
   if (!done) {
@@ -244,11 +229,10 @@ Status Engine::AlertAction(const std::function<Status(AlertBook&, std::int64_t n
     }
     return done;
   }
-  if (!store_.Commit()) {
-    Fail("store: commit: " + store_.error());
+  if (Status committed = store_.Commit(); !committed) {
     store_.Rollback();
     alerts_.RollbackTo(mark);
-    return Status::StoreFailed(failure());
+    return Fail(committed);
   }
   alerts_.Forget();
   if (on_outbox_) on_outbox_();
@@ -295,12 +279,14 @@ void Engine::Housekeeping() {
   }
   const std::size_t mark = alerts_.Mark();
   AlertCounts counts;
-  const bool ok = store_.Begin() &&
-                  alerts_.Apply(
-                      changes, [this](std::size_t i) { return Info(i); }, now, counts) &&
-                  alerts_.WakeSnoozed(now, counts) && store_.Commit();
+  Status ok = store_.Begin();
+  if (ok)
+    ok = alerts_.Apply(
+        changes, [this](std::size_t i) { return Info(i); }, now, counts);
+  if (ok) ok = alerts_.WakeSnoozed(now, counts);
+  if (ok) ok = store_.Commit();
   if (!ok) {
-    Fail("store: alerts: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
+    Fail(ok.message());
     store_.Rollback();
     alerts_.RollbackTo(mark);
     for (Saved& b : before) {
@@ -322,12 +308,8 @@ void Engine::Stop() {
   wake_.notify_all();
   if (thread_.joinable()) {
     thread_.join();
-    if (dirty_count_ && failure().empty()) {
-      if (store_.Begin() && FlushDirty() && store_.Commit())
-        ClearDirty();
-      else
-        store_.Rollback();  // the actuals are committed: the next start replays them
-    }
+    // A failure here loses nothing: the actuals are committed and the next start replays them.
+    if (dirty_count_ && failure().empty() && FlushAll()) ClearDirty();
   }
 }
 
@@ -348,17 +330,23 @@ void Engine::MarkDirty(std::size_t index) {
   }
 }
 
-bool Engine::FlushDirty() {
+Status Engine::FlushDirty() {
   // A flag scan (a byte a series) rather than a list: no memory per dirty series.
   const std::size_t n = std::min(dirty_.size(), series_.size());  // rolled-back series are gone
   for (std::size_t i = 0; i < n; ++i) {
     if (!dirty_[i]) continue;
-    if (!store_.UpdateState(series_[i].id, series_[i].state)) {
-      Fail("store: " + store_.error());
-      return false;
-    }
+    if (Status written = store_.UpdateState(series_[i].id, series_[i].state); !written)
+      return written;
   }
-  return true;
+  return Status::Ok();
+}
+
+Status Engine::FlushAll() {
+  Status done = store_.Begin();
+  if (done) done = FlushDirty();
+  if (done) done = store_.Commit();
+  if (!done) store_.Rollback();
+  return done;
 }
 
 void Engine::ClearDirty() {
@@ -407,8 +395,8 @@ bool Engine::Reload(std::shared_ptr<const config::Settings> settings) {
     }
     settings_ = settings;
     read_all_ = true;
-    std::string error;
-    if (!OpenAlerts(error)) Fail(error);  // rule indexes may have moved: place alerts again
+    // rule indexes may have moved: place the alerts again
+    if (Status opened = OpenAlerts(); !opened) Fail(opened.message());
   });
 }
 
@@ -427,6 +415,11 @@ void Engine::Fail(const std::string& why) {
   if (failure_.empty()) failure_ = why;
 }
 
+Status Engine::Fail(const Status& store_failure) {
+  Fail(store_failure.message());
+  return Status::StoreFailed(failure());
+}
+
 void Engine::Run() {
   for (;;) {
     std::vector<Job> group;
@@ -439,12 +432,10 @@ void Engine::Run() {
         Housekeeping();
         // idle: write the states that are waiting
         if (dirty_count_ && failure().empty()) {
-          if (store_.Begin() && FlushDirty() && store_.Commit()) {
+          if (Status flushed = FlushAll(); flushed)
             ClearDirty();
-          } else {
-            Fail("store: " + store_.error());
-            store_.Rollback();
-          }
+          else
+            Fail(flushed.message());
         }
         continue;
       }
@@ -475,17 +466,21 @@ void Engine::Run() {
       }
       continue;
     }
-    if (!store_.Begin()) {
-      Fail("store: begin: " + store_.error());
+    if (Status begun = store_.Begin(); !begun) {
+      Fail(begun.message());
     } else {
       for (Pending& p : pending) ApplyBatch(p);
       const config::Server& srv = settings_->server;
       const bool flush =
           failure().empty() && (static_cast<long>(dirty_count_) >= srv.state_flush_series ||
                                 clock_() - last_flush_ms_ >= srv.state_flush_seconds * 1000);
-      if (flush) FlushDirty();
+      if (flush) {
+        if (Status flushed = FlushDirty(); !flushed) Fail(flushed.message());
+      }
       const auto commit_start = std::chrono::steady_clock::now();
-      if (failure().empty() && !store_.Commit()) Fail("store: commit: " + store_.error());
+      if (failure().empty()) {
+        if (Status committed = store_.Commit(); !committed) Fail(committed.message());
+      }
       if (on_commit_ && failure().empty())
         on_commit_(
             std::chrono::duration<double>(std::chrono::steady_clock::now() - commit_start).count());
@@ -551,8 +546,8 @@ void Engine::ApplyBatch(Pending& p) {
   p.series_before = series_.size();
   p.alert_mark = alerts_.Mark();
   p.reply.counts.rows = static_cast<long>(p.job.rows.size());
-  if (!store_.Savepoint()) {
-    Fail("store: savepoint: " + store_.error());
+  if (Status saved = store_.Savepoint(); !saved) {
+    Fail(saved.message());
     return;
   }
   // Per-series "touched in this batch" flags live across batches (no allocation per batch);
@@ -584,15 +579,15 @@ void Engine::ApplyBatch(Pending& p) {
       NoteChanged(i);
       Series& s = series_[i];
       bool trimmed = false;
-      if (!Trim(s, trimmed)) {
-        Fail("store: " + store_.error());
+      if (Status done = Trim(s, trimmed); !done) {
+        Fail(done.message());
         return;
       }
       // A restated or trimmed series is written now: replaying newer actuals at start could
       // not reproduce it. Others wait for the next flush.
       if (trimmed || p.must_write.count(i)) {
-        if (!store_.UpdateState(s.id, s.state)) {
-          Fail("store: " + store_.error());
+        if (Status written = store_.UpdateState(s.id, s.state); !written) {
+          Fail(written.message());
           return;
         }
       } else {
@@ -603,25 +598,25 @@ void Engine::ApplyBatch(Pending& p) {
     const auto info = [this](std::size_t i) { return Info(i); };
     const std::int64_t now = clock_();
     AlertCounts counts;
-    bool ok = alerts_.Apply(p.alert_changes, info, now, counts);
+    Status ok = alerts_.Apply(p.alert_changes, info, now, counts);
     for (std::size_t k = 0; ok && k < touched_list.size(); ++k) {
       const std::size_t i = touched_list[k];
       ok = alerts_.WakeSnoozedAt(i, series_[i].state.last_period, info, now, counts);
     }
     if (!ok) {
-      Fail("store: alerts: " + alerts_.error());
+      Fail(ok.message());
       return;
     }
     p.reply.counts.alerts_opened = counts.opened;
     p.reply.counts.alerts_resolved = counts.resolved;
     p.alert_counts = counts;  // counted once the group commits
-    if (!store_.ReleaseSavepoint()) Fail("store: release: " + store_.error());
+    if (Status released = store_.ReleaseSavepoint(); !released) Fail(released.message());
     return;
   }
   p.reply.status = IngestReply::Status::kRejected;
   p.reply.counts = IngestCounts{};
   p.reply.counts.rows = static_cast<long>(p.job.rows.size());
-  if (!store_.RollbackToSavepoint()) Fail("store: rollback: " + store_.error());
+  if (Status back = store_.RollbackToSavepoint(); !back) Fail(back.message());
   alerts_.RollbackTo(p.alert_mark);
   p.alert_changes.clear();
   p.bias.clear();
@@ -636,8 +631,8 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
       p.reply.problems.push_back({row.line, field, std::move(message)});
     return false;
   };
-  auto store_error = [&]() {
-    Fail("store: " + store_.error());
+  auto store_error = [&](const Status& failed) {
+    Fail(failed.message());
     store_failed = true;
     return false;
   };
@@ -659,8 +654,10 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     s.labels = InternLabels(labels);
     s.policy = policy;
     s.state = monitors::NewSeriesState(policy->spec);
-    if (!store_.InsertSeries(std::string(s.key), policy->name, labels, s.state, s.id))
-      return store_error();
+    Result<std::int64_t> id =
+        store_.InsertSeries(std::string(s.key), policy->name, labels, s.state);
+    if (!id) return store_error(id.status());
+    s.id = *id;
     index = series_.size();
     series_.push_back(std::move(s));
     index_.Insert(series_.back().key, index);
@@ -694,7 +691,8 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
         monitors::Step(policy.spec, s.state, period.ordinal, row.value, r, &why);
     if (st != monitors::StepStatus::kOk)
       return problem(st == monitors::StepStatus::kBadValue ? "value" : "period", why);
-    if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
+    if (Status put = store_.PutActual(s.id, period.ordinal, row.value); !put)
+      return store_error(put);
     ++s.retained;
     ++p.reply.counts.applied;
     p.reply.counts.filled += r.filled;
@@ -707,17 +705,18 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     }
     return true;
   }
-  bool found = false;
-  double stored = 0.0;
-  if (!store_.GetActual(s.id, period.ordinal, found, stored)) return store_error();
-  if (found && stored == row.value) {
+  Result<std::optional<double>> stored = store_.GetActual(s.id, period.ordinal);
+  if (!stored) return store_error(stored.status());
+  const bool found = stored->has_value();
+  if (found && **stored == row.value) {
     ++p.reply.counts.unchanged;
     return true;
   }
   // The oldest retained period is read only here (restatements are rare): not kept in memory.
-  std::int64_t oldest = 0;
-  bool any = false;
-  if (!store_.OldestActual(s.id, any, oldest)) return store_error();
+  Result<std::optional<std::int64_t>> oldest_or = store_.OldestActual(s.id);
+  if (!oldest_or) return store_error(oldest_or.status());
+  const bool any = oldest_or->has_value();
+  const std::int64_t oldest = oldest_or->value_or(0);
   if (!any || period.ordinal < oldest)
     return problem("period",
                    "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
@@ -725,7 +724,7 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
                        "' (oldest kept: " +
                        (any ? monitors::FormatPeriod(policy.period, oldest) : std::string("none")) +
                        "); raise the policy's history to restate it");
-  if (!store_.PutActual(s.id, period.ordinal, row.value)) return store_error();
+  if (Status put = store_.PutActual(s.id, period.ordinal, row.value); !put) return store_error(put);
   if (!found) ++s.retained;
   monitors::SeriesState recomputed;
   if (!Recompute(s, nullptr, recomputed)) {
@@ -761,9 +760,11 @@ bool Engine::ReplayCheckpoint(const Series& s, std::size_t leave_last,
                               std::vector<StoredActual>& actuals, monitors::SeriesState& state,
                               std::vector<HistoryRow>* rows) {
   std::vector<Adjustment> adjustments;
-  if (!store_.LoadCheckpoint(s.id, state) || !store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals) ||
-      !store_.Adjustments(s.id, adjustments)) {
-    Fail("store: " + store_.error());
+  Status read = store_.LoadCheckpoint(s.id, state);
+  if (read) read = store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals);
+  if (read) read = store_.Adjustments(s.id, adjustments);
+  if (!read) {
+    Fail(read.message());
     return false;
   }
   FitRules(state, *s.policy);
@@ -794,26 +795,27 @@ bool Engine::Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::Serie
   return true;
 }
 
-bool Engine::Trim(Series& s, bool& trimmed) {
+Status Engine::Trim(Series& s, bool& trimmed) {
   trimmed = false;
   const std::int64_t keep = s.policy->history;
   const std::int64_t slack = std::max<std::int64_t>(8, keep / 4);
-  if (s.retained <= keep + slack) return true;
+  if (s.retained <= keep + slack) return Status::Ok();
   trimmed = true;
   // The checkpoint moves past all but the newest `keep` actuals, which are then dropped.
   std::vector<StoredActual> actuals;
   monitors::SeriesState checkpoint;
-  if (!ReplayCheckpoint(s, static_cast<std::size_t>(keep), actuals, checkpoint, nullptr)) {
-    Fail("series '" + std::string(s.key) +
-         "': its retained actuals cannot be replayed into the checkpoint");
-    return false;
-  }
+  if (!ReplayCheckpoint(s, static_cast<std::size_t>(keep), actuals, checkpoint, nullptr))
+    return Status::StoreFailed(failure().empty()
+                                   ? "series '" + std::string(s.key) +
+                                         "': its retained actuals cannot be replayed into the "
+                                         "checkpoint"
+                                   : failure());
   const std::size_t first_kept = actuals.size() - static_cast<std::size_t>(keep);
-  if (!store_.UpdateCheckpoint(s.id, checkpoint) ||
-      !store_.DropBefore(s.id, actuals[first_kept].period))
-    return false;
+  Status done = store_.UpdateCheckpoint(s.id, checkpoint);
+  if (done) done = store_.DropBefore(s.id, actuals[first_kept].period);
+  if (!done) return done;
   s.retained = static_cast<std::int32_t>(keep);
-  return true;
+  return Status::Ok();
 }
 
 std::int64_t Engine::Today() const {
@@ -999,10 +1001,7 @@ Result<double> Engine::Reset(const std::string& key, const std::string& how, dou
     new_level = value;
   } else {
     std::vector<StoredActual> actuals;
-    if (!store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals)) {
-      Fail("store: " + store_.error());
-      return Status::StoreFailed(failure());
-    }
+    if (Status read = store_.Actuals(s.id, INT64_MIN, INT64_MAX, actuals); !read) return Fail(read);
     const std::size_t n = how == "last" ? 1 : static_cast<std::size_t>(k);
     if (actuals.size() < n) {
       return Status::Conflict("only " + std::to_string(actuals.size()) + " retained actuals, " +
@@ -1016,26 +1015,30 @@ Result<double> Engine::Reset(const std::string& key, const std::string& how, dou
     return Status::Invalid("field value: the new level must be a finite number within +/-" +
                            std::to_string(monitors::kMaxActual));
   const Adjustment adj{s.state.last_period, new_level};
+  char level_text[32];
+  std::snprintf(level_text, sizeof level_text, "%.10g", new_level);
   const std::string detail =
-      "level " + std::to_string(new_level) + " (" + how + ")" + (note.empty() ? "" : ": " + note);
-  if (!store_.Begin() || !store_.PutAdjustment(s.id, adj) ||
-      !store_.Audit(clock_(), who, "reset", std::string(s.key), detail)) {
-    Fail("store: " + store_.error());
+      std::string("level ") + level_text + " (" + how + ")" + (note.empty() ? "" : ": " + note);
+  Status written = store_.Begin();
+  if (written) written = store_.PutAdjustment(s.id, adj);
+  if (written) written = store_.Audit(clock_(), who, "reset", std::string(s.key), detail);
+  if (!written) {
     store_.Rollback();
-    return Status::StoreFailed(failure());
+    return Fail(written);
   }
   monitors::SeriesState next = s.state;
   Relevel(next, new_level);
   const std::size_t mark = alerts_.Mark();
   AlertCounts counts;
-  if (!alerts_.ResolveSeries(
-          static_cast<std::size_t>(pos), "reset", who, [this](std::size_t i) { return Info(i); },
-          clock_(), counts) ||
-      !store_.UpdateState(s.id, next) || !store_.Commit()) {
-    Fail("store: " + (alerts_.error().empty() ? store_.error() : alerts_.error()));
+  Status done = alerts_.ResolveSeries(
+      static_cast<std::size_t>(pos), "reset", who, [this](std::size_t i) { return Info(i); },
+      clock_(), counts);
+  if (done) done = store_.UpdateState(s.id, next);
+  if (done) done = store_.Commit();
+  if (!done) {
     store_.Rollback();
     alerts_.RollbackTo(mark);
-    return Status::StoreFailed(failure());
+    return Fail(done);
   }
   alerts_.Forget();
   s.state = std::move(next);

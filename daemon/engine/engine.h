@@ -254,7 +254,7 @@ class Engine {
   bool ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched,
                 std::vector<std::size_t>& touched_list, bool& store_failed);
   bool Recompute(Series& s, std::vector<HistoryRow>* rows, monitors::SeriesState& out);
-  bool Trim(Series& s, bool& trimmed);
+  Status Trim(Series& s, bool& trimmed);
   void MarkDirty(std::size_t index);
   // Adds series `index` to the alerting index when it holds a rule.
   void NoteAlerting(std::size_t index);
@@ -262,14 +262,17 @@ class Engine {
   // recomputed for the next read view.
   void NoteChanged(std::size_t index);
   ReadRow ReadRowOf(std::size_t index) const;
-  bool FlushDirty();  // inside an open transaction; the caller commits
+  Status FlushDirty();  // inside an open transaction; the caller commits
+  Status FlushAll();    // its own transaction: begin, the dirty states, commit
   void ClearDirty();
   void Rewind(Pending& p);
   void Fail(const std::string& why);
+  // Makes a store failure the sticky failure; the failure in force (the first one) as a Status.
+  Status Fail(const Status& store_failure);
   AlertSeries Info(std::size_t index) const;
   // After a commit: alert changes into the counters; wakes the delivery worker if they notify.
   void Committed(const AlertCounts& counts);
-  bool OpenAlerts(std::string& error);
+  Status OpenAlerts();
   // Snoozes that ran out and stale rules, every alerts.check_seconds.
   void Housekeeping();
   // Alert changes of one step of series `index` (episode bits of `r`).

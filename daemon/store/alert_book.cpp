@@ -7,8 +7,8 @@
 #include "monitors/period.h"
 
 namespace forewarden {
-bool AlertBook::Open(Db& db, const std::function<long(std::int64_t)>& index_of,
-                     std::string& error) {
+bool AlertBook::OpenAll(Db& db, const std::function<long(std::int64_t)>& index_of,
+                        std::string& error) {
   db_ = &db;
   insert_alert_ = db.Prepare(
       "INSERT INTO alerts(series_id, series_key, policy, rule, signal, severity, state, "
@@ -187,8 +187,8 @@ bool AlertBook::Event(std::int64_t alert, std::int64_t group, const std::string&
   return true;
 }
 
-bool AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo& info,
-                      std::int64_t now_ms, AlertCounts& counts) {
+bool AlertBook::ApplyAll(const std::vector<AlertChange>& changes, const SeriesInfo& info,
+                         std::int64_t now_ms, AlertCounts& counts) {
   if (changes.empty()) return true;
   // Storms: openings per (policy, rule) in this batch.
   std::map<std::pair<const config::Policy*, std::size_t>, std::vector<std::size_t>> openings;
@@ -460,7 +460,7 @@ bool AlertBook::Unsnooze(std::uint64_t key, Live o, std::int64_t now_ms, AlertCo
   return true;
 }
 
-bool AlertBook::WakeSnoozed(std::int64_t now_ms, AlertCounts& counts) {
+bool AlertBook::WakeAll(std::int64_t now_ms, AlertCounts& counts) {
   std::vector<std::pair<std::uint64_t, Live>> due;
   for (const auto& [k, o] : open_)
     if (o.state == 's' && o.snooze_ms <= now_ms) due.push_back({k, o});
@@ -469,8 +469,8 @@ bool AlertBook::WakeSnoozed(std::int64_t now_ms, AlertCounts& counts) {
   return true;
 }
 
-bool AlertBook::WakeSnoozedAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
-                              std::int64_t now_ms, AlertCounts& counts) {
+bool AlertBook::WakeAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
+                       std::int64_t now_ms, AlertCounts& counts) {
   if (!AnySnoozed()) return true;  // the common case: no lookups per series
   const AlertSeries s = info(index);
   for (std::size_t r = 0; r < s.policy->spec.rules.size(); ++r) {
@@ -481,8 +481,8 @@ bool AlertBook::WakeSnoozedAt(std::size_t index, std::int64_t period, const Seri
   return true;
 }
 
-bool AlertBook::ResolveSeries(std::size_t index, const std::string& reason, const std::string& by,
-                              const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts) {
+bool AlertBook::ResolveAll(std::size_t index, const std::string& reason, const std::string& by,
+                           const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts) {
   const AlertSeries s = info(index);
   for (std::size_t r = 0; r < s.policy->spec.rules.size(); ++r) {
     auto it = open_.find(Key(index, r));
@@ -491,6 +491,36 @@ bool AlertBook::ResolveSeries(std::size_t index, const std::string& reason, cons
     if (!Resolve(it->first, o, by, reason, "", now_ms, counts)) return false;
   }
   return true;
+}
+
+// The public side answers Status; the SQL helpers above keep their reason in error_.
+Status AlertBook::Done(bool ok) const {
+  return ok ? Status::Ok() : Status::StoreFailed("store: alerts: " + error_);
+}
+
+Status AlertBook::Open(Db& db, const std::function<long(std::int64_t)>& index_of) {
+  std::string error;
+  if (!OpenAll(db, index_of, error)) return Status::StoreFailed(error);
+  return Status::Ok();
+}
+
+Status AlertBook::Apply(const std::vector<AlertChange>& changes, const SeriesInfo& info,
+                        std::int64_t now_ms, AlertCounts& counts) {
+  return Done(ApplyAll(changes, info, now_ms, counts));
+}
+
+Status AlertBook::WakeSnoozed(std::int64_t now_ms, AlertCounts& counts) {
+  return Done(WakeAll(now_ms, counts));
+}
+
+Status AlertBook::WakeSnoozedAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
+                                std::int64_t now_ms, AlertCounts& counts) {
+  return Done(WakeAt(index, period, info, now_ms, counts));
+}
+
+Status AlertBook::ResolveSeries(std::size_t index, const std::string& reason, const std::string& by,
+                                const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts) {
+  return Done(ResolveAll(index, reason, by, info, now_ms, counts));
 }
 
 }  // namespace forewarden

@@ -61,7 +61,7 @@ class AlertBook {
 
   // Prepares statements on the store's connection and loads the unresolved alerts;
   // `index_of` maps a series id to the engine's index (-1 when unknown).
-  bool Open(Db& db, const std::function<long(std::int64_t)>& index_of, std::string& error);
+  Status Open(Db& db, const std::function<long(std::int64_t)>& index_of);
   void Configure(const config::Settings& settings);  // sinks, storm threshold
   // After Open and Configure: places the loaded alerts under (index, rule) by rule name through
   // `locate` (nullopt: the rule is gone; the alert is left as stored) and parses snooze periods.
@@ -70,8 +70,8 @@ class AlertBook {
              const std::function<std::int64_t(long index, const std::string& text)>& period_of);
 
   // Inside the caller's transaction: records one batch's changes (grouping storms).
-  bool Apply(const std::vector<AlertChange>& changes, const SeriesInfo& info, std::int64_t now_ms,
-             AlertCounts& counts);
+  Status Apply(const std::vector<AlertChange>& changes, const SeriesInfo& info, std::int64_t now_ms,
+               AlertCounts& counts);
 
   // Lifecycle by hand, inside the caller's transaction: not found (no such alert), conflict
   // (resolved already) or store failed.
@@ -88,12 +88,12 @@ class AlertBook {
   // the number requeued.
   Result<long> RequeueDead(const std::string& sink, std::int64_t now_ms);
   // Snoozes that ended: by time (now_ms) or because series `index` reached `period`.
-  bool WakeSnoozed(std::int64_t now_ms, AlertCounts& counts);
-  bool WakeSnoozedAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
-                     std::int64_t now_ms, AlertCounts& counts);
+  Status WakeSnoozed(std::int64_t now_ms, AlertCounts& counts);
+  Status WakeSnoozedAt(std::size_t index, std::int64_t period, const SeriesInfo& info,
+                       std::int64_t now_ms, AlertCounts& counts);
   // Every unresolved alert of a series, resolved with `reason` (a reset).
-  bool ResolveSeries(std::size_t index, const std::string& reason, const std::string& by,
-                     const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts);
+  Status ResolveSeries(std::size_t index, const std::string& reason, const std::string& by,
+                       const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts);
 
   // Calls `each` for every unresolved alert: (series index, rule index, state name, severity).
   void Tally(const std::function<void(std::size_t, std::size_t, const char*, monitors::Severity)>&
@@ -104,8 +104,6 @@ class AlertBook {
   bool AnySnoozed() const { return snoozed_ > 0; }
   void RollbackTo(std::size_t mark);
   void Forget() { undo_.clear(); }
-
-  const std::string& error() const { return error_; }
 
  private:
   struct Live {
@@ -122,6 +120,15 @@ class AlertBook {
   void Set(std::uint64_t key, std::optional<Live> value);         // with undo
   void Put(std::uint64_t key, const std::optional<Live>& value);  // without
   void IndexReset();
+  Status Done(bool ok) const;
+  bool OpenAll(Db& db, const std::function<long(std::int64_t)>& index_of, std::string& error);
+  bool ApplyAll(const std::vector<AlertChange>& changes, const SeriesInfo& info,
+                std::int64_t now_ms, AlertCounts& counts);
+  bool WakeAll(std::int64_t now_ms, AlertCounts& counts);
+  bool WakeAt(std::size_t index, std::int64_t period, const SeriesInfo& info, std::int64_t now_ms,
+              AlertCounts& counts);
+  bool ResolveAll(std::size_t index, const std::string& reason, const std::string& by,
+                  const SeriesInfo& info, std::int64_t now_ms, AlertCounts& counts);
   // What an event records besides kind, time, actor and note: the alert's severity and signal
   // value then, and a detail (the previous severity of an escalation, a snooze's end, the
   // reason of a resolution).

@@ -10,30 +10,28 @@
 
 namespace forewarden {
 
-BackupResult BackupStore(const std::string& data_dir, const std::string& to, int pages_per_step) {
-  BackupResult result;
+Result<BackupCopy> BackupStore(const std::string& data_dir, const std::string& to,
+                               int pages_per_step) {
+  BackupCopy result;
   const std::string source_path = DatabasePath(data_dir);
   std::error_code ec;
-  if (!std::filesystem::exists(source_path, ec)) {
-    result.error = source_path + ": no store here (is --data the service's data folder?)";
-    return result;
-  }
+  if (!std::filesystem::exists(source_path, ec))
+    return Status::NotFound(source_path + ": no store here (is --data the service's data folder?)");
   sqlite3* source = nullptr;
   if (sqlite3_open_v2(source_path.c_str(), &source, SQLITE_OPEN_READONLY, nullptr) != SQLITE_OK) {
-    result.error = source_path + ": " + sqlite3_errmsg(source);
+    Status failed = Status::StoreFailed(source_path + ": " + sqlite3_errmsg(source));
     sqlite3_close(source);
-    return result;
+    return failed;
   }
   sqlite3_busy_timeout(source, 10000);
   const std::string partial = to + ".partial";
   std::filesystem::remove(partial, ec);
   sqlite3* dest = nullptr;
   auto fail = [&](const std::string& what) {
-    result.error = what;
     sqlite3_close(dest);
     sqlite3_close(source);
     std::filesystem::remove(partial, ec);
-    return result;
+    return Status::StoreFailed(what);
   };
   if (sqlite3_open_v2(partial.c_str(), &dest, SQLITE_OPEN_READWRITE | SQLITE_OPEN_CREATE,
                       nullptr) != SQLITE_OK)
@@ -68,9 +66,9 @@ BackupResult BackupStore(const std::string& data_dir, const std::string& to, int
   source = nullptr;
   std::filesystem::rename(partial, to, ec);
   if (ec) {
-    result.error = to + ": " + ec.message();
+    Status failed = Status::Io(to + ": " + ec.message());
     std::filesystem::remove(partial, ec);
-    return result;
+    return failed;
   }
   result.bytes = static_cast<long long>(std::filesystem::file_size(to, ec));
   return result;

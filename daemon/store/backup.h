@@ -7,17 +7,19 @@
 
 #include <string>
 
+#include "daemon/common/status.h"
+
 namespace forewarden {
 
-struct BackupResult {
+struct BackupCopy {
   long long pages = 0;
   long long bytes = 0;
-  std::string error;  // empty on success
 };
 
 // `pages_per_step` pages are copied per step; between steps the source is free for the
-// service's writer.
-BackupResult BackupStore(const std::string& data_dir, const std::string& to,
-                         int pages_per_step = 256);
+// service's writer. Not found (no store in `data_dir`), store failed (SQLite refused, the copy
+// failed its check) or io (the rename).
+Result<BackupCopy> BackupStore(const std::string& data_dir, const std::string& to,
+                               int pages_per_step = 256);
 
 }  // namespace forewarden

@@ -110,28 +110,32 @@ constexpr int kSchemaVersion = static_cast<int>(sizeof kMigrations / sizeof kMig
 
 }  // namespace
 
-bool Store::Open(const std::string& dir, bool synchronous_full, long long max_bytes,
-                 long long cache_bytes) {
+Status Store::Failed(const std::string& what) const {
+  return Status::StoreFailed("store: " + what + ": " + db_.error());
+}
+
+Status Store::Open(const std::string& dir, bool synchronous_full, long long max_bytes,
+                   long long cache_bytes) {
   std::error_code ec;
   std::filesystem::create_directories(dir, ec);
-  if (ec) return db_.Fail("create data folder " + dir + ": " + ec.message());
-  if (!db_.Open(DatabasePath(dir))) return false;
+  if (ec) return Status::StoreFailed("store: create data folder " + dir + ": " + ec.message());
+  if (!db_.Open(DatabasePath(dir))) return Failed("open");
   if (!db_.Exec("PRAGMA journal_mode=WAL;") ||
       !db_.Exec(std::string("PRAGMA synchronous=") + (synchronous_full ? "FULL" : "NORMAL") +
                 ";") ||
       !db_.Exec("PRAGMA foreign_keys=ON;"))
-    return false;
+    return Failed("open");
   db_.WaitForLocks(5000);
-  if (!Migrate()) return false;
+  if (!Migrate()) return Failed("migrate");
   if (!db_.Exec("PRAGMA cache_size=-" + std::to_string(std::max(1LL, cache_bytes / 1024)) + ";"))
-    return false;
+    return Failed("open");
   if (max_bytes > 0) {
     Stmt size = db_.Prepare("PRAGMA page_size");
-    if (!size.valid() || !size.Step() || !size.Row()) return false;
+    if (!size.valid() || !size.Step() || !size.Row()) return Failed("open");
     const long long page = size.Int(0);
     size.Reset();
     if (!db_.Exec("PRAGMA max_page_count=" + std::to_string(std::max(1LL, max_bytes / page)) + ";"))
-      return false;
+      return Failed("open");
   }
   begin_ = db_.Prepare("BEGIN IMMEDIATE");
   commit_ = db_.Prepare("COMMIT");
@@ -180,8 +184,8 @@ bool Store::Open(const std::string& dir, bool synchronous_full, long long max_by
                         &put_adjustment_,
                         &adjustments_,
                         &audit_})
-    if (!s->valid()) return false;
-  return true;
+    if (!s->valid()) return Failed("prepare");
+  return Status::Ok();
 }
 
 bool Store::Migrate() {
@@ -208,45 +212,45 @@ bool Store::Migrate() {
   return true;
 }
 
-bool Store::Begin() {
-  return begin_.Run();
+Status Store::Begin() {
+  return Check(begin_.Run(), "begin");
 }
-bool Store::Commit() {
-  return commit_.Run();
+Status Store::Commit() {
+  return Check(commit_.Run(), "commit");
 }
-bool Store::Rollback() {
-  return rollback_.Run();
+void Store::Rollback() {
+  rollback_.Run();  // a failed rollback: the transaction ends when the connection closes
 }
-bool Store::Savepoint() {
-  return savepoint_.Run();
+Status Store::Savepoint() {
+  return Check(savepoint_.Run(), "savepoint");
 }
-bool Store::ReleaseSavepoint() {
-  return release_.Run();
+Status Store::ReleaseSavepoint() {
+  return Check(release_.Run(), "release");
 }
-bool Store::RollbackToSavepoint() {
-  return rollback_to_.Run() && release_.Run();
+Status Store::RollbackToSavepoint() {
+  return Check(rollback_to_.Run() && release_.Run(), "rollback to savepoint");
 }
 
-bool Store::CountSeries(std::int64_t& count) {
+Result<std::int64_t> Store::CountSeries() {
   Stmt q = db_.Prepare("SELECT count(*) FROM series");
-  if (!q.valid() || !q.Step() || !q.Row()) return false;
-  count = q.Int(0);
+  if (!q.valid() || !q.Step() || !q.Row()) return Failed("count series");
+  const std::int64_t count = q.Int(0);
   q.Reset();
-  return true;
+  return count;
 }
 
-bool Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
+Status Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
   // Two ordered scans merged by id: much faster than per-series subqueries for millions.
   Stmt q = db_.Prepare("SELECT id, key, policy, labels, state FROM series ORDER BY id");
   Stmt a = db_.Prepare(
       "SELECT series_id, count(*), min(period), max(period) FROM actuals GROUP BY series_id "
       "ORDER BY series_id");
-  if (!q.valid() || !a.valid() || !a.Step()) return false;
+  if (!q.valid() || !a.valid() || !a.Step()) return Failed("load series");
   for (;;) {
-    if (!q.Step()) return false;
+    if (!q.Step()) return Failed("load series");
     if (!q.Row()) {
       a.Reset();
-      return true;
+      return Status::Ok();
     }
     StoredSeries s;
     s.id = q.Int(0);
@@ -256,10 +260,10 @@ bool Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
     if (!DecodeState(q.Blob(4), s.state)) {
       q.Reset();
       a.Reset();
-      return db_.Fail("series '" + s.key + "': the stored state cannot be read");
+      return Status::StoreFailed("store: series '" + s.key + "': the stored state cannot be read");
     }
     while (a.Row() && a.Int(0) < s.id)
-      if (!a.Step()) return false;
+      if (!a.Step()) return Failed("load series");
     if (a.Row() && a.Int(0) == s.id) {
       s.retained = a.Int(1);
       s.oldest_period = a.Int(2);
@@ -269,96 +273,103 @@ bool Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
   }
 }
 
-bool Store::InsertSeries(const std::string& key, const std::string& policy,
-                         const std::string& labels, const monitors::SeriesState& state,
-                         std::int64_t& id) {
+Result<std::int64_t> Store::InsertSeries(const std::string& key, const std::string& policy,
+                                         const std::string& labels,
+                                         const monitors::SeriesState& state) {
   const std::string blob = EncodeState(state);
   if (!insert_series_.Bind(1, key).Bind(2, policy).Bind(3, labels).BindBlob(4, blob).Run())
-    return false;
-  id = db_.LastInsertId();
-  return insert_checkpoint_.Bind(1, id).BindBlob(2, blob).Run();
+    return Failed("insert series");
+  const std::int64_t id = db_.LastInsertId();
+  if (!insert_checkpoint_.Bind(1, id).BindBlob(2, blob).Run()) return Failed("insert checkpoint");
+  return id;
 }
 
-bool Store::UpdateState(std::int64_t id, const monitors::SeriesState& state) {
+Status Store::UpdateState(std::int64_t id, const monitors::SeriesState& state) {
   const std::string blob = EncodeState(state);
-  return update_state_.Bind(1, id).BindBlob(2, blob).Run();
+  return Check(update_state_.Bind(1, id).BindBlob(2, blob).Run(), "update state");
 }
 
-bool Store::UpdateCheckpoint(std::int64_t id, const monitors::SeriesState& checkpoint) {
+Status Store::UpdateCheckpoint(std::int64_t id, const monitors::SeriesState& checkpoint) {
   const std::string blob = EncodeState(checkpoint);
-  return update_checkpoint_.Bind(1, id).BindBlob(2, blob).Run();
+  return Check(update_checkpoint_.Bind(1, id).BindBlob(2, blob).Run(), "update checkpoint");
 }
 
-bool Store::LoadCheckpoint(std::int64_t id, monitors::SeriesState& checkpoint) {
+Status Store::LoadCheckpoint(std::int64_t id, monitors::SeriesState& checkpoint) {
   load_checkpoint_.Bind(1, id);
-  if (!load_checkpoint_.Step()) return false;
+  if (!load_checkpoint_.Step()) return Failed("load checkpoint");
   if (!load_checkpoint_.Row())
-    return db_.Fail("series " + std::to_string(id) + " has no checkpoint");
+    return Status::StoreFailed("store: series " + std::to_string(id) + " has no checkpoint");
   const bool ok = DecodeState(load_checkpoint_.Blob(0), checkpoint);
   load_checkpoint_.Reset();
-  return ok ? true : db_.Fail("series " + std::to_string(id) + ": the checkpoint cannot be read");
+  if (!ok)
+    return Status::StoreFailed("store: series " + std::to_string(id) +
+                               ": the checkpoint cannot be read");
+  return Status::Ok();
 }
 
-bool Store::PutActual(std::int64_t id, std::int64_t period, double value) {
-  return put_actual_.Bind(1, id).Bind(2, period).Bind(3, value).Run();
+Status Store::PutActual(std::int64_t id, std::int64_t period, double value) {
+  return Check(put_actual_.Bind(1, id).Bind(2, period).Bind(3, value).Run(), "put actual");
 }
 
-bool Store::OldestActual(std::int64_t id, bool& any, std::int64_t& period) {
+Result<std::optional<std::int64_t>> Store::OldestActual(std::int64_t id) {
   oldest_actual_.Bind(1, id);
-  if (!oldest_actual_.Step()) return false;
-  any = oldest_actual_.Row() && !oldest_actual_.IsNull(0);
-  if (any) period = oldest_actual_.Int(0);
+  if (!oldest_actual_.Step()) return Failed("oldest actual");
+  std::optional<std::int64_t> period;
+  if (oldest_actual_.Row() && !oldest_actual_.IsNull(0)) period = oldest_actual_.Int(0);
   oldest_actual_.Reset();
-  return true;
+  return period;
 }
 
-bool Store::GetActual(std::int64_t id, std::int64_t period, bool& found, double& value) {
+Result<std::optional<double>> Store::GetActual(std::int64_t id, std::int64_t period) {
   get_actual_.Bind(1, id).Bind(2, period);
-  if (!get_actual_.Step()) return false;
-  found = get_actual_.Row();
-  if (found) value = get_actual_.Double(0);
+  if (!get_actual_.Step()) return Failed("get actual");
+  std::optional<double> value;
+  if (get_actual_.Row()) value = get_actual_.Double(0);
   get_actual_.Reset();
-  return true;
+  return value;
 }
 
-bool Store::Actuals(std::int64_t id, std::int64_t from, std::int64_t to,
-                    std::vector<StoredActual>& out) {
+Status Store::Actuals(std::int64_t id, std::int64_t from, std::int64_t to,
+                      std::vector<StoredActual>& out) {
   out.clear();
   actuals_.Bind(1, id).Bind(2, from).Bind(3, to);
   for (;;) {
-    if (!actuals_.Step()) return false;
-    if (!actuals_.Row()) return true;
+    if (!actuals_.Step()) return Failed("read actuals");
+    if (!actuals_.Row()) return Status::Ok();
     out.push_back({actuals_.Int(0), actuals_.Double(1)});
   }
 }
 
-bool Store::DropBefore(std::int64_t id, std::int64_t before) {
-  return drop_actuals_.Bind(1, id).Bind(2, before).Run() &&
-         drop_adjustments_.Bind(1, id).Bind(2, before).Run();
+Status Store::DropBefore(std::int64_t id, std::int64_t before) {
+  return Check(drop_actuals_.Bind(1, id).Bind(2, before).Run() &&
+                   drop_adjustments_.Bind(1, id).Bind(2, before).Run(),
+               "trim");
 }
 
-bool Store::PutAdjustment(std::int64_t id, const Adjustment& a) {
-  return put_adjustment_.Bind(1, id).Bind(2, a.period).Bind(3, a.level).Run();
+Status Store::PutAdjustment(std::int64_t id, const Adjustment& a) {
+  return Check(put_adjustment_.Bind(1, id).Bind(2, a.period).Bind(3, a.level).Run(),
+               "put adjustment");
 }
 
-bool Store::Adjustments(std::int64_t id, std::vector<Adjustment>& out) {
+Status Store::Adjustments(std::int64_t id, std::vector<Adjustment>& out) {
   out.clear();
   adjustments_.Bind(1, id);
   for (;;) {
-    if (!adjustments_.Step()) return false;
-    if (!adjustments_.Row()) return true;
+    if (!adjustments_.Step()) return Failed("read adjustments");
+    if (!adjustments_.Row()) return Status::Ok();
     out.push_back({adjustments_.Int(0), adjustments_.Double(1)});
   }
 }
 
-bool Store::Audit(std::int64_t at_unix_ms, const std::string& who, const std::string& action,
-                  const std::string& series_key, const std::string& detail) {
-  return audit_.Bind(1, at_unix_ms)
-      .Bind(2, who)
-      .Bind(3, action)
-      .Bind(4, series_key)
-      .Bind(5, detail)
-      .Run();
+Status Store::Audit(std::int64_t at_unix_ms, const std::string& who, const std::string& action,
+                    const std::string& series_key, const std::string& detail) {
+  return Check(audit_.Bind(1, at_unix_ms)
+                   .Bind(2, who)
+                   .Bind(3, action)
+                   .Bind(4, series_key)
+                   .Bind(5, detail)
+                   .Run(),
+               "audit");
 }
 
 }  // namespace forewarden

@@ -2,15 +2,17 @@
 // series with its monitor state and its checkpoint (the state before its oldest retained
 // actual), the retained actuals, re-level adjustments, and an audit log. Schema changes are
 // numbered migrations recorded in `meta.schema_version`.
-// Owned by the engine thread; not thread-safe. Every fallible call returns false and leaves
-// the reason in error().
+// Owned by the engine thread; not thread-safe. Every fallible call returns a Status (kind store
+// failed, the message naming what failed and SQLite's reason) or a Result.
 #pragma once
 
 #include <cstdint>
 #include <functional>
+#include <optional>
 #include <string>
 #include <vector>
 
+#include "daemon/common/status.h"
 #include "daemon/store/sqlite.h"
 #include "monitors/series.h"
 
@@ -46,50 +48,55 @@ class Store {
   // Opens or creates `dir`/forewarden.db, applies migrations, sets WAL and `synchronous`
   // (true = FULL, false = NORMAL) and, when max_bytes > 0, caps the database file (writes
   // beyond it fail with "database or disk is full", as on a full disk).
-  bool Open(const std::string& dir, bool synchronous_full, long long max_bytes = 0,
-            long long cache_bytes = 64LL << 20);
-  const std::string& error() const { return db_.error(); }
+  Status Open(const std::string& dir, bool synchronous_full, long long max_bytes = 0,
+              long long cache_bytes = 64LL << 20);
 
-  bool Begin();
-  bool Commit();
-  bool Rollback();
-  bool Savepoint();
-  bool ReleaseSavepoint();
-  bool RollbackToSavepoint();
+  Status Begin();
+  Status Commit();
+  // Ends the open transaction without its changes. Nothing to answer: a rollback that fails
+  // leaves SQLite to roll back when the connection closes.
+  void Rollback();
+  Status Savepoint();
+  Status ReleaseSavepoint();
+  Status RollbackToSavepoint();
 
-  bool CountSeries(std::int64_t& count);
+  Result<std::int64_t> CountSeries();
   // Calls `each` for every series (in id order), with its retained-actual statistics.
-  bool LoadSeries(const std::function<void(StoredSeries&&)>& each);
+  Status LoadSeries(const std::function<void(StoredSeries&&)>& each);
 
-  // Creates a series; its id goes to `id`.
-  bool InsertSeries(const std::string& key, const std::string& policy, const std::string& labels,
-                    const monitors::SeriesState& state, std::int64_t& id);
-  bool UpdateState(std::int64_t id, const monitors::SeriesState& state);
-  bool UpdateCheckpoint(std::int64_t id, const monitors::SeriesState& checkpoint);
-  bool LoadCheckpoint(std::int64_t id, monitors::SeriesState& checkpoint);
+  // Creates a series; its id.
+  Result<std::int64_t> InsertSeries(const std::string& key, const std::string& policy,
+                                    const std::string& labels, const monitors::SeriesState& state);
+  Status UpdateState(std::int64_t id, const monitors::SeriesState& state);
+  Status UpdateCheckpoint(std::int64_t id, const monitors::SeriesState& checkpoint);
+  Status LoadCheckpoint(std::int64_t id, monitors::SeriesState& checkpoint);
 
   // Inserts or replaces the actual of a period.
-  bool PutActual(std::int64_t id, std::int64_t period, double value);
-  // The oldest retained actual's period (`any` false when there is none).
-  bool OldestActual(std::int64_t id, bool& any, std::int64_t& period);
+  Status PutActual(std::int64_t id, std::int64_t period, double value);
+  // The oldest retained actual's period (nullopt when there is none).
+  Result<std::optional<std::int64_t>> OldestActual(std::int64_t id);
   // The stored actual of a period, if any.
-  bool GetActual(std::int64_t id, std::int64_t period, bool& found, double& value);
+  Result<std::optional<double>> GetActual(std::int64_t id, std::int64_t period);
   // Retained actuals in period order, from `from` to `to` inclusive.
-  bool Actuals(std::int64_t id, std::int64_t from, std::int64_t to, std::vector<StoredActual>& out);
+  Status Actuals(std::int64_t id, std::int64_t from, std::int64_t to,
+                 std::vector<StoredActual>& out);
   // Deletes actuals (and adjustments) with period < `before`.
-  bool DropBefore(std::int64_t id, std::int64_t before);
+  Status DropBefore(std::int64_t id, std::int64_t before);
 
-  bool PutAdjustment(std::int64_t id, const Adjustment& a);
-  bool Adjustments(std::int64_t id, std::vector<Adjustment>& out);
+  Status PutAdjustment(std::int64_t id, const Adjustment& a);
+  Status Adjustments(std::int64_t id, std::vector<Adjustment>& out);
 
-  bool Audit(std::int64_t at_unix_ms, const std::string& who, const std::string& action,
-             const std::string& series_key, const std::string& detail);
+  Status Audit(std::int64_t at_unix_ms, const std::string& who, const std::string& action,
+               const std::string& series_key, const std::string& detail);
 
   int schema_version() const { return schema_version_; }
   Db& db() { return db_; }  // the alert book shares the connection (and its transactions)
 
  private:
   bool Migrate();
+  // A store failure naming `what`, with SQLite's last reason.
+  Status Failed(const std::string& what) const;
+  Status Check(bool ok, const char* what) const { return ok ? Status::Ok() : Failed(what); }
   Db db_;
   int schema_version_ = 0;
   Stmt begin_, commit_, rollback_, savepoint_, release_, rollback_to_;

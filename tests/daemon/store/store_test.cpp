@@ -21,8 +21,10 @@ TEST_CASE("the store keeps series, actuals and adjustments across a reopen", "[i
     REQUIRE(store.Open(dir.File("data"), true));
     CHECK(store.schema_version() == 3);
     REQUIRE(store.Begin());
-    REQUIRE(
-        store.InsertSeries("north/store-1/sku-1", "weekly", "{\"channel\":\"store\"}", state, id));
+    forewarden::Result<std::int64_t> created =
+        store.InsertSeries("north/store-1/sku-1", "weekly", "{\"channel\":\"store\"}", state);
+    REQUIRE(created);
+    id = *created;
     for (int p = 10; p < 15; ++p) REQUIRE(store.PutActual(id, p, p * 1.5));
     REQUIRE(store.PutActual(id, 12, 99.0));  // replaces
     REQUIRE(store.PutAdjustment(id, {13, 42.0}));
@@ -43,12 +45,12 @@ TEST_CASE("the store keeps series, actuals and adjustments across a reopen", "[i
   REQUIRE(store.Actuals(id, 11, 13, actuals));
   REQUIRE(actuals.size() == 3);
   CHECK(actuals[1].value == 99.0);
-  bool found = false;
-  double v = 0;
-  REQUIRE(store.GetActual(id, 14, found, v));
-  CHECK((found && v == 21.0));
-  REQUIRE(store.GetActual(id, 20, found, v));
-  CHECK_FALSE(found);
+  forewarden::Result<std::optional<double>> v = store.GetActual(id, 14);
+  REQUIRE(v);
+  CHECK(*v == std::optional<double>(21.0));
+  v = store.GetActual(id, 20);
+  REQUIRE(v);
+  CHECK_FALSE(v->has_value());
   std::vector<forewarden::Adjustment> adj;
   REQUIRE(store.Adjustments(id, adj));
   REQUIRE(adj.size() == 1);
@@ -66,12 +68,12 @@ TEST_CASE("a rolled-back savepoint leaves nothing behind", "[integration]") {
   TempDir dir;
   Store store;
   REQUIRE(store.Open(dir.File("d"), true));
-  std::int64_t a = 0, b = 0;
   REQUIRE(store.Begin());
-  REQUIRE(store.InsertSeries("a", "p", "{}", monitors::SeriesState{}, a));
+  forewarden::Result<std::int64_t> a = store.InsertSeries("a", "p", "{}", monitors::SeriesState{});
+  REQUIRE(a);
   REQUIRE(store.Savepoint());
-  REQUIRE(store.InsertSeries("b", "p", "{}", monitors::SeriesState{}, b));
-  REQUIRE(store.PutActual(a, 1, 1.0));
+  REQUIRE(store.InsertSeries("b", "p", "{}", monitors::SeriesState{}));
+  REQUIRE(store.PutActual(*a, 1, 1.0));
   REQUIRE(store.RollbackToSavepoint());
   REQUIRE(store.Commit());
   int n = 0;
@@ -83,10 +85,12 @@ TEST_CASE("a rolled-back savepoint leaves nothing behind", "[integration]") {
   CHECK(n == 1);
   // a key is unique
   REQUIRE(store.Begin());
-  std::int64_t c = 0;
-  CHECK_FALSE(store.InsertSeries("a", "p", "{}", monitors::SeriesState{}, c));
-  CHECK_THAT(store.error(), Catch::Contains("UNIQUE"));
-  REQUIRE(store.Rollback());
+  forewarden::Result<std::int64_t> again =
+      store.InsertSeries("a", "p", "{}", monitors::SeriesState{});
+  REQUIRE_FALSE(again);
+  CHECK(again.status().kind() == forewarden::ErrorKind::kStoreFailed);
+  CHECK_THAT(again.status().message(), Catch::Contains("UNIQUE"));
+  store.Rollback();
 }
 
 TEST_CASE("a version 1 database is migrated and keeps its series and checkpoints",
