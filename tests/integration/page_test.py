@@ -379,6 +379,39 @@ def test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so():
         srv.stop()
 
 
+def test_when_reads_need_a_token_the_page_asks_first_then_shows_the_list():
+    d = temp_dir()
+    people = os.path.join(d, "people")
+    token = "rita-reads-0123456789abcdef"
+    with open(people, "w") as f:
+        f.write("rita read %s\n" % hashlib.sha256(token.encode()).hexdigest())
+        f.write("olga operator %s\n" % hashlib.sha256(b"olga-token-0123456789abcdef").hexdigest())
+    os.chmod(people, 0o600)
+    srv = Server(SETTINGS.replace("alerts:", "server: {people_file: '%s', token_for_reads: true}\nalerts:" % people),
+                 workdir=d)
+    b = Browser()
+    try:
+        load(srv, feed(d), token="olga-token-0123456789abcdef")
+        b.d.get(srv.url + "/")
+        b.wait(lambda dr: b.one("#token-panel").is_displayed(), "the token prompt")
+        assert b.one("#access-state").text == "Token needed to read"
+        b.wait(lambda dr: b.css("#main .answer.failed"), "the refusal of the list")
+        assert "needs a token" in b.one("#main .answer.failed").text
+        b.one("#token-input").send_keys(token)
+        b.one("#token-form button[type=submit]").click()
+        b.wait_ready("attention")
+        assert b.one("#access-state").text == "Signed in as rita (read)"
+        _, api, _ = srv.request("GET", "/v1/attention?limit=50", token=token)
+        assert [tr.get_attribute("data-key") for tr in b.css("#attention tbody tr")] == [r["key"] for r in api["rows"]]
+        # a reader sees the actions refused before sending
+        b.one("#attention tbody a.key").click()
+        b.wait_ready("series")
+        assert "role read" in b.one("#main .panel .answer.failed").text
+    finally:
+        b.close(expect_errors=("401 (Unauthorized)",))
+        srv.stop()
+
+
 def test_each_view_at_1280_and_360_wide_with_screenshots_and_timing():
     d, srv = service()
     try:
@@ -435,4 +468,5 @@ if __name__ == "__main__":
                   test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api,
                   test_a_hostile_key_shows_as_text_and_no_script_runs,
                   test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so,
+                  test_when_reads_need_a_token_the_page_asks_first_then_shows_the_list,
                   test_each_view_at_1280_and_360_wide_with_screenshots_and_timing]))
