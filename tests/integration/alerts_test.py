@@ -507,6 +507,70 @@ policies:
         srv.stop()
 
 
+def test_attention_list_groups_orders_filters_and_counts():
+    srv = Server(settings())
+    try:
+        text = "series,period,value,region\n"
+        ups = ["north/up-%d" % i for i in range(3)] + ["south/up-%d" % i for i in range(3)]
+        for k in ups:
+            text += "".join(line.rstrip("\n") + ",%s\n" % k.split("/")[0] for line in csv_rows(k, UP).splitlines(True))
+        for k in ("north/calm-0", "south/calm-1", "south/calm-2"):
+            text += "".join(line.rstrip("\n") + ",%s\n" % k.split("/")[0] for line in csv_rows(k, BASE).splitlines(True))
+        status, answer, _ = srv.request("POST", "/v1/actuals", text, "text/csv")
+        assert status == 200 and answer["alerts_opened"] >= len(ups), answer
+
+        def attention(query=""):
+            status, page, _ = srv.request("GET", "/v1/attention?limit=500" + query)
+            assert status == 200, page
+            return page
+
+        def alert_of(key):
+            return attention("&state=unresolved&q=" + key)["rows"][0]["alerts"][0]["id"]
+        acked, snoozed = alert_of("north/up-1"), alert_of("south/up-2")
+        assert srv.request("POST", "/v1/alerts/%d/acknowledge" % acked, '{"by": "dana"}', "application/json")[0] == 200
+        assert srv.request("POST", "/v1/alerts/%d/snooze" % snoozed, '{"by": "dana", "until": "2027-W01"}',
+                           "application/json")[0] == 200
+        page = attention()
+        keys = [r["key"] for r in page["rows"]]
+        groups = [r["group"] for r in page["rows"]]
+        order = {"open": 0, "acknowledged": 1, "near": 2}
+        assert groups == sorted(groups, key=order.get), groups
+        assert "north/up-1" in keys and groups[keys.index("north/up-1")] == "acknowledged"
+        assert "south/up-2" not in keys  # snoozed: out of the default view
+        assert not any(k.startswith(("north/calm", "south/calm")) for k in keys), keys
+        # inside a group: most severe first, then closest to (or furthest beyond) a limit
+        for a, b in zip(page["rows"], page["rows"][1:]):
+            if a["group"] == b["group"]:
+                worst = lambda r: max(["info", "warning", "critical"].index(x["severity"]) for x in r["alerts"])  # noqa: E731
+                assert (worst(a), a["closeness"]) >= (worst(b), b["closeness"]), (a["key"], b["key"])
+        assert [r["key"] for r in attention("&state=snoozed")["rows"]] == ["south/up-2"]
+        assert [r["key"] for r in attention("&state=acknowledged")["rows"]] == ["north/up-1"]
+        # counts per policy agree with the alert list and cover every series
+        c = page["counts"][0]
+        for state in ("open", "acknowledged", "snoozed"):
+            listed = srv.request("GET", "/v1/alerts?limit=1000&state=" + state)[1]["alerts"]
+            assert c[state] == len(listed), (state, c, len(listed))
+        assert c["series"] == 9 and c["alerting"] + c["stale"] + c["warming"] + c["in_control"] == 9, c
+        # filters: part of the key in any case, a label, policy, rule, severity; paging
+        assert {r["key"] for r in attention("&state=unresolved&q=NORTH/UP")["rows"]} == {k for k in ups if k.startswith("north")}
+        assert {r["key"] for r in attention("&state=unresolved&label=region:south")["rows"]} == \
+            {k for k in ups if k.startswith("south")}
+        assert attention("&policy=nope")["rows"] == [] and attention("&policy=stores")["total"] == page["total"]
+        assert attention("&rule=shift")["total"] == page["total"] and attention("&rule=other")["rows"] == []
+        for sev in ("critical", "warning", "info"):
+            for r in attention("&severity=" + sev)["rows"]:
+                assert sev in [a["severity"] for a in r["alerts"]], (sev, r)
+        paged = srv.request("GET", "/v1/attention?limit=2&offset=1")[1]
+        assert [r["key"] for r in paged["rows"]] == keys[1:3] and paged["total"] == page["total"]
+        # each row: the last 26 periods at most, ending with the last actual and its forecast
+        for r in page["rows"]:
+            assert len(r["recent_actual"]) == min(26, len(UP)) == len(r["recent_forecast"])
+            assert r["last_actual"] == r["recent_actual"][-1] == UP[-1]
+            assert r["last_forecast"] == r["recent_forecast"][-1]
+    finally:
+        srv.stop()
+
+
 def test_alertmanager_shows_alerts_open_then_resolved():
     rx = Receiver()  # Alertmanager's own webhook receiver: what it notifies
     am_port = free_port()
@@ -587,4 +651,5 @@ if __name__ == "__main__":
                   test_signed_webhooks_verify_with_the_receiver_script_and_keys_rotate,
                   test_kill9_with_undelivered_events_delivers_after_restart, test_dead_letters_and_retry,
                   test_storm_is_grouped, test_policies_show_derived_limits,
+                  test_attention_list_groups_orders_filters_and_counts,
                   test_alertmanager_shows_alerts_open_then_resolved]))
