@@ -29,8 +29,16 @@ def temp_dir():
     return path
 
 
+_SERVERS = []
+
+
 @atexit.register
 def _remove_temp_dirs():
+    # A test that failed before its stop leaves no server behind (stopped by PID).
+    for server in _SERVERS:
+        if server.proc and server.proc.poll() is None:
+            server.proc.kill()
+            server.proc.wait()
     for path in _TEMP_DIRS:
         shutil.rmtree(path, ignore_errors=True)
 
@@ -57,6 +65,7 @@ class Server:
         self.extra_args = list(extra_args)
         self.proc = None
         self.stderr_lines = []
+        _SERVERS.append(self)
         self.start()
 
     def start(self):

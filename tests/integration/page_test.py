@@ -191,8 +191,10 @@ def test_attention_list_matches_the_api_and_the_keyboard_opens_a_series():
         assert b.one("#series-key").text == current
         assert b.d.current_url.endswith("#/series/" + series_path(current))
     finally:
-        b.close()
-        srv.stop()
+        try:
+            b.close()
+        finally:
+            srv.stop()
 
 
 def test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api():
@@ -281,8 +283,10 @@ def test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api(
         assert "Dana" in b.one("#audit").text
         assert detail["forecast"] != after["forecast"]
     finally:
-        b.close(expect_errors=("400 (Bad Request)",))
-        srv.stop()
+        try:
+            b.close(expect_errors=("400 (Bad Request)",))
+        finally:
+            srv.stop()
 
 
 def test_a_hostile_key_shows_as_text_and_no_script_runs():
@@ -318,8 +322,10 @@ def test_a_hostile_key_shows_as_text_and_no_script_runs():
              "document.body.appendChild(s);")
         assert b.js("return window.__inline === undefined"), "an inline script ran under the policy"
     finally:
-        b.close(expect_errors=("Content Security Policy",))
-        srv.stop()
+        try:
+            b.close(expect_errors=("Content Security Policy",))
+        finally:
+            srv.stop()
 
 
 def test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so():
@@ -375,8 +381,10 @@ def test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so():
         b.one("#token-forget").click()
         b.wait(lambda dr: b.one("#access-state").text == "Read-only", "signed out")
     finally:
-        b.close(expect_errors=("401 (Unauthorized)",))
-        srv.stop()
+        try:
+            b.close(expect_errors=("401 (Unauthorized)",))
+        finally:
+            srv.stop()
 
 
 def test_when_reads_need_a_token_the_page_asks_first_then_shows_the_list():
@@ -408,8 +416,10 @@ def test_when_reads_need_a_token_the_page_asks_first_then_shows_the_list():
         b.wait_ready("series")
         assert "role read" in b.one("#main .panel .answer.failed").text
     finally:
-        b.close(expect_errors=("401 (Unauthorized)",))
-        srv.stop()
+        try:
+            b.close(expect_errors=("401 (Unauthorized)",))
+        finally:
+            srv.stop()
 
 
 def test_each_view_at_1280_and_360_wide_with_screenshots_and_timing():
