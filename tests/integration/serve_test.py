@@ -447,6 +447,58 @@ BAD_REQUESTS = [
 ]
 
 
+def test_lists_over_the_read_view_while_ingesting_agree_with_each_series():
+    """Lists, the attention list, the policies and /metrics read a view of every series on the
+    API's reader thread while batches keep arriving (under ThreadSanitizer in deploy/tsan.sh, a
+    race stops the process); once ingest stops, every list agrees with each series' own detail."""
+    import threading
+    s = Server(SETTINGS)
+    keys = ["w/%03d" % i for i in range(300)] + ["s/%03d" % i for i in range(50)]
+    errors = []
+    done = threading.Event()
+
+    def reader():
+        paths = ["/v1/series?sort=trigg&limit=20", "/v1/series?sort=key&limit=50&offset=100",
+                 "/v1/series?status=warming", "/v1/attention?limit=20", "/v1/attention?state=near&near=0.1",
+                 "/v1/policies", "/metrics"]
+        n = 0
+        while not done.is_set():
+            status, body, _ = s.request("GET", paths[n % len(paths)])
+            if status not in (200, 503):
+                errors.append((paths[n % len(paths)], status, body))
+            n += 1
+
+    try:
+        threads = [threading.Thread(target=reader) for _ in range(2)]
+        for t in threads:
+            t.start()
+        for t in range(30):
+            status, body, _ = s.post_csv(feed(keys, 1, start=t, value=lambda k, w: 10 + (k * 7 + w * 3) % 11 + (20 if k % 9 == 0 and w > 15 else 0)))
+            assert status == 200, body
+        done.set()
+        for t in threads:
+            t.join()
+        assert not errors, errors[:3]
+        status, listed, _ = s.request("GET", "/v1/series?sort=key&limit=10000")
+        assert [x["key"] for x in listed["series"]] == sorted(keys)
+        by_trigg = s.request("GET", "/v1/series?sort=trigg&limit=10000")[1]["series"]
+        size = [abs(x["trigg_signal"]) if x["trigg_signal"] is not None else -1 for x in by_trigg]
+        assert size == sorted(size, reverse=True)
+        for x in listed["series"][::25]:
+            detail = s.request("GET", "/v1/series/" + x["key"])[1]
+            assert (detail["status"], detail["trigg_signal"], detail["cusum_signal"]) == \
+                (x["status"], x["trigg_signal"], x["cusum_signal"]), (x, detail)
+        counts = s.request("GET", "/v1/attention?limit=1")[1]["counts"]
+        policies = {p["name"]: p["series"] for p in s.request("GET", "/v1/policies")[1]["policies"]}
+        assert {c["policy"]: c["series"] for c in counts} == policies == {"weekly": 300, "skipping": 50}
+        alerting = s.request("GET", "/v1/series?status=alerting&limit=10000")[1]["total"]
+        assert sum(c["alerting"] for c in counts) == alerting
+        metrics = s.request("GET", "/metrics")[1]
+        assert 'forewarden_series{policy="weekly",state="alerting"} %d' % alerting in metrics, alerting
+    finally:
+        s.stop()
+
+
 def test_bad_requests_are_refused_with_line_and_field_and_change_nothing():
     s = Server(SETTINGS)
     try:
@@ -652,6 +704,7 @@ if __name__ == "__main__":
         test_sighup_bad_config_keeps_old_then_good_applies,
         test_auth_and_listen_safety,
         test_bad_requests_are_refused_with_line_and_field_and_change_nothing,
+        test_lists_over_the_read_view_while_ingesting_agree_with_each_series,
         test_push_sends_batches_and_names_file_lines,
         test_full_store_is_sticky_and_loses_nothing_acknowledged,
         test_invalid_utf8_in_the_path_is_answered,
