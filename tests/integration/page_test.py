@@ -20,7 +20,7 @@ from harness import BINARY, DEADLINE, Server, run, temp_dir  # noqa: E402
 from selenium import webdriver  # noqa: E402
 from selenium.webdriver.chrome.options import Options  # noqa: E402
 from selenium.webdriver.chrome.service import Service  # noqa: E402
-from selenium.common.exceptions import StaleElementReferenceException  # noqa: E402
+from selenium.common.exceptions import NoSuchElementException, StaleElementReferenceException  # noqa: E402
 from selenium.webdriver.common.action_chains import ActionChains  # noqa: E402
 from selenium.webdriver.common.by import By  # noqa: E402
 from selenium.webdriver.common.keys import Keys  # noqa: E402
@@ -91,12 +91,17 @@ class Browser:
         return self.wait_ready(ready)
 
     def wait_ready(self, ready):
-        WebDriverWait(self.d, DEADLINE, poll_frequency=0.05).until(
+        WebDriverWait(self.d, DEADLINE, poll_frequency=0.05,
+                      ignored_exceptions=(StaleElementReferenceException,)).until(
             lambda d: d.find_element(By.ID, "main").get_attribute("data-ready") == ready)
 
     def wait(self, condition, what, seen=None):
         try:
-            return WebDriverWait(self.d, DEADLINE, poll_frequency=0.05).until(lambda d: condition(d))
+            # an element found while the view redraws may go stale before it is read: try again
+            return WebDriverWait(self.d, DEADLINE, poll_frequency=0.05,
+                                 ignored_exceptions=(StaleElementReferenceException,
+                                                     NoSuchElementException)).until(
+                lambda d: condition(d))
         except Exception:
             raise AssertionError("waited for: " + what + ("; seen: " + seen() if seen else ""))
 
