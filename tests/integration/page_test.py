@@ -130,6 +130,35 @@ class Browser:
             self.d.quit()
 
 
+# Every visible text element's colour against the first opaque background behind it, by the
+# WCAG 2.1 relative-luminance formula; returns those under 4.5:1.
+CONTRAST_SCRIPT = """
+const lum = (c) => {
+  const [r, g, b] = c.map((v) => { v /= 255; return v <= 0.03928 ? v / 12.92 : Math.pow((v + 0.055) / 1.055, 2.4); });
+  return 0.2126 * r + 0.7152 * g + 0.0722 * b;
+};
+const rgba = (text) => (text.match(/[\\d.]+/g) || []).map(Number);
+const background = (e) => {
+  for (; e; e = e.parentElement) {
+    const c = rgba(getComputedStyle(e).backgroundColor);
+    if (c.length >= 3 && (c.length < 4 || c[3] > 0.9)) return c.slice(0, 3);
+  }
+  return [255, 255, 255];
+};
+const low = [];
+for (const e of document.querySelectorAll('body *')) {
+  if (!e.offsetParent || ![...e.childNodes].some((n) => n.nodeType === 3 && n.textContent.trim())) continue;
+  if (e.closest('canvas, .dygraph-axis-label')) continue;
+  const fg = rgba(getComputedStyle(e).color).slice(0, 3);
+  const bg = background(e);
+  const [a, b] = [lum(fg), lum(bg)].sort((x, y) => y - x);
+  const ratio = (a + 0.05) / (b + 0.05);
+  if (ratio < 4.5) low.push(e.tagName + '.' + e.className + ' ' + ratio.toFixed(2) + ' ' + e.textContent.trim().slice(0, 30));
+}
+return low;
+"""
+
+
 def gone(element):
     """Whether a found element has left the page (its view was drawn again)."""
     try:
@@ -456,6 +485,9 @@ def test_each_view_at_1280_and_360_wide_with_screenshots_and_timing():
                 assert unlabelled == [], (view, unlabelled)
                 buttons = b.js("return [...document.querySelectorAll('button')].filter((e) => !e.textContent.trim()).length")
                 assert buttons == 0, view
+                # text against its background: at least 4.5:1 (WCAG 2.1, success criterion 1.4.3)
+                low = b.js(CONTRAST_SCRIPT)
+                assert low == [], (view, low[:5])
         finally:
             b.close()
         narrow = Browser(360, 740)
