@@ -16,6 +16,7 @@
 #include "daemon/common/parse_number.h"
 #include "daemon/store/alert_reads.h"
 #include "daemon/web/assets.h"
+#include "monitors/ahead.h"
 #include "monitors/interval.h"
 
 namespace forewarden {
@@ -238,6 +239,50 @@ json AdaptiveJson(const monitors::PolicySpec& spec) {
                                : json(nullptr);
 }
 
+// The next `horizon` forecasts with their intervals at the policy's coverage (monitors/ahead.h).
+json ForecastJson(const SeriesView& v, int horizon) {
+  const monitors::SeriesState& s = *v.state;
+  const config::Policy& p = *v.spec;
+  const monitors::PolicySpec& spec = p.spec;
+  json out{{"key", v.key},
+           {"policy", v.policy},
+           {"method", monitors::MethodName(spec.method)},
+           {"coverage", spec.coverage}};
+  const char* why = nullptr;
+  if (spec.method == monitors::Method::kSeasonalMul)
+    why = "seasonal-mul has no analytic forecast variance (a multiplicative model)";
+  else if (monitors::IsIntermittent(spec.method))
+    why = "croston and sba forecast a demand rate, which carries no interval";
+  else if (!(s.stats.mad > 0))
+    why = "no error spread yet (MAD is 0)";
+  out["interval"] = why ? json(nullptr) : json("analytic");
+  out["no_interval_because"] = why ? json(why) : json(nullptr);
+  json rows = json::array();
+  if (s.started) {
+    const monitors::Constants k = monitors::EffectiveConstants(spec, s);
+    const std::vector<double> f =
+        monitors::ForecastAhead(spec.method, k, s.model, s.next_index, horizon);
+    const double one = monitors::IntervalHalfWidth(spec.coverage, s.stats.mad);
+    for (std::size_t i = 0; i < f.size(); ++i) {
+      const int h = static_cast<int>(i) + 1;
+      json row{{"h", h},
+               {"period", monitors::FormatPeriod(p.period, s.last_period + h)},
+               {"forecast", f[i]}};
+      const std::optional<double> rel = monitors::RelativeVariance(spec.method, k, h);
+      if (!why && rel) {
+        row["lower"] = f[i] - one * std::sqrt(*rel);
+        row["upper"] = f[i] + one * std::sqrt(*rel);
+      } else {
+        row["lower"] = nullptr;
+        row["upper"] = nullptr;
+      }
+      rows.push_back(std::move(row));
+    }
+  }
+  out["rows"] = std::move(rows);
+  return out;
+}
+
 json SeriesDetail(const SeriesView& v) {
   json out = SeriesSummary(v);
   const monitors::SeriesState& s = *v.state;
@@ -331,6 +376,7 @@ const std::vector<Api::Route>& Api::Routes() {
       {"GET", "/v1/attention", Need::kRead, &Api::Attention},
       {"GET", "/v1/series", Need::kRead, &Api::SeriesList},
       {"GET", "/v1/series/{key}/history", Need::kRead, &Api::SeriesHistory},
+      {"GET", "/v1/series/{key}/forecast", Need::kRead, &Api::SeriesForecast},
       {"POST", "/v1/series/{key}/reset", Need::kPlanner, &Api::SeriesReset},
       {"GET", "/v1/series/{key}", Need::kRead, &Api::SeriesDetailOf},
       {"GET", "/v1/alerts", Need::kRead, &Api::AlertList},
@@ -753,6 +799,16 @@ void Api::SeriesHistory(const std::shared_ptr<Call>& c) {
       out.push_back(std::move(row));
     }
     c->Answer(Json(200, {{"key", key}, {"policy", policy.name}, {"rows", out}}));
+  });
+}
+
+void Api::SeriesForecast(const std::shared_ptr<Call>& c) {
+  Result<std::int64_t> horizon = ParseWholeNumber(c->ParamOr("horizon", "13"), 1, kMaxHorizon);
+  if (!horizon) return c->Fail(Status(horizon.status()).Prefix("horizon: "));
+  OnEngine(c, [this, c, h = static_cast<int>(*horizon)] {
+    auto v = engine_.FindSeries(c->key);
+    if (!v) return c->Fail(Status::NotFound("no series '" + c->key + "'"));
+    c->Answer(Json(200, ForecastJson(*v, h)));
   });
 }
 

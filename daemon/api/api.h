@@ -75,6 +75,7 @@ class Api {
   void SeriesList(const std::shared_ptr<Call>& c);
   void SeriesDetailOf(const std::shared_ptr<Call>& c);
   void SeriesHistory(const std::shared_ptr<Call>& c);
+  void SeriesForecast(const std::shared_ptr<Call>& c);
   void SeriesReset(const std::shared_ptr<Call>& c);
   void AlertList(const std::shared_ptr<Call>& c);
   void AlertDetail(const std::shared_ptr<Call>& c);
@@ -95,6 +96,9 @@ class Api {
   ApiCounters counters_;
   ReadWorker reader_{64};  // last: destroyed first, while what its jobs use still exists
 };
+
+// The longest horizon GET /v1/series/{key}/forecast serves.
+inline constexpr std::int64_t kMaxHorizon = 104;
 
 // Percent-decoding of a URL path or query component ('+' is a space in queries only).
 std::string UrlDecode(std::string_view text, bool query);

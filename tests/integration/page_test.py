@@ -240,11 +240,14 @@ def test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api(
         key = api["rows"][0]["key"]
         _, history, _ = srv.request("GET", "/v1/series/%s/history" % series_path(key))
         rows = len(history["rows"])
+        _, detail_before, _ = srv.request("GET", "/v1/series/%s" % series_path(key))
         b.open(srv.url + "/#/series/" + series_path(key), "series")
         assert b.one("#series-key").text == key
         # both charts with the right number of points, read from the chart library
         assert b.one("#chart-main").get_attribute("data-points") == str(rows)
-        assert b.js("return window.forewardenCharts.main.numRows()") == rows + 1  # + the next forecast
+        _, ahead, _ = srv.request("GET", "/v1/series/%s/forecast?horizon=13" % series_path(key))
+        assert len(ahead["rows"]) == 13 and ahead["rows"][0]["forecast"] == detail_before["forecast"]
+        assert b.js("return window.forewardenCharts.main.numRows()") == rows + 13  # + 13 ahead
         assert b.js("return window.forewardenCharts.signals.numRows()") == rows
         assert b.js("return window.forewardenCharts.main.getLabels()") == ["period", "actual", "forecast"]
         assert len(b.css("#rows tbody tr")) == rows

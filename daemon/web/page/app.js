@@ -255,6 +255,7 @@
   ];
   const FILTERS = ['state', 'policy', 'label', 'rule', 'severity', 'q'];
   const PAGE = 50;
+  const AHEAD = 13;  // periods forecast ahead on the series view
 
   function attentionHref(params) {
     const q = new URLSearchParams();
@@ -543,7 +544,7 @@
       ((r.alerts || []).length ? ', holding: ' + r.alerts.join(', ') : '');
   }
 
-  function charts(box, detail, rows, alerts, policy) {
+  function charts(box, detail, rows, alerts, policy, ahead) {
     const readoutBox = el('p', { class: 'readout', id: 'readout', 'aria-live': 'polite' });
     readout(readoutBox, rows, -1);
     const mainDiv = el('div', { class: 'chart', id: 'chart-main', role: 'img', 'aria-label': 'Actuals, forecasts and prediction interval of ' + rows.length + ' periods' });
@@ -552,7 +553,7 @@
     box.append(
       el('div', { class: 'chart-box' }, el('p', { class: 'chart-title' }, 'Actuals and forecasts'),
         el('div', { class: 'key-legend' }, el('span', {}, el('span', { class: 'swatch sw-actual' }), 'actual'),
-          el('span', {}, el('span', { class: 'swatch sw-forecast' }), 'forecast made before the actual'),
+          el('span', {}, el('span', { class: 'swatch sw-forecast' }), 'forecast made before the actual, then ' + AHEAD + ' periods ahead'),
           el('span', {}, el('span', { class: 'swatch sw-band' }), Math.round(100 * detail.coverage) + ' % prediction interval'),
           el('span', {}, el('span', { class: 'swatch sw-episode' }), 'alert episode (rule #id)')),
         mainDiv),
@@ -569,9 +570,10 @@
     const mainData = rows.map((r) => [periodDate(r.period), r.filled ? null : triple(r.actual),
       r.forecast === null || r.forecast === undefined ? null
         : [r.lower === null ? r.forecast : r.lower, r.forecast, r.upper === null ? r.forecast : r.upper]]);
-    if (detail.next_period && detail.forecast !== null) {
-      mainData.push([periodDate(detail.next_period), null,
-        [detail.lower === null ? detail.forecast : detail.lower, detail.forecast, detail.upper === null ? detail.forecast : detail.upper]]);
+    // the forecasts ahead with their intervals (GET /v1/series/{key}/forecast)
+    for (const a of ahead) {
+      mainData.push([periodDate(a.period), null,
+        [a.lower === null ? a.forecast : a.lower, a.forecast, a.upper === null ? a.forecast : a.upper]]);
     }
     const spans = episodes(alerts, detail.last_period || rows[rows.length - 1].period);
     const lines = [];
@@ -832,11 +834,12 @@
     const main = v.main;
     const enc = encodeURIComponent(key);
     main.append(el('p', {}, el('a', { href: '#/', id: 'back' }, '\u2190 Attention list')));
-    let detail, history, alerts, policies;
+    let detail, history, alerts, policies, ahead;
     try {
-      [detail, history, alerts, policies] = await Promise.all([
+      [detail, history, alerts, policies, ahead] = await Promise.all([
         api('v1/series/' + enc), api('v1/series/' + enc + '/history'),
-        api('v1/alerts?' + new URLSearchParams({ series: key, limit: '50' }).toString()), loadPolicies()]);
+        api('v1/alerts?' + new URLSearchParams({ series: key, limit: '50' }).toString()), loadPolicies(),
+        api('v1/series/' + enc + '/forecast?horizon=' + AHEAD)]);
     } catch (err) {
       if (!stillCurrent(v)) return;
       main.append(el('h1', {}, key), el('p', { class: 'answer failed', role: 'alert' }, describeError(err)));
@@ -869,8 +872,10 @@
       fact('Cumulative signal', fmt(detail.cusum_signal), 'fact-cusum'),
       fact('MAD', fmt(detail.mad)),
       fact('Alpha in force', fmt(detail.alpha, 3)),
-      fact('Rules holding', detail.alerts.length ? detail.alerts.map((a) => a.rule).join(', ') : 'none')));
-    charts(main, detail, rows, alerts.alerts, policy);
+      fact('Rules holding', detail.alerts.length ? detail.alerts.map((a) => a.rule).join(', ') : 'none'),
+      fact(AHEAD + ' periods ahead', ahead.rows.length ? fmt(ahead.rows[ahead.rows.length - 1].forecast) +
+        (ahead.no_interval_because ? ' (no interval: ' + ahead.no_interval_because + ')' : '') : '\u2014', 'fact-ahead')));
+    charts(main, detail, rows, alerts.alerts, policy, ahead.rows);
     const reload = () => { state.policies = null; showSeries(key); };
     const unresolved = alerts.alerts.filter((a) => a.state !== 'resolved');
     const work = el('section', { class: 'panel', 'aria-labelledby': 'work-title' }, el('h2', { id: 'work-title' }, 'Work the alerts'), readOnlyNote());
