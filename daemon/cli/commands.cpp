@@ -22,7 +22,7 @@ namespace {
 constexpr const char* kUsage = R"(usage: forewarden COMMAND [OPTIONS]
 
 commands:
-  replay --config FILE --input FILE.csv [--output FILE.csv] [--alerts FILE.csv]
+  replay --config FILE --input FILE.csv [--output FILE.csv] [--alerts FILE.csv] [--horizon H]
         Run an actuals CSV (header series,period,value) through the monitoring engine and
         write one row per actual with forecast, error, signals, interval and alerts.
         "-" reads standard input / writes standard output (the default output).
@@ -170,11 +170,21 @@ int CheckConfig(const std::vector<std::string>& args, std::ostream& out, std::os
 
 int Replay(const std::vector<std::string>& args, std::ostream& err) {
   std::map<std::string, std::string> flags;
-  if (!ParseFlags(args, 1, {"config", "input", "output", "alerts"}, flags, err)) return 2;
+  if (!ParseFlags(args, 1, {"config", "input", "output", "alerts", "horizon"}, flags, err))
+    return 2;
   if (!flags.count("config") || !flags.count("input")) {
     err << "usage: forewarden replay --config FILE --input FILE.csv [--output FILE.csv] "
-           "[--alerts FILE.csv]\n";
+           "[--alerts FILE.csv] [--horizon H]\n";
     return 2;
+  }
+  int horizon = 0;
+  if (flags.count("horizon")) {
+    Result<std::int64_t> h = ParseWholeNumber(flags["horizon"], 1, 104);
+    if (!h) {
+      err << "forewarden replay: --horizon: " << h.status().message() << '\n';
+      return 2;
+    }
+    horizon = static_cast<int>(*h);
   }
   config::Settings settings;
   if (!LoadOrReport(flags["config"], settings, err)) return 2;
@@ -182,6 +192,7 @@ int Replay(const std::vector<std::string>& args, std::ostream& err) {
   options.input = flags["input"];
   options.output = flags.count("output") ? flags["output"] : "-";
   if (flags.count("alerts")) options.alerts = flags["alerts"];
+  options.horizon = horizon;
   const Result<ReplaySummary> summary = RunReplay(settings, options);
   if (!summary) {
     err << "forewarden replay: " << (options.input == "-" ? "<stdin>" : options.input) << ": "

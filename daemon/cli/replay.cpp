@@ -19,6 +19,7 @@
 #include "daemon/common/key_arena.h"
 #include "daemon/common/key_text.h"
 #include "daemon/common/parse_number.h"
+#include "monitors/ahead.h"
 #include "monitors/series.h"
 
 namespace forewarden {
@@ -103,6 +104,7 @@ struct Row {
   const config::Policy* policy;
   double actual;
   monitors::StepResult result;
+  std::vector<double> ahead;  // --horizon: forecasts for the next periods (empty: none yet)
 };
 
 // Formats rows on two threads and writes them in order, so that number formatting (the
@@ -112,11 +114,13 @@ struct Row {
 // blocks, so memory stays flat whatever the input size.
 class RowWriter {
  public:
-  explicit RowWriter(std::FILE* file) : file_(file) {
+  RowWriter(std::FILE* file, int horizon) : file_(file), horizon_(horizon) {
     current_.reserve(kBlockRows);
-    const std::string header =
+    std::string header =
         "series,period,actual,forecast,error,alpha,smoothed_error,mad,cusum,trigg_signal,"
-        "cusum_signal,lower,upper,alerts\n";
+        "cusum_signal,lower,upper,alerts";
+    for (int h = 1; h <= horizon; ++h) header += ",ahead_" + std::to_string(h);
+    header += '\n';
     if (std::fwrite(header.data(), 1, header.size(), file_) != header.size()) failed_ = true;
     for (auto& f : formatters_) f.thread = std::thread([this, &f] { Work(f); });
   }
@@ -199,7 +203,7 @@ class RowWriter {
       }
       f.room.notify_one();
       if (abandoned_) continue;
-      for (const Row& row : block.rows) Format(text, row);
+      for (const Row& row : block.rows) Format(text, row, horizon_);
       std::unique_lock lock(turn_mu_);
       turn_cv_.wait(lock, [&] { return turn_ == block.seq || abandoned_; });
       const std::string_view bytes = text.View();
@@ -213,7 +217,7 @@ class RowWriter {
     }
   }
 
-  static void Format(TextOut& out, const Row& row) {
+  static void Format(TextOut& out, const Row& row, int horizon) {
     const monitors::StepResult& r = row.result;
     out.Field(row.key);
     out.Put(',');
@@ -255,10 +259,15 @@ class RowWriter {
         first = false;
       }
     }
+    for (int h = 0; h < horizon; ++h) {
+      out.Put(',');
+      if (static_cast<std::size_t>(h) < row.ahead.size()) out.Number(row.ahead[h]);
+    }
     out.Put('\n');
   }
 
   std::FILE* file_;
+  const int horizon_;
   std::vector<Row> current_;
   long handed_ = 0;
   bool finished_ = false;
@@ -355,7 +364,7 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
   // is destroyed (and its threads joined) first.
   const bool want_episodes = !options.alerts.empty();
   std::vector<EpisodeRow> episodes;
-  RowWriter writer(out_file.file);
+  RowWriter writer(out_file.file, options.horizon);
   struct AbandonOnError {
     RowWriter& writer;
     bool done = false;
@@ -432,6 +441,10 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
       return Status::Invalid(Where(line, field) + problem + " (series '" + std::string(key) + "')");
     }
     ++rows;
+    if (options.horizon > 0 && slot.state.started)
+      row.ahead = monitors::ForecastAhead(policy.spec.method,
+                                          monitors::EffectiveConstants(policy.spec, slot.state),
+                                          slot.state.model, slot.state.next_index, options.horizon);
     row.key = slot.key;
     row.period = parsed.text;
     row.policy = &policy;

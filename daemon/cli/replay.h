@@ -18,6 +18,8 @@ struct ReplayOptions {
                        // name and renamed into place only when the whole replay succeeded
   std::string alerts;  // if set: one CSV row per alert episode (series, policy, rule, severity,
                        // opened, escalated, resolved periods), written the same way
+  int horizon = 0;     // if > 0: columns ahead_1..ahead_H, the forecasts made after each row's
+                       // actual for the next H periods (monitors/ahead.h)
 };
 
 struct ReplaySummary {

@@ -237,3 +237,44 @@ TEST_CASE("numbers are read whole: beyond the doubles is not finite, text is not
   CHECK(!forewarden::ParseWholeNumber("1e3", 0, 10000).ok());
   CHECK(*forewarden::ParseWholeNumber("-5", -10, 10) == -5);
 }
+
+TEST_CASE("replay --horizon writes the forecasts ahead made after each actual", "[integration]") {
+  TempDir dir;
+  const std::string cfg = dir.Write("s.yaml",
+                                    "policies:\n"
+                                    "  - {name: t, match: '*', period: week, method: holt, alpha: "
+                                    "0.5, trend_beta: 0.2, start: {level: 10, trend: 1}}\n");
+  std::string csv = "series,period,value\n";
+  const double y[] = {11, 12.5, 13, 15, 15.5, 17};
+  for (int t = 0; t < 6; ++t)
+    csv += "a,2026-W0" + std::to_string(t + 1) + "," + forewarden::FormatNumber(y[t]) + "\n";
+  const std::string in = dir.Write("in.csv", csv), outfile = dir.File("out.csv");
+  std::ostringstream out, err;
+  REQUIRE(forewarden::RunCommand(
+              {"replay", "--config", cfg, "--input", in, "--output", outfile, "--horizon", "3"},
+              out, err) == 0);
+  auto lines = Lines(TempDir::Read(outfile));
+  REQUIRE(lines.size() == 7);
+  CHECK_THAT(lines[0], Catch::EndsWith(",alerts,ahead_1,ahead_2,ahead_3"));
+  auto fields = [](const std::string& line) {
+    std::vector<std::string> f;
+    std::istringstream s(line);
+    for (std::string x; std::getline(s, x, ',');) f.push_back(x);
+    if (!line.empty() && line.back() == ',') f.push_back("");
+    return f;
+  };
+  for (std::size_t i = 1; i + 1 < lines.size(); ++i) {
+    const auto now = fields(lines[i]), next = fields(lines[i + 1]);
+    REQUIRE(now.size() == 17);
+    // ahead_1 after this actual is the next row's forecast (fixed before its actual)
+    CHECK(std::stod(now[14]) == Approx(std::stod(next[3])).epsilon(1e-15));
+    // holt: a straight line, level + h * trend
+    const double slope = std::stod(now[15]) - std::stod(now[14]);
+    CHECK(std::stod(now[16]) - std::stod(now[15]) == Approx(slope).epsilon(1e-12));
+  }
+  // a horizon beyond 104 is refused naming the flag
+  std::ostringstream out2, err2;
+  CHECK(forewarden::RunCommand({"replay", "--config", cfg, "--input", in, "--horizon", "105"}, out2,
+                               err2) == 2);
+  CHECK_THAT(err2.str(), Catch::Contains("--horizon"));
+}
