@@ -164,10 +164,9 @@ struct Delivery::Impl {
   void Run();
   void Round(std::int64_t now);
   void Refresh();
-  void Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error,
-              std::int64_t now);
-  bool SendWebhook(const SinkConfig& s, const Event& e, std::string& error);
-  bool SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes, std::string& error);
+  void Finish(const SinkConfig& s, const Event& e, const Status& sent, std::int64_t now);
+  Status SendWebhook(const SinkConfig& s, const Event& e);
+  Status SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes);
   void Resend(std::int64_t now);
 };
 
@@ -208,10 +207,9 @@ Status Delivery::Start() {
   Impl& m = *impl_;
   if (Status updated = Update(m.settings); !updated) return updated;
   if (Status opened = m.outbox.Open(m.settings->server.data); !opened) return opened;
-  if (std::string error;
-      !m.notifications.Open(m.outbox.db(), m.outbox.install_id(), m.public_url, error)) {
-    return Status::StoreFailed("delivery: " + error);
-  }
+  if (Status opened = m.notifications.Open(m.outbox.db(), m.outbox.install_id(), m.public_url);
+      !opened)
+    return opened;
   m.thread = std::thread([&m] { m.Run(); });
   return Status::Ok();
 }
@@ -272,9 +270,9 @@ void Delivery::Impl::Refresh() {
   backlog = Backlog{b.pending, b.dead, b.oldest_pending_ms};
 }
 
-void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const std::string& error,
+void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, const Status& sent,
                             std::int64_t now) {
-  if (ok) {
+  if (sent) {
     if (!outbox.MarkDelivered(e.event, s.sink.name, now)) round_failed = true;
     std::lock_guard lock(mu);
     ++counters[s.sink.name].delivered;
@@ -294,17 +292,17 @@ void Delivery::Impl::Finish(const SinkConfig& s, const Event& e, bool ok, const 
       std::min(a.max_backoff_seconds, a.initial_backoff_seconds * std::pow(2.0, attempts - 1)) *
       jitter;
   if (!outbox.MarkFailed(e.event, s.sink.name, dead, attempts,
-                         now + static_cast<std::int64_t>(backoff * 1000.0), error))
+                         now + static_cast<std::int64_t>(backoff * 1000.0), sent.message()))
     round_failed = true;
   std::lock_guard lock(mu);
   ++counters[s.sink.name].failed;
   if (dead) ++counters[s.sink.name].dead;
 }
 
-bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::string& error) {
-  json note;
-  if (!notifications.Event(e.event, note, error)) return false;
-  const std::string body = note.dump(-1, ' ', false, json::error_handler_t::replace);
+Status Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e) {
+  Result<json> note = notifications.Event(e.event);
+  if (!note) return note.status();
+  const std::string body = note->dump(-1, ' ', false, json::error_handler_t::replace);
   HttpHeaders headers;
   for (auto& [name, value] :
        SignatureHeaders(s.sink.url, "application/json", body, clock() / 1000, s.keys))
@@ -312,13 +310,11 @@ bool Delivery::Impl::SendWebhook(const SinkConfig& s, const Event& e, std::strin
   const HttpResult r = HttpPost(s.sink.url, "application/json", body, "",
                                 std::chrono::seconds(s.sink.timeout_seconds), headers,
                                 TlsClientOptions{s.sink.ca_file});
-  if (r.status >= 200 && r.status < 300) return true;
-  error = r.status ? "HTTP " + std::to_string(r.status) : r.error;
-  return false;
+  if (r.status >= 200 && r.status < 300) return Status::Ok();
+  return Status::Io(r.status ? "HTTP " + std::to_string(r.status) : r.error);
 }
 
-bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes,
-                                      std::string& error) {
+Status Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes) {
   const std::int64_t now = clock();
   const std::int64_t ends = now + 4 * active->alerts.resend_seconds * 1000;
   json list = json::array();
@@ -344,16 +340,16 @@ bool Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<jso
       list.push_back(AmGroup(body["group"], kind == "group_opened", now, ends, summary));
     }
   }
-  if (list.empty()) return true;  // acknowledgements and snoozes only
+  if (list.empty()) return Status::Ok();  // acknowledgements and snoozes only
   std::string url = s.sink.url;
   while (!url.empty() && url.back() == '/') url.pop_back();
   const HttpResult r =
       HttpPost(url + "/api/v2/alerts", "application/json",
                list.dump(-1, ' ', false, json::error_handler_t::replace), "",
                std::chrono::seconds(s.sink.timeout_seconds), {}, TlsClientOptions{s.sink.ca_file});
-  if (r.status >= 200 && r.status < 300) return true;
-  error = r.status ? "HTTP " + std::to_string(r.status) + ": " + r.body.substr(0, 200) : r.error;
-  return false;
+  if (r.status >= 200 && r.status < 300) return Status::Ok();
+  return Status::Io(r.status ? "HTTP " + std::to_string(r.status) + ": " + r.body.substr(0, 200)
+                             : r.error);
 }
 
 void Delivery::Impl::Round(std::int64_t now) {
@@ -376,42 +372,39 @@ void Delivery::Impl::Round(std::int64_t now) {
     switch (s.sink.kind) {
       case config::Sink::Kind::kLog:
         for (const Event& e : events) {
-          json note;
-          std::string error;
-          const bool ok = notifications.Event(e.event, note, error);
-          if (ok)
-            WriteLog(std::cerr,
-                     LogLine("info", "alert",
-                             {{"event", std::to_string(e.event)},
-                              {"kind", e.kind},
-                              {"summary", note.value("summary", "")},
-                              {"page", note.contains("alert") ? note["alert"].value("page_url", "")
-                                                              : std::string()}}));
-          Finish(s, e, ok, error, now);
+          const Result<json> note = notifications.Event(e.event);
+          if (note)
+            WriteLog(std::cerr, LogLine("info", "alert",
+                                        {{"event", std::to_string(e.event)},
+                                         {"kind", e.kind},
+                                         {"summary", note->value("summary", "")},
+                                         {"page", note->contains("alert")
+                                                      ? (*note)["alert"].value("page_url", "")
+                                                      : std::string()}}));
+          Finish(s, e, note.status(), now);
         }
         break;
       case config::Sink::Kind::kWebhook:
         for (const Event& e : events) {
           if (e.next_ms > now) break;
-          std::string error;
-          const bool ok = SendWebhook(s, e, error);
-          Finish(s, e, ok, error, clock());
-          if (!ok) break;  // later events wait behind this one
+          const Status sent = SendWebhook(s, e);
+          Finish(s, e, sent, clock());
+          if (!sent) break;  // later events wait behind this one
         }
         break;
       case config::Sink::Kind::kAlertmanager: {
         std::vector<Event> due;
         std::vector<json> notes;
-        std::string error;
-        bool ok = true;
+        Status sent;
         for (const Event& e : events)
           if (e.next_ms <= now) {
             due.push_back(e);
-            notes.emplace_back();
-            ok = ok && notifications.Event(e.event, notes.back(), error);
+            Result<json> note = sent ? notifications.Event(e.event) : Result<json>(sent);
+            if (!note) sent = note.status();
+            notes.push_back(note ? std::move(*note) : json());
           }
-        if (ok) ok = SendAlertmanager(s, notes, error);
-        for (const Event& e : due) Finish(s, e, ok, error, clock());
+        if (sent) sent = SendAlertmanager(s, notes);
+        for (const Event& e : due) Finish(s, e, sent, clock());
         break;
       }
     }
@@ -442,18 +435,16 @@ void Delivery::Impl::Resend(std::int64_t now) {
   std::vector<std::int64_t> ids, groups;
   ids = outbox.OpenAlerts();
   groups = outbox.OpenGroups();
-  std::string error;
-  for (std::int64_t id : ids) {
-    events.emplace_back();
-    if (!notifications.Current(id, events.back(), error)) events.pop_back();
-  }
+  for (std::int64_t id : ids)
+    if (Result<json> now_json = notifications.Current(id); now_json)
+      events.push_back(std::move(*now_json));
   for (std::int64_t g : groups) {
     json note{{"kind", "group_opened"}};
-    if (notifications.Group(g, "group_opened", note, error)) events.push_back(std::move(note));
+    if (notifications.Group(g, "group_opened", note)) events.push_back(std::move(note));
   }
   if (events.empty()) return;
   for (const SinkConfig& s : am) {
-    if (SendAlertmanager(s, events, error)) {
+    if (SendAlertmanager(s, events)) {
       std::lock_guard lock(mu);
       counters[s.sink.name].resent += static_cast<long>(events.size());
     }

@@ -244,8 +244,7 @@ std::string PublicUrl(const config::Settings& settings) {
   return url;
 }
 
-bool Notifications::Open(Db& db, std::string install_id, std::string public_url,
-                         std::string& error) {
+Status Notifications::Open(Db& db, std::string install_id, std::string public_url) {
   db_ = &db;
   install_id_ = std::move(install_id);
   public_url_ = std::move(public_url);
@@ -258,11 +257,8 @@ bool Notifications::Open(Db& db, std::string install_id, std::string public_url,
       "?1");
   sample_ = db.Prepare("SELECT series_key FROM alerts WHERE group_id = ?1 ORDER BY id LIMIT 20");
   for (const Stmt* q : {&event_, &alert_, &group_, &sample_})
-    if (!q->valid()) {
-      error = db.error();
-      return false;
-    }
-  return true;
+    if (!q->valid()) return Status::StoreFailed("delivery: " + db.error());
+  return Status::Ok();
 }
 
 namespace {
@@ -282,8 +278,8 @@ const char* StateAfter(const std::string& kind) {
 
 }  // namespace
 
-bool Notifications::Group(std::int64_t group, const std::string& kind, json& out,
-                          std::string& error) {
+bool Notifications::GroupInto(std::int64_t group, const std::string& kind, json& out,
+                              std::string& error) {
   group_.Reset();
   if (!group_.Bind(1, group).Step() || !group_.Row()) {
     error = "no alert group " + std::to_string(group) + " " + db_->error();
@@ -315,7 +311,7 @@ bool Notifications::Group(std::int64_t group, const std::string& kind, json& out
   return true;
 }
 
-bool Notifications::Event(std::int64_t event, json& out, std::string& error) {
+bool Notifications::EventInto(std::int64_t event, json& out, std::string& error) {
   event_.Reset();
   if (!event_.Bind(1, event).Step() || !event_.Row()) {
     error = "no alert event " + std::to_string(event) + " " + db_->error();
@@ -337,7 +333,7 @@ bool Notifications::Event(std::int64_t event, json& out, std::string& error) {
              {"idempotency_key", install_id_ + "-" + std::to_string(event)},
              {"kind", kind},
              {"at", IsoTime(at)}};
-  if (!alert) return Group(group, kind, out, error);
+  if (!alert) return GroupInto(group, kind, out, error);
   json a;
   if (!SelectAlert(alert_, alert, a, error, *db_)) return false;
   // The alert as it was at the event: its state and severity then; the signal value where the
@@ -368,7 +364,7 @@ bool Notifications::Event(std::int64_t event, json& out, std::string& error) {
   return true;
 }
 
-bool Notifications::Current(std::int64_t alert, json& out, std::string& error) {
+bool Notifications::CurrentInto(std::int64_t alert, json& out, std::string& error) {
   json a;
   if (!SelectAlert(alert_, alert, a, error, *db_)) return false;
   a["url"] = SeriesUrl(public_url_, a["series"].get<std::string>());
@@ -377,6 +373,23 @@ bool Notifications::Current(std::int64_t alert, json& out, std::string& error) {
   out["summary"] = "open " + out["alert"]["rule"].get<std::string>() + " on " +
                    out["alert"]["series"].get<std::string>();
   return true;
+}
+
+Result<json> Notifications::Event(std::int64_t event) {
+  json out;
+  if (std::string error; !EventInto(event, out, error)) return Status::StoreFailed(error);
+  return out;
+}
+
+Result<json> Notifications::Current(std::int64_t alert) {
+  json out;
+  if (std::string error; !CurrentInto(alert, out, error)) return Status::StoreFailed(error);
+  return out;
+}
+
+Status Notifications::Group(std::int64_t group, const std::string& kind, json& out) {
+  if (std::string error; !GroupInto(group, kind, out, error)) return Status::StoreFailed(error);
+  return Status::Ok();
 }
 
 }  // namespace forewarden

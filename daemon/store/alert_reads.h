@@ -52,18 +52,22 @@ std::string SeriesPageUrl(const std::string& base, const std::string& key);
 // outbox stores facts, not message text. Used by the delivery worker on its own connection.
 class Notifications {
  public:
-  bool Open(Db& db, std::string install_id, std::string public_url, std::string& error);
+  Status Open(Db& db, std::string install_id, std::string public_url);
   void SetPublicUrl(std::string url) { public_url_ = std::move(url); }
   // {"event_id", "idempotency_key", "kind", "at", "summary", "alert": {...} | "group": {...},
   //  "by"?, "note"?, "previous_severity"?}; the alert as it was at the event (state, severity,
-  //  value), with "url".
-  bool Event(std::int64_t event, nlohmann::json& out, std::string& error);
+  //  value), with "url" and "page_url". Not found or store failed.
+  Result<nlohmann::json> Event(std::int64_t event);
   // An unresolved alert as it is now ({"kind": "opened", "summary", "alert"}), for re-sends.
-  bool Current(std::int64_t alert, nlohmann::json& out, std::string& error);
-  // Fills "group" and "summary" of a group event.
-  bool Group(std::int64_t group, const std::string& kind, nlohmann::json& out, std::string& error);
+  Result<nlohmann::json> Current(std::int64_t alert);
+  // Fills "group" and "summary" of a group event into `out`.
+  Status Group(std::int64_t group, const std::string& kind, nlohmann::json& out);
 
  private:
+  bool EventInto(std::int64_t event, nlohmann::json& out, std::string& error);
+  bool CurrentInto(std::int64_t alert, nlohmann::json& out, std::string& error);
+  bool GroupInto(std::int64_t group, const std::string& kind, nlohmann::json& out,
+                 std::string& error);
   Db* db_ = nullptr;
   std::string install_id_, public_url_;
   Stmt event_, alert_, group_, sample_;
