@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
 # The planner page's reads at a million series; Release build; see page_bench.py (about
-# 5 minutes, 2 GB of disk).
+# 2 minutes, 2 GB of disk).
 #   tests/bench/page_bench.sh [SERIES=1000000]
 set -euo pipefail
 cd "$(dirname "$0")/../.."
