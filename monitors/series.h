@@ -254,6 +254,28 @@ struct StepResult {
   long filled = 0;  // gap periods filled with zero or skipped
 };
 
+// What one step did to rule `rule`'s episodes. Both the service (the alert book's changes) and
+// replay (`--alerts` rows) read a step's episodes through this one function, in rule order:
+// `opened` and `resolved` together mean an episode that began and ended inside the step (a
+// stale gap), recorded opened, then resolved; `escalated` applies to the episode open after
+// the step.
+struct EpisodeStep {
+  std::size_t rule = 0;
+  bool opened = false, escalated = false, resolved = false;
+};
+// Calls `each` for every rule (of `rules`) whose episodes changed in step `r`, in rule order.
+template <typename F>
+void ForEachEpisodeStep(const StepResult& r, std::size_t rules, F&& each) {
+  const std::uint64_t any = r.episodes_opened | r.episodes_escalated | r.episodes_resolved;
+  if (!any) return;
+  for (std::size_t i = 0; i < rules && i < 64; ++i) {
+    const std::uint64_t bit = std::uint64_t{1} << i;
+    if (!(any & bit)) continue;
+    each(EpisodeStep{i, (r.episodes_opened & bit) != 0, (r.episodes_escalated & bit) != 0,
+                     (r.episodes_resolved & bit) != 0});
+  }
+}
+
 // The value rule `rule` watches after a step (`state` is the series' state after it), or
 // nullopt when it is undefined. Not for stale rules.
 std::optional<double> RuleValue(const RuleSpec& rule, const StepResult& result,

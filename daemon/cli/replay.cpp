@@ -455,18 +455,18 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
       for (std::size_t i = 0; i < policy.spec.rules.size(); ++i)
         if (r.episodes_opened >> i & 1) ++counts[i];
     }
-    if (want_episodes && (r.episodes_opened | r.episodes_escalated | r.episodes_resolved)) {
+    if (want_episodes) {
       const auto& rules = policy.spec.rules;
-      for (std::size_t i = 0; i < rules.size(); ++i) {
-        const std::uint64_t bit = std::uint64_t{1} << i;
+      monitors::ForEachEpisodeStep(r, rules.size(), [&](const monitors::EpisodeStep& e) {
+        const std::size_t i = e.rule;
         auto it = std::find_if(slot.open.begin(), slot.open.end(),
                                [i](const auto& o) { return o.first == i; });
-        if ((r.episodes_resolved & bit) && it != slot.open.end()) {
+        if (e.resolved && it != slot.open.end()) {
           episodes[it->second].resolved.assign(parsed.text, sizeof parsed.text);
           slot.open.erase(it);
           it = slot.open.end();
         }
-        if (r.episodes_opened & bit) {
+        if (e.opened) {
           slot.open.push_back({i, episodes.size()});
           episodes.push_back({slot.key, &policy, i, rules[i].severity,
                               std::string(parsed.text, sizeof parsed.text), "", ""});
@@ -475,17 +475,17 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
             episodes.back().severity = rules[i].escalate_severity;
             episodes.back().escalated.assign(parsed.text, sizeof parsed.text);
           }
-          if (r.episodes_resolved & bit) {  // opened and ended in one step (a stale gap)
+          if (e.resolved) {  // began and ended inside the step
             episodes.back().resolved.assign(parsed.text, sizeof parsed.text);
             slot.open.pop_back();
             it = slot.open.end();
           }
         }
-        if ((r.episodes_escalated & bit) && it != slot.open.end()) {
+        if (e.escalated && it != slot.open.end()) {
           episodes[it->second].severity = rules[i].escalate_severity;
           episodes[it->second].escalated.assign(parsed.text, sizeof parsed.text);
         }
-      }
+      });
     }
   }
   if (!in.ok()) {

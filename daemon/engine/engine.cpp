@@ -184,35 +184,31 @@ AlertSeries Engine::Info(std::size_t index) const {
 
 void Engine::CollectChanges(std::size_t index, const monitors::StepResult& r, std::int64_t period,
                             std::vector<AlertChange>& out) const {
-  const std::uint64_t any = r.episodes_opened | r.episodes_escalated | r.episodes_resolved;
-  if (!any) return;
   const Series& s = series_[index];
   const auto& rules = s.policy->spec.rules;
-  for (std::size_t i = 0; i < rules.size(); ++i) {
-    const std::uint64_t bit = std::uint64_t{1} << i;
-    if (!(any & bit)) continue;
+  monitors::ForEachEpisodeStep(r, rules.size(), [&](const monitors::EpisodeStep& e) {
+    const std::size_t i = e.rule;
     AlertChange c;
     c.series = index;
     c.rule = i;
     c.period = period;
     if (monitors::StepSignal(rules[i].signal)) c.value = monitors::RuleValue(rules[i], r, s.state);
     c.severity = monitors::EpisodeSeverity(rules[i], s.state.rules[i]);
-    // an episode that ended in this step (a stale gap) opened in it too: both are recorded
-    if (r.episodes_opened & bit) {
+    if (e.opened) {
       c.kind = AlertChange::Kind::kOpened;
-      if (r.episodes_resolved & bit) c.severity = rules[i].severity;
+      if (e.resolved) c.severity = rules[i].severity;  // began and ended inside the step
       out.push_back(c);
     }
-    if (r.episodes_escalated & bit) {
+    if (e.escalated) {
       c.kind = AlertChange::Kind::kEscalated;
       out.push_back(c);
     }
-    if (r.episodes_resolved & bit) {
+    if (e.resolved) {
       c.kind = AlertChange::Kind::kResolved;
       c.reason = "clear";
       out.push_back(c);
     }
-  }
+  });
 }
 
 Status Engine::AlertAction(const std::function<Status(AlertBook&, std::int64_t now_ms)>& action) {

@@ -105,6 +105,8 @@ const char* const kMigrations[] = {
     "  PRIMARY KEY(event_id, sink)) WITHOUT ROWID;"
     "CREATE INDEX deliveries_due ON deliveries(state, next_ms);"
     "INSERT OR IGNORE INTO meta(key, value) VALUES('install_id', lower(hex(randomblob(8))));",
+    // 4: the resets of one series, newest first, for its detail (GET /v1/series/{key})
+    "CREATE INDEX audit_series ON audit(series_key, id);",
 };
 constexpr int kSchemaVersion = static_cast<int>(sizeof kMigrations / sizeof kMigrations[0]);
 
