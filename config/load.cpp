@@ -54,6 +54,7 @@ const std::set<std::string> kServerKeys = {"listen",
                                            "tls_key_file",
                                            "tls_terminated_by_proxy",
                                            "people_file",
+                                           "read_queue_depth",
                                            "token_for_reads"};
 const std::set<std::string> kPolicyKeys = {"name",
                                            "match",
@@ -779,6 +780,7 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   r.Int(n, "header_timeout_seconds", path, s.header_timeout_seconds, 1, 3600);
   r.Int(n, "idle_timeout_seconds", path, s.idle_timeout_seconds, 1, 86400);
   r.Int(n, "queue_depth", path, s.queue_depth, 1, 100000);
+  r.Int(n, "read_queue_depth", path, s.read_queue_depth, 1, 100000);
   r.Int(n, "shutdown_grace_seconds", path, s.shutdown_grace_seconds, 0, 3600);
   r.Int(n, "folder_poll_ms", path, s.folder_poll_ms, 10, 3600000);
   long max_db = static_cast<long>(s.max_database_bytes);

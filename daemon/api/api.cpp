@@ -441,7 +441,8 @@ Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, Acces
     : engine_(engine),
       metrics_(metrics),
       settings_(std::move(settings)),
-      access_(std::move(access)) {}
+      access_(std::move(access)),
+      reader_(static_cast<std::size_t>(settings_->server.read_queue_depth)) {}
 
 void Api::Update(std::shared_ptr<const config::Settings> settings, Access access) {
   std::lock_guard lock(mu_);
@@ -555,8 +556,12 @@ void Api::OnEngine(const std::shared_ptr<Call>& call, std::function<void()> job)
 }
 
 void Api::OffEngine(const std::shared_ptr<Call>& call, std::function<void()> job) {
-  if (!reader_.Post(Guarded(call, std::move(job))))
-    call->Fail(Status::Busy("too many list requests are waiting; retry later"));
+  if (!reader_.Post(Guarded(call, std::move(job)))) {
+    counters_.rejected_read_queue_full.fetch_add(1);
+    call->Fail(
+        Status::Busy("too many list requests are waiting (server.read_queue_depth); retry "
+                     "later"));
+  }
 }
 
 // ---- handlers --------------------------------------------------------------------------------

@@ -94,7 +94,7 @@ class Api {
   std::shared_ptr<const config::Settings> settings_;
   Access access_;
   ApiCounters counters_;
-  ReadWorker reader_{64};  // last: destroyed first, while what its jobs use still exists
+  ReadWorker reader_;  // last: destroyed first, while what its jobs use still exists
 };
 
 // The longest horizon GET /v1/series/{key}/forecast serves.

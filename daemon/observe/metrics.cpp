@@ -377,6 +377,8 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
         .Increment(static_cast<double>(a->rejected_too_many_rows.load()));
     rejections.Add({{"reason", "queue_full"}})
         .Increment(static_cast<double>(a->rejected_queue_full.load()));
+    rejections.Add({{"reason", "read_queue_full"}})
+        .Increment(static_cast<double>(a->rejected_read_queue_full.load()));
     rejections.Add({{"reason", "unavailable"}})
         .Increment(static_cast<double>(a->rejected_unavailable.load()));
   }

@@ -38,6 +38,7 @@ struct ApiCounters {
   std::atomic<long> rejected_bad_input{0};
   std::atomic<long> rejected_too_many_rows{0};
   std::atomic<long> rejected_queue_full{0};
+  std::atomic<long> rejected_read_queue_full{0};  // lists refused at server.read_queue_depth
   std::atomic<long> rejected_unavailable{0};
   std::atomic<long> rejected_rows{0};  // rows of batches refused before the engine (bad input)
   std::atomic<long> rejected_batches{0};
