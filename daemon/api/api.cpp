@@ -441,13 +441,13 @@ Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, Acces
     : engine_(engine),
       metrics_(metrics),
       settings_(std::move(settings)),
-      access_(std::move(access)),
+      access_(std::make_shared<const Access>(std::move(access))),
       reader_(static_cast<std::size_t>(settings_->server.read_queue_depth)) {}
 
 void Api::Update(std::shared_ptr<const config::Settings> settings, Access access) {
   std::lock_guard lock(mu_);
   settings_ = std::move(settings);
-  access_ = std::move(access);
+  access_ = std::make_shared<const Access>(std::move(access));
 }
 
 std::shared_ptr<const config::Settings> Api::settings() const {
@@ -455,17 +455,19 @@ std::shared_ptr<const config::Settings> Api::settings() const {
   return settings_;
 }
 
+std::shared_ptr<const Access> Api::access() const {
+  std::lock_guard lock(mu_);
+  return access_;
+}
+
 bool Api::Authorized(Call& call) {
   const Need need = call.route->need;
   if (need == Need::kNothing) return true;
-  Access access;
-  {
-    std::lock_guard lock(mu_);
-    access = access_;
-  }
-  call.person = access.Identify(call.request.authorization);
-  if (access.open()) return true;
-  if (need == Need::kRead && !access.reads_need_token()) return true;
+  const std::shared_ptr<const Access> access = this->access();
+  if (access->open()) return true;
+  // Reads that need no token need no one's name either: no hashing of a token they carry.
+  if (need == Need::kRead && !access->reads_need_token()) return true;
+  call.person = access->Identify(call.request.authorization);
   if (!call.person) {
     counters_.rejected_unauthorized.fetch_add(1);
     call.Answer(Unauthorized());
@@ -713,11 +715,7 @@ void Api::SeriesList(const std::shared_ptr<Call>& c) {
         const ReadRow& r = v.rows[i];
         if (!policy.empty() && v.policy(i).name != policy) continue;
         if (!status.empty()) {
-          const SeriesStatus st = r.flags & ReadRow::kActive    ? SeriesStatus::kAlerting
-                                  : v.stale(i)                  ? SeriesStatus::kStale
-                                  : r.flags & ReadRow::kWarming ? SeriesStatus::kWarming
-                                                                : SeriesStatus::kOk;
-          if (StatusName(st) != status) continue;
+          if (StatusName(StatusOf(v, i)) != status) continue;
         }
         if (!labels.Matches(v.labels(i))) continue;
         float order = -1;
@@ -1019,7 +1017,6 @@ void Api::Attention(const std::shared_ptr<Call>& c) {
   q.severity = c->ParamOr("severity");
   q.q = c->ParamOr("q");
   if (Status ok = CheckAttentionQuery(q); !ok) return c->Fail(ok);
-  if (Result<LabelFilter> l = LabelFilter::Parse(q.label); !l) return c->Fail(l.status());
   // The read view and the alert sums on the engine, the pass over them on the reader thread,
   // the page's rows on the engine.
   OnEngine(c, [this, c, q] {
@@ -1039,11 +1036,8 @@ void Api::Attention(const std::shared_ptr<Call>& c) {
 }
 
 void Api::AccessInfo(const std::shared_ptr<Call>& c) {
-  Access access;
-  {
-    std::lock_guard lock(mu_);
-    access = access_;
-  }
+  const std::shared_ptr<const Access> shared = access();
+  const Access& access = *shared;
   const std::optional<Person> person = access.Identify(c->request.authorization);
   json you = nullptr;
   if (person)

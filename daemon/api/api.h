@@ -64,6 +64,7 @@ class Api {
   // Who an action records: the token's person, else the body's field; empty when neither.
   static std::string Actor(const Call& call, const std::string& from_body);
   std::shared_ptr<const config::Settings> settings() const;
+  std::shared_ptr<const Access> access() const;
 
   void Health(const std::shared_ptr<Call>& c);
   void Ready(const std::shared_ptr<Call>& c);
@@ -92,7 +93,7 @@ class Api {
   Metrics* metrics_;
   mutable std::mutex mu_;
   std::shared_ptr<const config::Settings> settings_;
-  Access access_;
+  std::shared_ptr<const Access> access_;  // replaced whole on reload
   ApiCounters counters_;
   ReadWorker reader_;  // last: destroyed first, while what its jobs use still exists
 };

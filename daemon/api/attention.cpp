@@ -45,7 +45,7 @@ Status CheckAttentionQuery(const AttentionQuery& q) {
     return Status::Invalid("severity must be info, warning or critical");
   if (!(q.near > 0 && q.near <= 1)) return Status::Invalid("near must be a number in (0, 1]");
   if (q.q.size() > 256) return Status::Invalid("q: longer than 256 bytes");
-  return Status::Ok();
+  return LabelFilter::Parse(q.label).status();
 }
 
 namespace {
@@ -112,7 +112,8 @@ Result<AttentionPick> PickAttention(const ReadView& view, const AlertSums& sums,
     while (cursor < sums.size() && sums[cursor].first < i) ++cursor;
     const AlertSum* a =
         cursor < sums.size() && sums[cursor].first == i ? &sums[cursor].second : nullptr;
-    const bool active = r.flags & ReadRow::kActive;
+    const SeriesStatus status = StatusOf(view, i);
+    const bool active = status == SeriesStatus::kAlerting;
     const bool stale = view.stale(i);
     const bool near = !active && r.closeness >= q.near && !a;
     PolicyCount& c = counts[r.policy];
@@ -122,14 +123,10 @@ Result<AttentionPick> PickAttention(const ReadView& view, const AlertSums& sums,
       c.acknowledged += a->acknowledged;
       c.snoozed += a->snoozed;
     }
-    if (active)
-      ++c.alerting;
-    else if (stale)
-      ++c.stale;
-    else if (r.flags & ReadRow::kWarming)
-      ++c.warming;
-    else
-      ++c.in_control;
+    c.alerting += status == SeriesStatus::kAlerting;
+    c.stale += status == SeriesStatus::kStale;
+    c.warming += status == SeriesStatus::kWarming;
+    c.in_control += status == SeriesStatus::kOk;
     c.near += near;
     int group = kOther;
     if (a && a->open)

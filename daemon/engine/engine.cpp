@@ -1093,11 +1093,7 @@ void AddSeriesHealth(const ReadView& view, EngineSnapshot& out) {
   for (std::size_t i = 0; i < view.size(); ++i) {
     const ReadRow& r = view.rows[i];
     PolicyHealth& h = out.policies[r.policy];
-    const SeriesStatus status = r.flags & ReadRow::kActive    ? SeriesStatus::kAlerting
-                                : view.stale(i)               ? SeriesStatus::kStale
-                                : r.flags & ReadRow::kWarming ? SeriesStatus::kWarming
-                                                              : SeriesStatus::kOk;
-    ++h.series[static_cast<int>(status)];
+    ++h.series[static_cast<int>(StatusOf(view, i))];
     if (r.flags & ReadRow::kWarming) continue;
     if (!std::isnan(r.trigg)) {
       const double v = std::fabs(r.trigg);

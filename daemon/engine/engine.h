@@ -89,6 +89,13 @@ inline SeriesStatus StatusOf(const monitors::SeriesState& s, const config::Polic
   if (stale) return SeriesStatus::kStale;
   return Warming(s, p) ? SeriesStatus::kWarming : SeriesStatus::kOk;
 }
+// The same status for row `i` of a read view, at the view's day.
+inline SeriesStatus StatusOf(const ReadView& view, std::size_t i) {
+  const ReadRow& r = view.rows[i];
+  if (r.flags & ReadRow::kActive) return SeriesStatus::kAlerting;
+  if (view.stale(i)) return SeriesStatus::kStale;
+  return r.flags & ReadRow::kWarming ? SeriesStatus::kWarming : SeriesStatus::kOk;
+}
 inline const char* StatusName(SeriesStatus s) {
   static const char* kNames[] = {"ok", "alerting", "stale", "warming"};
   return kNames[static_cast<int>(s)];

@@ -20,13 +20,12 @@ import json
 import os
 import shutil
 import statistics
-import subprocess
 import sys
 import threading
 import time
 
 sys.path.insert(0, os.path.dirname(__file__))
-from read_bench import post_all, timed_get  # noqa: E402
+from read_bench import post_all, start_service, timed_get  # noqa: E402
 
 BATCH = 5000
 
@@ -51,19 +50,8 @@ def bodies(rows):
 def main():
     binary, work = sys.argv[1], sys.argv[2]
     n = int(sys.argv[3]) if len(sys.argv) > 3 else 1000000
-    shutil.rmtree(work, ignore_errors=True)
-    os.makedirs(work)
-    cfg = os.path.join(work, "settings.yaml")
-    with open(cfg, "w") as f:
-        f.write("server: {queue_depth: 256, max_rows_per_batch: 10000, max_series: %d}\n" % (n + 1) +
-                "policies:\n  - {name: bench, match: '*', period: week, alpha: 0.2, signal_beta: 0.3, warmup: 4,\n"
-                "     start: {mean_of_first: 4}, history: 104,\n"
-                "     rules: [{name: drift, signal: trigg, limit: 0.6, clear: 0.3, resolve_after: 50}]}\n")
-    proc = subprocess.Popen([binary, "serve", "--config", cfg, "--listen", "127.0.0.1:0", "--data",
-                             os.path.join(work, "data")], stdout=subprocess.PIPE,
-                            stderr=subprocess.DEVNULL, text=True)
+    proc, port = start_service(binary, work, n, " warmup: 4, start: {mean_of_first: 4}, history: 104,")
     try:
-        port = int(proc.stdout.readline().rsplit(":", 1)[1])
         deep = [i for i in range(0, n, 100)]
         t0 = time.monotonic()
         # the deep 1 %: weeks 0..99 steady, 100..103 stepped up

@@ -73,21 +73,28 @@ def timed_get(conn, path):
     return time.monotonic() - t0
 
 
-def main():
-    binary, work = sys.argv[1], sys.argv[2]
-    n = int(sys.argv[3]) if len(sys.argv) > 3 else 1000000
+def start_service(binary, work, n, policy_extra=""):
+    """forewarden serve on a free loopback port in a fresh `work` folder, room for n series,
+    one weekly policy with a Trigg rule; returns (process, port)."""
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
     cfg = os.path.join(work, "settings.yaml")
     with open(cfg, "w") as f:
         f.write("server: {queue_depth: 256, max_rows_per_batch: 10000, max_series: %d}\n" % (n + 1) +
-                "policies:\n  - {name: bench, match: '*', period: week, alpha: 0.2, signal_beta: 0.3,\n"
-                "     rules: [{name: drift, signal: trigg, limit: 0.6, clear: 0.3, resolve_after: 50}]}\n")
+                "policies:\n  - {name: bench, match: '*', period: week, alpha: 0.2, signal_beta: 0.3,%s\n"
+                "     rules: [{name: drift, signal: trigg, limit: 0.6, clear: 0.3, resolve_after: 50}]}\n"
+                % policy_extra)
     proc = subprocess.Popen([binary, "serve", "--config", cfg, "--listen", "127.0.0.1:0", "--data",
                              os.path.join(work, "data")], stdout=subprocess.PIPE,
                             stderr=subprocess.DEVNULL, text=True)
+    return proc, int(proc.stdout.readline().rsplit(":", 1)[1])
+
+
+def main():
+    binary, work = sys.argv[1], sys.argv[2]
+    n = int(sys.argv[3]) if len(sys.argv) > 3 else 1000000
+    proc, port = start_service(binary, work, n)
     try:
-        port = int(proc.stdout.readline().rsplit(":", 1)[1])
         # 1 % of the series step from 10 to 30 in week 3 and stay there: their rule holds; the
         # others stay at 10 (no error, so no signal).
         step = lambda i: i % 100 == 0  # noqa: E731

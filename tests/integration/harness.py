@@ -43,6 +43,16 @@ def _remove_temp_dirs():
         shutil.rmtree(path, ignore_errors=True)
 
 
+def write_people_file(path, people):
+    """A server.people_file at `path` for people {name: (role, token)}, mode 0600."""
+    import hashlib
+    with open(path, "w") as f:
+        f.write("# name role sha256-of-token\n")
+        for name, (role, token) in people.items():
+            f.write("%s %s %s\n" % (name, role, hashlib.sha256(token.encode()).hexdigest()))
+    os.chmod(path, 0o600)
+
+
 def _read_until_closed(sock):
     reply = b""
     while True:

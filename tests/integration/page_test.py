@@ -7,15 +7,13 @@ Screenshots of each view at 1280x800 (and the attention list at 360 px wide) are
 FOREWARDEN_BUILD_DIR/screenshots/; deploy/screenshots.sh copies two of them for the README.
 The time from navigation to the attention list being drawn is printed and written to
 screenshots/timing.txt (reported, not asserted: timings are not tests)."""
-import hashlib
-import json
 import os
 import subprocess
 import sys
 import urllib.parse
 
 sys.path.insert(0, os.path.dirname(__file__))
-from harness import BINARY, DEADLINE, Server, run, temp_dir  # noqa: E402
+from harness import BINARY, DEADLINE, Server, run, temp_dir, write_people_file  # noqa: E402
 
 from selenium import webdriver  # noqa: E402
 from selenium.webdriver.chrome.options import Options  # noqa: E402
@@ -42,6 +40,7 @@ policies:
       - {name: drift, signal: trigg, limit: 0.6, clear: 0.4, resolve_after: 3}
 """
 HOSTILE = '<img src=x onerror="window.__pwned=1">'
+OPERATOR = "olga-token-0123456789abcdef"  # the feed's token in the tests with people
 SHOTS = os.path.join(os.environ.get("FOREWARDEN_BUILD_DIR", temp_dir()), "screenshots")
 
 
@@ -369,14 +368,11 @@ def test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so():
     d = temp_dir()
     people = os.path.join(d, "people")
     token = "pablo-token-0123456789abcdef"
-    with open(people, "w") as f:
-        f.write("pablo planner %s\n" % hashlib.sha256(token.encode()).hexdigest())
-        f.write("olga operator %s\n" % hashlib.sha256(b"olga-token-0123456789abcdef").hexdigest())
-    os.chmod(people, 0o600)
+    write_people_file(people, {"pablo": ("planner", token), "olga": ("operator", OPERATOR)})
     srv = Server(SETTINGS.replace("alerts:", "server: {people_file: '%s'}\nalerts:" % people), workdir=d)
     b = Browser()
     try:
-        load(srv, feed(d), token="olga-token-0123456789abcdef")
+        load(srv, feed(d), token=OPERATOR)
         _, api, _ = srv.request("GET", "/v1/attention?state=open&limit=1")
         key, alert = api["rows"][0]["key"], api["rows"][0]["alerts"][0]["id"]
         b.open(srv.url + "/#/series/" + series_path(key), "series")
@@ -412,7 +408,7 @@ def test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so():
         # the token stays in this tab's session only
         assert b.js("return sessionStorage.getItem('forewarden.token')") == token
         assert b.js("return localStorage.length") == 0
-        # an operator-only action as a planner: refused, and the page shows the service's words
+        # signing out from another view: the token leaves the tab
         b.open(srv.url + "/#/policies", "policies")
         assert b.css(".policy")
         b.one("#token-forget").click()
@@ -428,15 +424,12 @@ def test_when_reads_need_a_token_the_page_asks_first_then_shows_the_list():
     d = temp_dir()
     people = os.path.join(d, "people")
     token = "rita-reads-0123456789abcdef"
-    with open(people, "w") as f:
-        f.write("rita read %s\n" % hashlib.sha256(token.encode()).hexdigest())
-        f.write("olga operator %s\n" % hashlib.sha256(b"olga-token-0123456789abcdef").hexdigest())
-    os.chmod(people, 0o600)
+    write_people_file(people, {"rita": ("read", token), "olga": ("operator", OPERATOR)})
     srv = Server(SETTINGS.replace("alerts:", "server: {people_file: '%s', token_for_reads: true}\nalerts:" % people),
                  workdir=d)
     b = Browser()
     try:
-        load(srv, feed(d), token="olga-token-0123456789abcdef")
+        load(srv, feed(d), token=OPERATOR)
         b.d.get(srv.url + "/")
         b.wait(lambda dr: b.one("#token-panel").is_displayed(), "the token prompt")
         assert b.one("#access-state").text == "Token needed to read"

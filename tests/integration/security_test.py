@@ -9,7 +9,7 @@ import subprocess
 import sys
 
 sys.path.insert(0, os.path.dirname(__file__))
-from harness import BINARY, Server, run, temp_dir  # noqa: E402
+from harness import BINARY, Server, run, temp_dir, write_people_file  # noqa: E402
 
 TOKEN = "tok-abcdefghijklmnop-0123"
 WRITES = [
@@ -70,19 +70,10 @@ ALLOWED = {
 }
 
 
-def _people_file(path, people):
-    import hashlib
-    with open(path, "w") as f:
-        f.write("# name role sha256-of-token\n")
-        for name, (role, token) in people.items():
-            f.write("%s %s %s\n" % (name, role, hashlib.sha256(token.encode()).hexdigest()))
-    os.chmod(path, 0o600)
-
-
 def test_each_role_against_each_write_endpoint_and_names_are_recorded():
     d = temp_dir()
     people = os.path.join(d, "people")
-    _people_file(people, PEOPLE)
+    write_people_file(people, PEOPLE)
     srv = Server("""
 server: {people_file: '%s', token_for_reads: true}
 policies:
@@ -137,7 +128,7 @@ policies:
         status, metrics, _ = srv.request("GET", "/metrics")
         assert 'forewarden_http_rejections_total{reason="forbidden"} 8' in metrics, metrics
         # SIGHUP reloads the people file: rita leaves, a bad line is refused whole
-        _people_file(people, {k: v for k, v in PEOPLE.items() if k != "rita"})
+        write_people_file(people, {k: v for k, v in PEOPLE.items() if k != "rita"})
         srv.signal(signal.SIGHUP)
         srv.wait_stderr("reloaded")
         assert srv.request("GET", "/v1/series", token=PEOPLE["rita"][1])[0] == 401
