@@ -144,6 +144,61 @@ policies:
         assert all(token not in line for line in srv.stderr_lines), name
 
 
+def test_hostile_headers_and_bodies_with_people_tokens():
+    """Headers the change reads (Authorization for people, If-None-Match for the page) and the
+    body fields a person's token makes optional (by, who), each wrong, missing and too long."""
+    d = temp_dir()
+    people = os.path.join(d, "people")
+    write_people_file(people, {"pablo": ("planner", PEOPLE["pablo"][1]), "olga": ("operator", PEOPLE["olga"][1])})
+    srv = Server("""
+server: {people_file: '%s'}
+policies:
+  - {name: p, match: '*', period: week, warmup: 0, start: {mean_of_first: 1},
+     rules: [{name: r, signal: cusum, limit: 1}]}
+""" % people, workdir=d)
+    pablo = PEOPLE["pablo"][1]
+    try:
+        feed = "series,period,value\n" + "".join("w/a,2026-W%02d,%d\n" % (w, v)
+                                                  for w, v in zip(range(1, 9), [10, 10, 10, 11, 30, 31, 32, 33]))
+        assert srv.request("POST", "/v1/actuals", feed, "text/csv", token=PEOPLE["olga"][1])[0] == 200
+        # Authorization: every malformed form is "no known token", never a crash or a match
+        # (trailing spaces are not among them: HTTP strips a field value's surrounding spaces)
+        for value in ("", "Bearer", "Bearer ", "bearer " + pablo, "Basic " + pablo, "Bearer  " + pablo,
+                      "Bearer " + pablo[:-1], "Bearer " + "x" * 6000,
+                      "Bearer " + pablo + "\u00e9".encode().decode("latin-1")):
+            status, answer, _ = srv.request("POST", "/v1/alerts/1/acknowledge", "{}", "application/json",
+                                            headers={"Authorization": value} if value else None)
+            assert status == 401, (value[:40], status, answer)
+            status, access, _ = srv.request("GET", "/v1/access", headers={"Authorization": value} if value else None)
+            assert status == 200 and access["you"] is None, (value[:40], access)
+        # by / who are optional with a person's token, but when given they must be text
+        for path, body, field in (
+                ("/v1/alerts/1/acknowledge", '{"by": 5}', "field by: must be a string"),
+                ("/v1/alerts/1/acknowledge", '{"by": ["x"]}', "field by: must be a string"),
+                ("/v1/alerts/1/acknowledge", '{"by": "%s"}' % ("x" * 5000), "field by: longer than 4096"),
+                ("/v1/alerts/1/acknowledge", '{"note": 7}', "field note: must be a string"),
+                ("/v1/alerts/1/snooze", '{}', "field until: missing"),
+                ("/v1/alerts/1/snooze", '{"until": 2027}', "field until: must be a string"),
+                ("/v1/series/w%2Fa/reset", '{"to": "last", "who": {}}', "field who: must be a string"),
+                ("/v1/series/w%2Fa/reset", '{"to": "last", "who": "%s"}' % ("y" * 5000), "field who: longer than 4096"),
+                ("/v1/series/w%2Fa/reset", '[]', "must be a JSON object")):
+            status, answer, _ = srv.request("POST", path, body, "application/json", token=pablo)
+            assert status == 400 and field in answer["error"], (path, body[:40], status, answer)
+        status, alert, _ = srv.request("GET", "/v1/alerts/1")
+        assert alert["state"] == "open", alert  # nothing above changed it
+        # If-None-Match: the page's tag gives 304 and no body; anything else the file
+        status, page, headers = srv.request("GET", "/")
+        tag = headers["ETag"]
+        raw_head, raw_body = srv.raw_exchange(("GET / HTTP/1.1\r\nHost: x\r\nIf-None-Match: %s\r\n"
+                                               "Connection: close\r\n\r\n" % tag).encode())
+        assert raw_head.startswith(b"HTTP/1.1 304") and raw_body == b"", raw_head
+        for other in ('"0000000000000000"', "*", tag + ", " + tag, "x" * 300, tag[1:-1]):
+            status, body, _ = srv.request("GET", "/", headers={"If-None-Match": other})
+            assert status == 200 and "<!doctype html>" in body, other[:40]
+    finally:
+        srv.stop()
+
+
 def test_people_file_problems_name_line_and_field():
     d = temp_dir()
     cases = [
@@ -195,4 +250,5 @@ policies:
 if __name__ == "__main__":
     sys.exit(run([test_writes_need_the_token_and_the_token_stays_secret, test_json_escapes_keys_and_queries_are_bound,
               test_each_role_against_each_write_endpoint_and_names_are_recorded,
-              test_people_file_problems_name_line_and_field]))
+              test_people_file_problems_name_line_and_field,
+              test_hostile_headers_and_bodies_with_people_tokens]))

@@ -272,9 +272,11 @@ TEST_CASE("replay --horizon writes the forecasts ahead made after each actual", 
     const double slope = std::stod(now[15]) - std::stod(now[14]);
     CHECK(std::stod(now[16]) - std::stod(now[15]) == Approx(slope).epsilon(1e-12));
   }
-  // a horizon beyond 104 is refused naming the flag
-  std::ostringstream out2, err2;
-  CHECK(forewarden::RunCommand({"replay", "--config", cfg, "--input", in, "--horizon", "105"}, out2,
-                               err2) == 2);
-  CHECK_THAT(err2.str(), Catch::Contains("--horizon"));
+  // a horizon out of 1..104, not a whole number, or empty is refused naming the flag
+  for (const char* bad : {"105", "0", "-1", "abc", "2.5", ""}) {
+    std::ostringstream out2, err2;
+    CHECK(forewarden::RunCommand({"replay", "--config", cfg, "--input", in, "--horizon", bad}, out2,
+                                 err2) == 2);
+    CHECK_THAT(err2.str(), Catch::Contains("--horizon"));
+  }
 }
