@@ -55,6 +55,7 @@ const std::set<std::string> kServerKeys = {"listen",
                                            "tls_terminated_by_proxy",
                                            "people_file",
                                            "read_queue_depth",
+                                           "max_exports",
                                            "token_for_reads"};
 const std::set<std::string> kPolicyKeys = {"name",
                                            "match",
@@ -781,6 +782,7 @@ void ReadServer(Reader& r, const YAML::Node& n, Server& s) {
   r.Int(n, "idle_timeout_seconds", path, s.idle_timeout_seconds, 1, 86400);
   r.Int(n, "queue_depth", path, s.queue_depth, 1, 100000);
   r.Int(n, "read_queue_depth", path, s.read_queue_depth, 1, 100000);
+  r.Int(n, "max_exports", path, s.max_exports, 1, 64);
   r.Int(n, "shutdown_grace_seconds", path, s.shutdown_grace_seconds, 0, 3600);
   r.Int(n, "folder_poll_ms", path, s.folder_poll_ms, 10, 3600000);
   long max_db = static_cast<long>(s.max_database_bytes);

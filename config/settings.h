@@ -99,6 +99,7 @@ struct Server {
   long idle_timeout_seconds = 60;
   long queue_depth = 64;       // batches waiting for the engine
   long read_queue_depth = 64;  // list requests waiting for the API's reader thread
+  long max_exports = 2;        // forecast exports (GET /v1/forecasts) running at once
   long shutdown_grace_seconds = 10;
   long long max_database_bytes = 0;    // cap on the database file (0 = none); over it writes fail
   long long cache_bytes = 64LL << 20;  // SQLite page cache

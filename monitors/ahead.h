@@ -27,9 +27,30 @@ namespace monitors {
 // method has no analytic interval.
 std::optional<double> RelativeVariance(Method method, const Constants& c, int h);
 
+// RelativeVariance for h = 1 .. horizon into out[0 .. horizon-1], in one pass; false (out
+// untouched) when the method has no analytic interval.
+bool RelativeVariances(Method method, const Constants& c, int horizon, double* out);
+
 // The forecasts for the periods with index next_index .. next_index + horizon - 1, from the
 // state after the last processed period; empty when the method has none yet.
 std::vector<double> ForecastAhead(Method method, const Constants& c, const ModelState& s,
                                   long next_index, int horizon);
+
+// What the forecasts ahead need of a state, small enough to copy for every series at once (an
+// export): level and trend (croston/sba: the demand rate in `level`), and the seasonal terms of
+// the next min(horizon, m) periods in order, `season_next[(h-1) % m]` for period h.
+struct AheadSeed {
+  double level = 0.0;
+  double trend = 0.0;
+};
+// The number of seasonal terms a seed of this horizon carries (0 for non-seasonal methods).
+int SeasonTermsAhead(Method method, const Constants& c, int horizon);
+// Fills `seed` and `season_next` (SeasonTermsAhead entries); false when the method has no
+// forecast yet (croston and sba before the first demand).
+bool SeedAhead(Method method, const Constants& c, const ModelState& s, long next_index, int horizon,
+               AheadSeed& seed, double* season_next);
+// The forecasts h = 1 .. horizon from a seed into out[0 .. horizon-1]; ForecastAhead's values.
+void ForecastFromSeed(Method method, const Constants& c, const AheadSeed& seed,
+                      const double* season_next, int horizon, double* out);
 
 }  // namespace monitors

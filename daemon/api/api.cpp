@@ -377,6 +377,7 @@ const std::vector<Api::Route>& Api::Routes() {
       {"GET", "/v1/series", Need::kRead, &Api::SeriesList},
       {"GET", "/v1/series/{key}/history", Need::kRead, &Api::SeriesHistory},
       {"GET", "/v1/series/{key}/forecast", Need::kRead, &Api::SeriesForecast},
+      {"GET", "/v1/forecasts", Need::kRead, &Api::Forecasts},
       {"POST", "/v1/series/{key}/reset", Need::kPlanner, &Api::SeriesReset},
       {"GET", "/v1/series/{key}", Need::kRead, &Api::SeriesDetailOf},
       {"GET", "/v1/alerts", Need::kRead, &Api::AlertList},
@@ -442,6 +443,7 @@ Api::Api(Engine& engine, std::shared_ptr<const config::Settings> settings, Acces
       metrics_(metrics),
       settings_(std::move(settings)),
       access_(std::make_shared<const Access>(std::move(access))),
+      exports_(static_cast<std::size_t>(settings_->server.max_exports)),
       reader_(static_cast<std::size_t>(settings_->server.read_queue_depth)) {}
 
 void Api::Update(std::shared_ptr<const config::Settings> settings, Access access) {
@@ -812,6 +814,52 @@ void Api::SeriesForecast(const std::shared_ptr<Call>& c) {
     auto v = engine_.FindSeries(c->key);
     if (!v) return c->Fail(Status::NotFound("no series '" + c->key + "'"));
     c->Answer(Json(200, ForecastJson(*v, h)));
+  });
+}
+
+void Api::Forecasts(const std::shared_ptr<Call>& c) {
+  ExportQuery q;
+  Result<std::int64_t> horizon =
+      ParseWholeNumber(c->ParamOr("horizon", "13"), 1, kMaxExportHorizon);
+  if (!horizon) return c->Fail(Status(horizon.status()).Prefix("horizon: "));
+  q.horizon = static_cast<int>(*horizon);
+  const std::string format = c->ParamOr("format", "csv");
+  if (format != "csv" && format != "ndjson")
+    return c->Fail(Status::Invalid("format: must be csv or ndjson"));
+  q.ndjson = format == "ndjson";
+  q.policy = c->ParamOr("policy");
+  q.label = c->ParamOr("label");
+  Result<LabelFilter> labels = LabelFilter::Parse(q.label);
+  if (!labels) return c->Fail(Status(labels.status()).Prefix("label: "));
+  if (!q.policy.empty()) {
+    const auto& policies = settings()->policies;
+    if (std::none_of(policies.begin(), policies.end(),
+                     [&](const config::Policy& p) { return p.name == q.policy; }))
+      return c->Fail(Status::Invalid("policy: no policy '" + q.policy + "'"));
+  }
+  std::shared_ptr<ExportPool::Slot> slot = exports_.Reserve();
+  if (!slot) {
+    counters_.rejected_exports_busy.fetch_add(1);
+    return c->Fail(Status::Busy(
+        "as many exports as server.max_exports allows are running; retry when one ends"));
+  }
+  OnEngine(c, [this, c, q, slot, labels = std::move(*labels)]() mutable {
+    auto seeds = std::make_shared<const ForecastSeeds>(TakeForecastSeeds(engine_, q, labels));
+    auto body = std::make_shared<BodyStream>();
+    HttpResponse r;
+    r.content_type = q.ndjson ? "application/x-ndjson" : "text/csv; charset=utf-8";
+    r.headers = {{"Forewarden-As-Of", IsoTime(seeds->as_of_ms)},
+                 {"Forewarden-Series", std::to_string(seeds->rows.size())},
+                 {"Forewarden-Rows", std::to_string(seeds->rows_total())},
+                 {"Cache-Control", "no-store"}};
+    r.stream = body;
+    exports_.Run(slot, body, [this, seeds, body] {
+      const long sent = WriteForecasts(*seeds, *body);
+      counters_.export_rows.fetch_add(sent);
+      (sent == seeds->rows_total() ? counters_.exports_complete : counters_.exports_cut)
+          .fetch_add(1);
+    });
+    c->Answer(std::move(r));
   });
 }
 

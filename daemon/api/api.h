@@ -14,6 +14,7 @@
 //   (metrics.h)
 //   GET  /v1/attention                    the planner's list (attention.h)
 //   GET  /v1/access                       how the service is protected and who the token is
+//   GET  /v1/forecasts                    every series' next H forecasts, streamed (export.h)
 //   GET  /, /page/{file}                  the planner page (web/assets.h)
 // Who may call what is the role the bearer token carries (access.h). Reads run as jobs on the
 // engine thread; the lists' passes over every series run on the reader thread over a read view
@@ -30,6 +31,7 @@
 
 #include "config/settings.h"
 #include "daemon/api/access.h"
+#include "daemon/api/export.h"
 #include "daemon/api/read_worker.h"
 #include "daemon/engine/engine.h"
 #include "daemon/http/http_server.h"
@@ -77,6 +79,7 @@ class Api {
   void SeriesDetailOf(const std::shared_ptr<Call>& c);
   void SeriesHistory(const std::shared_ptr<Call>& c);
   void SeriesForecast(const std::shared_ptr<Call>& c);
+  void Forecasts(const std::shared_ptr<Call>& c);
   void SeriesReset(const std::shared_ptr<Call>& c);
   void AlertList(const std::shared_ptr<Call>& c);
   void AlertDetail(const std::shared_ptr<Call>& c);
@@ -95,7 +98,8 @@ class Api {
   std::shared_ptr<const config::Settings> settings_;
   std::shared_ptr<const Access> access_;  // replaced whole on reload
   ApiCounters counters_;
-  ReadWorker reader_;  // last: destroyed first, while what its jobs use still exists
+  ExportPool exports_;  // after what export jobs use: destroyed before it
+  ReadWorker reader_;   // last: destroyed first, while what its jobs use still exists
 };
 
 // The longest horizon GET /v1/series/{key}/forecast serves.

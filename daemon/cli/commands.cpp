@@ -8,12 +8,14 @@
 #include <sstream>
 
 #include "config/load.h"
+#include "daemon/api/export.h"
+#include "daemon/cli/export.h"
 #include "daemon/cli/push.h"
 #include "daemon/cli/replay.h"
 #include "daemon/cli/serve.h"
 #include "daemon/cli/simulate.h"
-#include "daemon/cli/text_out.h"
 #include "daemon/common/parse_number.h"
+#include "daemon/common/text_out.h"
 #include "daemon/store/backup.h"
 
 namespace forewarden {
@@ -33,6 +35,11 @@ commands:
         folder, optional drop folder. SIGHUP reloads the settings; SIGTERM stops gracefully.
   push FILE --url URL [--batch N] [--token-file F] [--ca-file F]
         Send an actuals CSV to a running service in batches of N rows (default 5000).
+  export --out FILE [--url URL] [--policy P] [--label NAME:VALUE] [--horizon H]
+         [--format csv|ndjson] [--token-file F] [--ca-file F]
+        Fetch every matching series' next H forecasts (default 13) with their intervals
+        from a running service, all from one moment, into FILE (written as FILE.partial,
+        renamed when complete).
   backup --data DIR --to FILE
         Copy the store of a service's data folder to FILE while the service runs (SQLite
         online backup, integrity-checked). Restore: stop the service, put FILE in place of
@@ -179,7 +186,7 @@ int Replay(const std::vector<std::string>& args, std::ostream& err) {
   }
   int horizon = 0;
   if (flags.count("horizon")) {
-    Result<std::int64_t> h = ParseWholeNumber(flags["horizon"], 1, 104);
+    Result<std::int64_t> h = ParseWholeNumber(flags["horizon"], 1, kMaxExportHorizon);
     if (!h) {
       err << "forewarden replay: --horizon: " << h.status().message() << '\n';
       return 2;
@@ -323,6 +330,39 @@ int RunCommand(const std::vector<std::string>& args, std::ostream& out, std::ost
       o.batch = static_cast<long>(*v);
     }
     return RunPush(o, out, err);
+  }
+  if (cmd == "export") {
+    std::map<std::string, std::string> flags;
+    if (!ParseFlags(args, 1,
+                    {"url", "out", "policy", "label", "horizon", "format", "token-file", "ca-file"},
+                    flags, err))
+      return 2;
+    if (!flags.count("out")) {
+      err << "usage: forewarden export --out FILE [--url URL] [--policy P] [--label NAME:VALUE] "
+             "[--horizon H] [--format csv|ndjson] [--token-file F] [--ca-file F]\n";
+      return 2;
+    }
+    ExportOptions o;
+    o.out = flags["out"];
+    o.url = flags.count("url") ? flags["url"] : "http://127.0.0.1:8700";
+    o.policy = flags["policy"];
+    o.label = flags["label"];
+    o.token_file = flags["token-file"];
+    o.ca_file = flags["ca-file"];
+    if (flags.count("format")) o.format = flags["format"];
+    if (o.format != "csv" && o.format != "ndjson") {
+      err << "forewarden export: --format: must be csv or ndjson\n";
+      return 2;
+    }
+    if (flags.count("horizon")) {
+      Result<std::int64_t> v = ParseWholeNumber(flags["horizon"], 1, kMaxExportHorizon);
+      if (!v) {
+        err << "forewarden export: --horizon: " << v.status().message() << '\n';
+        return 2;
+      }
+      o.horizon = static_cast<int>(*v);
+    }
+    return RunExport(o, out, err);
   }
   if (cmd == "version" || cmd == "--version") {
     out << "forewarden " << FOREWARDEN_VERSION << '\n';

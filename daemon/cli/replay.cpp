@@ -14,22 +14,15 @@
 #include <thread>
 #include <unordered_map>
 
-#include "daemon/cli/text_out.h"
 #include "daemon/common/csv.h"
 #include "daemon/common/key_arena.h"
 #include "daemon/common/key_text.h"
 #include "daemon/common/parse_number.h"
+#include "daemon/common/text_out.h"
 #include "monitors/ahead.h"
 #include "monitors/series.h"
 
 namespace forewarden {
-
-std::string FormatNumber(double v) {
-  char tmp[32];
-  if (v == 0.0) v = 0.0;
-  auto r = std::to_chars(tmp, tmp + sizeof tmp, v);
-  return std::string(tmp, r.ptr);
-}
 
 namespace {
 

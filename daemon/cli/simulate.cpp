@@ -6,7 +6,7 @@
 #include <random>
 #include <vector>
 
-#include "daemon/cli/text_out.h"
+#include "daemon/common/text_out.h"
 
 namespace forewarden {
 namespace {

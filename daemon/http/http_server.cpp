@@ -19,6 +19,76 @@ namespace http = beast::http;
 using tcp = net::ip::tcp;
 namespace ssl = net::ssl;
 
+bool BodyStream::Write(std::string piece) {
+  std::function<void()> wake;
+  {
+    std::unique_lock lock(mu_);
+    room_.wait(lock, [this] { return cancelled_ || buffered_ < max_buffered_; });
+    if (cancelled_) return false;
+    if (piece.empty()) return true;
+    buffered_ += piece.size();
+    pieces_.push_back(std::move(piece));
+    wake = std::move(wake_);
+    wake_ = nullptr;
+  }
+  if (wake) wake();
+  return true;
+}
+
+void BodyStream::Finish() {
+  Close(End::kFinished);
+}
+
+void BodyStream::Fail() {
+  Close(End::kFailed);
+}
+
+void BodyStream::Close(End how) {
+  std::function<void()> wake;
+  {
+    std::lock_guard lock(mu_);
+    if (end_ == End::kNone) end_ = how;
+    wake = std::move(wake_);
+    wake_ = nullptr;
+  }
+  if (wake) wake();
+}
+
+void BodyStream::Cancel() {
+  {
+    std::lock_guard lock(mu_);
+    cancelled_ = true;
+    pieces_.clear();
+    buffered_ = 0;
+    wake_ = nullptr;
+  }
+  room_.notify_all();
+}
+
+bool BodyStream::cancelled() const {
+  std::lock_guard lock(mu_);
+  return cancelled_;
+}
+
+BodyStream::Take BodyStream::Next(std::string& out, std::function<void()> wake) {
+  out.clear();
+  {
+    std::lock_guard lock(mu_);
+    if (pieces_.empty()) {
+      if (end_ == End::kFinished) return Take::kEnd;
+      if (end_ == End::kFailed || cancelled_) return Take::kFailed;
+      wake_ = std::move(wake);
+      return Take::kWait;
+    }
+    out.reserve(buffered_);
+    for (std::string& p : pieces_) out += p;
+    pieces_.clear();
+    buffered_ = 0;
+  }
+  room_.notify_all();
+  return Take::kData;
+}
+
 namespace {
 
 // What the session list needs of a session of either kind.
@@ -65,6 +135,13 @@ struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Ses
   beast::flat_buffer buffer;
   std::optional<http::request_parser<http::string_body>> parser;
   std::shared_ptr<http::response<http::string_body>> response;
+  // A streamed answer: its header, serializer, the body's source and the piece being sent.
+  std::shared_ptr<http::response<http::empty_body>> stream_head;
+  std::shared_ptr<http::response_serializer<http::empty_body>> stream_serializer;
+  std::shared_ptr<BodyStream> body_stream;
+  std::string piece;
+  bool stream_chunked = true;
+  int version = 11;
   std::list<std::weak_ptr<SessionBase>>::iterator registration;
   bool first = true;
   bool busy = false;  // a request is being handled or answered
@@ -98,6 +175,7 @@ struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Ses
                            });
   }
   ~Session() {
+    if (body_stream) body_stream->Cancel();  // a producer still writing stops
     {
       std::lock_guard lock(server->sessions_mu);
       server->sessions.erase(registration);
@@ -165,8 +243,10 @@ struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Ses
     busy = true;
     http::request<http::string_body> req = parser->release();
     keep_alive = req.keep_alive();
+    version = static_cast<int>(req.version());
     HttpRequest r;
     r.method = std::string(req.method_string());
+    r.version = version;
     r.target = std::string(req.target());
     r.content_type = std::string(req[http::field::content_type]);
     r.authorization = std::string(req[http::field::authorization]);
@@ -193,6 +273,7 @@ struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Ses
 
   void Write(HttpResponse out) {
     busy = true;
+    if (out.stream) return WriteStream(std::move(out));
     response = std::make_shared<http::response<http::string_body>>();
     response->version(11);
     response->result(static_cast<unsigned>(out.status));
@@ -208,6 +289,70 @@ struct HttpServer::Impl::Session : SessionBase, std::enable_shared_from_this<Ses
     beast::get_lowest_layer(stream).expires_after(server->options.idle_timeout);
     http::async_write(stream, *response,
                       beast::bind_front_handler(&Session::OnWrite, shared_from_this()));
+  }
+
+  // A streamed body: the header now, then each piece as the producer makes it; chunked on
+  // HTTP/1.1, the connection's end marks the body's end on HTTP/1.0.
+  void WriteStream(HttpResponse out) {
+    body_stream = std::move(out.stream);
+    stream_chunked = version >= 11;
+    stream_head = std::make_shared<http::response<http::empty_body>>();
+    stream_head->version(stream_chunked ? 11 : 10);
+    stream_head->result(static_cast<unsigned>(out.status));
+    stream_head->set(http::field::server, "forewarden");
+    stream_head->set(http::field::content_type, out.content_type);
+    stream_head->set("X-Content-Type-Options", "nosniff");
+    for (auto& [name, value] : out.headers) stream_head->set(name, value);
+    if (server->stopping || !stream_chunked) keep_alive = false;
+    stream_head->keep_alive(keep_alive);
+    if (stream_chunked) stream_head->chunked(true);
+    stream_serializer = std::make_shared<http::response_serializer<http::empty_body>>(*stream_head);
+    beast::get_lowest_layer(stream).expires_after(server->options.idle_timeout);
+    http::async_write_header(stream, *stream_serializer,
+                             [self = shared_from_this()](beast::error_code ec, std::size_t) {
+                               if (ec) return self->StreamFailed();
+                               self->NextPiece();
+                             });
+  }
+
+  void NextPiece() {
+    auto self = shared_from_this();
+    const BodyStream::Take take = body_stream->Next(
+        piece, [self] { net::post(self->stream.get_executor(), [self] { self->NextPiece(); }); });
+    auto after = [self](beast::error_code ec, std::size_t) {
+      if (ec) return self->StreamFailed();
+      self->NextPiece();
+    };
+    beast::get_lowest_layer(stream).expires_after(server->options.idle_timeout);
+    switch (take) {
+      case BodyStream::Take::kWait:
+        return;
+      case BodyStream::Take::kData:
+        if (stream_chunked)
+          return net::async_write(stream, http::make_chunk(net::buffer(piece)), after);
+        return net::async_write(stream, net::buffer(piece), after);
+      case BodyStream::Take::kEnd:
+        if (!stream_chunked) return StreamDone(beast::error_code{}, 0);
+        return net::async_write(stream, http::make_chunk_last(),
+                                beast::bind_front_handler(&Session::StreamDone, self));
+      case BodyStream::Take::kFailed:
+        return StreamFailed();
+    }
+  }
+
+  void StreamDone(beast::error_code ec, std::size_t n) {
+    body_stream.reset();
+    stream_serializer.reset();
+    stream_head.reset();
+    piece.clear();
+    OnWrite(ec, n);
+  }
+
+  // The client went away, a write timed out, or the producer failed: the body stays incomplete.
+  void StreamFailed() {
+    if (body_stream) body_stream->Cancel();
+    busy = false;
+    Close();
   }
 
   void OnWrite(beast::error_code ec, std::size_t) {

@@ -9,9 +9,12 @@
 
 #include <atomic>
 #include <chrono>
+#include <condition_variable>
 #include <cstdint>
+#include <deque>
 #include <functional>
 #include <memory>
+#include <mutex>
 #include <string>
 #include <utility>
 #include <vector>
@@ -20,6 +23,7 @@ namespace forewarden {
 
 struct HttpRequest {
   std::string method;
+  int version = 11;    // 10 for HTTP/1.0, 11 for HTTP/1.1
   std::string target;  // path and query, as sent
   std::string content_type;
   std::string authorization;
@@ -27,11 +31,50 @@ struct HttpRequest {
   std::string body;
 };
 
+// A response body made on another thread while it is sent: the producer writes pieces, the
+// server sends each as it comes (chunked on HTTP/1.1; on HTTP/1.0 the connection closes after
+// the body), so a body of any size costs at most `max_buffered` bytes of memory. A body that
+// ends by Fail (or a producer that stops without Finish) closes the connection without the last
+// chunk: the client sees an incomplete body, never a short one that looks whole.
+class BodyStream {
+ public:
+  explicit BodyStream(std::size_t max_buffered = 4 << 20) : max_buffered_(max_buffered) {}
+  BodyStream(const BodyStream&) = delete;
+  BodyStream& operator=(const BodyStream&) = delete;
+
+  // Producer. Waits while `max_buffered` bytes are waiting to be sent; false when the
+  // connection has gone (or the server stops): the producer should stop.
+  bool Write(std::string piece);
+  void Finish();  // the body is complete
+  void Fail();    // the body cannot be completed
+  // Either side: the reader has gone; a waiting Write returns false.
+  void Cancel();
+  bool cancelled() const;
+
+  // Server. kData fills `out` with everything waiting; kWait: nothing yet, `wake` will be
+  // called (once, on the producer's thread) when there is.
+  enum class Take { kData, kWait, kEnd, kFailed };
+  Take Next(std::string& out, std::function<void()> wake);
+
+ private:
+  const std::size_t max_buffered_;
+  mutable std::mutex mu_;
+  std::condition_variable room_;
+  std::deque<std::string> pieces_;
+  std::size_t buffered_ = 0;
+  enum class End { kNone, kFinished, kFailed } end_ = End::kNone;
+  void Close(End how);
+  bool cancelled_ = false;
+  std::function<void()> wake_;
+};
+
 struct HttpResponse {
   int status = 200;
   std::string content_type = "application/json";
   std::string body;
   std::vector<std::pair<std::string, std::string>> headers;
+  // When set, the body comes from here instead of `body` (sent as it is produced).
+  std::shared_ptr<BodyStream> stream;
 };
 
 using Respond = std::function<void(HttpResponse)>;

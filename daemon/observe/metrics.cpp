@@ -381,6 +381,23 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
         .Increment(static_cast<double>(a->rejected_read_queue_full.load()));
     rejections.Add({{"reason", "unavailable"}})
         .Increment(static_cast<double>(a->rejected_unavailable.load()));
+    rejections.Add({{"reason", "exports_busy"}})
+        .Increment(static_cast<double>(a->rejected_exports_busy.load()));
+    auto& exports = BuildCounter()
+                        .Name("forewarden_exports_total")
+                        .Help(
+                            "Forecast exports (GET /v1/forecasts) by outcome: complete, or cut "
+                            "short when the client went away or the service stopped.")
+                        .Register(now);
+    exports.Add({{"outcome", "complete"}})
+        .Increment(static_cast<double>(a->exports_complete.load()));
+    exports.Add({{"outcome", "cut"}}).Increment(static_cast<double>(a->exports_cut.load()));
+    BuildCounter()
+        .Name("forewarden_export_rows_total")
+        .Help("Forecast rows (one series, one period ahead) sent by exports.")
+        .Register(now)
+        .Add({})
+        .Increment(static_cast<double>(a->export_rows.load()));
   }
   if (src.reloads_ok && src.reloads_failed) {
     auto& reloads = BuildCounter()

@@ -40,6 +40,10 @@ struct ApiCounters {
   std::atomic<long> rejected_queue_full{0};
   std::atomic<long> rejected_read_queue_full{0};  // lists refused at server.read_queue_depth
   std::atomic<long> rejected_unavailable{0};
+  std::atomic<long> rejected_exports_busy{0};  // exports refused at server.max_exports
+  std::atomic<long> exports_complete{0};       // GET /v1/forecasts bodies sent whole
+  std::atomic<long> exports_cut{0};            // ... cut short (the client went, or a stop)
+  std::atomic<long> export_rows{0};            // forecast rows sent by exports
   std::atomic<long> rejected_rows{0};  // rows of batches refused before the engine (bad input)
   std::atomic<long> rejected_batches{0};
   std::atomic<long> internal_errors{0};  // handlers that threw: answered 500

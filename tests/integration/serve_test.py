@@ -5,6 +5,7 @@ same (acknowledged) input.
 
 usage: FOREWARDEN_BINARY=path serve_test.py [TEST_NAME ...]"""
 import datetime
+import json
 import os
 import signal
 import socket
@@ -12,6 +13,7 @@ import subprocess
 import sys
 import threading
 import time
+import urllib.parse
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import harness  # noqa: E402
@@ -706,6 +708,122 @@ def test_push_sends_batches_and_names_file_lines():
         s.stop()
 
 
+EXPORT_SETTINGS = SETTINGS + """
+  - name: seasons
+    match: "z/*"
+    period: week
+    method: seasonal-add
+    season_length: 4
+    history: 8
+  - name: lumpy
+    match: "c/*"
+    period: week
+    method: croston
+    history: 8
+"""
+
+
+def test_forecast_export_matches_each_series_and_is_written_whole():
+    """GET /v1/forecasts gives, for every series with a forecast, the same rows as its own
+    GET /v1/series/{key}/forecast (one moment: no batch between them); CSV and NDJSON agree;
+    `forewarden export` renames its file only when complete; the parameters are checked."""
+    s = Server(EXPORT_SETTINGS)
+    try:
+        keys = ["w/a", "w/b,comma", "s/c", "z/d", "c/e", "w/late"]
+        value = lambda k, t: (0 if (k == 4 and t % 3) else 10 + (k * 7 + t * 3) % 11)  # noqa: E731
+        csv_text = "\n".join(l for l in feed(keys[:-1], 12, value=value).splitlines()
+                             if '"' not in l) + "\n"
+        csv_text = csv_text.replace("w/b,comma", '"w/b,comma"')
+        status, body, _ = s.request("POST", "/v1/actuals", csv_text, "text/csv")
+        assert status == 200, body
+        status, body, _ = s.request("POST", "/v1/actuals", "series,period,value\nw/late,%s,4\n"
+                                    % week(11), "text/csv")
+        assert status == 200, body  # one actual: a forecast from the first actual
+        status, text, hdrs = s.request("GET", "/v1/forecasts?horizon=6")
+        assert status == 200, text
+        assert hdrs["Content-Type"].startswith("text/csv") and hdrs.get("Transfer-Encoding") == "chunked"
+        import csv as csvmod
+        import io
+        rows = list(csvmod.DictReader(io.StringIO(text)))
+        assert list(rows[0].keys()) == ["key", "policy", "period", "h", "forecast", "lower", "upper"]
+        assert int(hdrs["Forewarden-Rows"]) == len(rows) == 6 * int(hdrs["Forewarden-Series"])
+        got = {}
+        for r in rows:
+            got.setdefault(r["key"], []).append(r)
+        assert sorted(got) == sorted(keys), sorted(got)
+        for key, mine in got.items():
+            status, one, _ = s.request("GET", "/v1/series/" + urllib.parse.quote(key, safe="/")
+                                       + "/forecast?horizon=6")
+            assert status == 200, one
+            assert len(one["rows"]) == len(mine) == 6
+            for a, b in zip(one["rows"], mine):
+                assert a["period"] == b["period"] and a["h"] == int(b["h"]), (a, b)
+                assert float(b["forecast"]) == a["forecast"], (key, a, b)
+                for side in ("lower", "upper"):
+                    if a[side] is None:
+                        assert b[side] == "", (key, side, b)
+                    else:
+                        assert close(float(b[side]), a[side]), (key, side, a, b)
+        assert got["c/e"][0]["lower"] == "" and got["w/a"][0]["lower"] != ""
+        status, text, hdrs = s.request("GET", "/v1/forecasts?horizon=2&format=ndjson&policy=weekly")
+        assert status == 200 and hdrs["Content-Type"] == "application/x-ndjson"
+        lines = [json.loads(l) for l in text.splitlines()]
+        assert {l["key"] for l in lines} == {"w/a", "w/b,comma", "w/late"} and len(lines) == 6
+        assert lines[0]["forecast"] == float(got[lines[0]["key"]][0]["forecast"])
+        # HTTP/1.0: no chunks; the body ends with the connection
+        head, raw = s.raw_exchange(b"GET /v1/forecasts?horizon=1 HTTP/1.0\r\n\r\n")
+        assert b" 200 " in head.split(b"\r\n")[0] and raw.count(b"\n") == 1 + 6, (head, raw)
+        for bad, needle in (("horizon=0", "horizon"), ("horizon=105", "horizon"),
+                            ("horizon=x", "horizon"), ("format=xml", "format"),
+                            ("policy=nope", "policy"), ("label=nocolon", "label")):
+            status, body, _ = s.request("GET", "/v1/forecasts?" + bad)
+            assert status == 400 and needle in body["error"], (bad, status, body)
+        out = os.path.join(s.dir, "export.csv")
+        r = subprocess.run([harness.BINARY, "export", "--url", s.url, "--out", out,
+                            "--horizon", "6"], capture_output=True, text=True,
+                           timeout=harness.DEADLINE)
+        assert r.returncode == 0, r.stderr
+        assert "exported 36 forecasts of 6 series" in r.stdout, r.stdout
+        with open(out) as f:
+            assert list(csvmod.DictReader(f)) == rows
+        assert not os.path.exists(out + ".partial")
+        r = subprocess.run([harness.BINARY, "export", "--url", s.url, "--out", out,
+                            "--policy", "nope"], capture_output=True, text=True,
+                           timeout=harness.DEADLINE)
+        assert r.returncode == 1 and "no policy 'nope'" in r.stderr, r.stderr
+        assert not os.path.exists(out + ".partial") and os.path.getsize(out) > 0
+        status, metrics, _ = s.request("GET", "/metrics")
+        assert 'forewarden_exports_total{outcome="complete"} 4' in metrics, metrics
+        assert "forewarden_export_rows_total 84" in metrics
+    finally:
+        s.stop()
+
+
+def test_an_export_cut_short_by_its_client_frees_its_slot():
+    """A client that reads the head of a large export and hangs up: the export is counted as
+    cut, its slot is free again (server.max_exports: 1) and the service answers on."""
+    s = Server(EXPORT_SETTINGS.replace("server: {", "server: {max_exports: 1, "))
+    try:
+        keys = ["w/k%04d" % i for i in range(3000)]
+        status, body, _ = s.request("POST", "/v1/actuals", feed(keys, 4), "text/csv")
+        assert status == 200, body
+        sock = socket.create_connection(("127.0.0.1", s.port), timeout=harness.DEADLINE)
+        sock.sendall(b"GET /v1/forecasts?horizon=104 HTTP/1.1\r\nHost: x\r\n\r\n")
+        assert b"200 OK" in sock.recv(4096)
+        sock.close()  # about 30 MB left unread
+        deadline = time.monotonic() + harness.DEADLINE
+        while True:
+            status, metrics, _ = s.request("GET", "/metrics")
+            if 'forewarden_exports_total{outcome="cut"} 1' in metrics:
+                break
+            assert time.monotonic() < deadline, metrics
+            time.sleep(0.05)  # polling a counter the server updates; not a synchronisation
+        status, text, hdrs = s.request("GET", "/v1/forecasts?horizon=1")
+        assert status == 200 and int(hdrs["Forewarden-Rows"]) == 3000
+    finally:
+        s.stop()
+
+
 if __name__ == "__main__":
     harness.BINARY = os.environ["FOREWARDEN_BINARY"]
     sys.exit(harness.run([
@@ -725,4 +843,6 @@ if __name__ == "__main__":
         test_invalid_utf8_in_the_path_is_answered,
         test_input_edges_are_documented_and_tested,
         test_push_survives_a_hostile_server,
+        test_forecast_export_matches_each_series_and_is_written_whole,
+        test_an_export_cut_short_by_its_client_frees_its_slot,
     ]))

@@ -71,3 +71,39 @@ TEST_CASE("forecasts ahead: flat, linear, damped, seasonal and demand rates", "[
   s.has_demand = false;
   CHECK(monitors::ForecastAhead(Method::kCroston, c, s, 7, 2).empty());
 }
+
+TEST_CASE("a seed carries what the forecasts ahead need, for horizons past the season", "[unit]") {
+  monitors::Constants c;
+  c.alpha = 0.3;
+  c.beta = 0.2;
+  c.phi = 0.9;
+  c.gamma = 0.1;
+  c.season_length = 4;
+  monitors::ModelState s;
+  s.level = 50;
+  s.trend = -1.5;
+  s.season = {2, -3, 5, -4};
+  s.has_demand = true;
+  s.size = 8;
+  s.interval = 2.5;
+  for (Method m : {Method::kSes, Method::kHolt, Method::kDamped, Method::kSeasonalAdd,
+                   Method::kSeasonalMul, Method::kCroston, Method::kSba}) {
+    for (int horizon : {1, 3, 4, 9}) {
+      const std::vector<double> want = monitors::ForecastAhead(m, c, s, 6, horizon);
+      std::vector<double> terms(static_cast<std::size_t>(horizon)), got(want.size());
+      monitors::AheadSeed seed;
+      REQUIRE(monitors::SeedAhead(m, c, s, 6, horizon, seed, terms.data()));
+      CHECK(monitors::SeasonTermsAhead(m, c, horizon) ==
+            (monitors::IsSeasonal(m) ? std::min(horizon, 4) : 0));
+      monitors::ForecastFromSeed(m, c, seed, terms.data(), horizon, got.data());
+      CHECK(got == want);
+      std::vector<double> all(static_cast<std::size_t>(horizon));
+      const bool has = monitors::RelativeVariances(m, c, horizon, all.data());
+      for (int h = 1; h <= horizon; ++h) {
+        const std::optional<double> one = monitors::RelativeVariance(m, c, h);
+        REQUIRE(has == one.has_value());
+        if (has) CHECK(all[static_cast<std::size_t>(h - 1)] == *one);
+      }
+    }
+  }
+}

@@ -6,8 +6,8 @@
 #include <sstream>
 
 #include "daemon/cli/commands.h"
-#include "daemon/cli/text_out.h"
 #include "daemon/common/parse_number.h"
+#include "daemon/common/text_out.h"
 #include "tests/temp_dir.h"
 
 using testing_support::TempDir;

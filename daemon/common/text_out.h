@@ -43,6 +43,26 @@ class TextOut {
     }
     Put('"');
   }
+  // A JSON string (RFC 8259): quotes, backslashes and control characters escaped; other bytes
+  // (UTF-8) as they are.
+  void JsonString(std::string_view s) {
+    static constexpr char kHex[] = "0123456789abcdef";
+    Put('"');
+    for (char c : s) {
+      const auto u = static_cast<unsigned char>(c);
+      if (c == '"' || c == '\\') {
+        Put('\\');
+        Put(c);
+      } else if (u < 0x20) {
+        Put("\\u00");
+        Put(kHex[u >> 4]);
+        Put(kHex[u & 15]);
+      } else {
+        Put(c);
+      }
+    }
+    Put('"');
+  }
   // Shortest text that reads back as the same double ("-0" prints as "0"). Whole numbers
   // below 1e5 take a cheaper integer path with the same text: there the fixed form is never
   // longer than the scientific one, so to_chars(double) prints exactly these digits.
@@ -115,6 +135,11 @@ class TextOut {
 };
 
 // Shortest round-trip text of a double.
-std::string FormatNumber(double v);
+inline std::string FormatNumber(double v) {
+  char tmp[32];
+  if (v == 0.0) v = 0.0;
+  auto r = std::to_chars(tmp, tmp + sizeof tmp, v);
+  return std::string(tmp, r.ptr);
+}
 
 }  // namespace forewarden

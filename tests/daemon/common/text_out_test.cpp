@@ -1,4 +1,4 @@
-#include "daemon/cli/text_out.h"
+#include "daemon/common/text_out.h"
 
 #include <catch2/catch.hpp>
 #include <charconv>
