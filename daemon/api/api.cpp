@@ -263,15 +263,17 @@ json ForecastJson(const SeriesView& v, int horizon) {
     const std::vector<double> f =
         monitors::ForecastAhead(spec.method, k, s.model, s.next_index, horizon);
     const double one = monitors::IntervalHalfWidth(spec.coverage, s.stats.mad);
+    std::vector<double> variance(f.size());
+    const bool analytic = !why && monitors::RelativeVariances(
+                                      spec.method, k, static_cast<int>(f.size()), variance.data());
     for (std::size_t i = 0; i < f.size(); ++i) {
       const int h = static_cast<int>(i) + 1;
       json row{{"h", h},
                {"period", monitors::FormatPeriod(p.period, s.last_period + h)},
                {"forecast", f[i]}};
-      const std::optional<double> rel = monitors::RelativeVariance(spec.method, k, h);
-      if (!why && rel) {
-        row["lower"] = f[i] - one * std::sqrt(*rel);
-        row["upper"] = f[i] + one * std::sqrt(*rel);
+      if (analytic) {
+        row["lower"] = f[i] - one * std::sqrt(variance[i]);
+        row["upper"] = f[i] + one * std::sqrt(variance[i]);
       } else {
         row["lower"] = nullptr;
         row["upper"] = nullptr;

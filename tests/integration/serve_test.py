@@ -434,6 +434,14 @@ BAD_REQUESTS = [
     ("GET", "/v1/series/w/a/forecast?horizon=0", None, None, 400, "horizon"),
     ("GET", "/v1/series/w/a/forecast?horizon=105", None, None, 400, "horizon"),
     ("GET", "/v1/series/w/a/forecast?horizon=1e2", None, None, 400, "horizon"),
+    ("GET", "/v1/forecasts?horizon=", None, None, 400, "horizon"),
+    ("GET", "/v1/forecasts?horizon=-1", None, None, 400, "horizon"),
+    ("GET", "/v1/forecasts?horizon=2.5", None, None, 400, "horizon"),
+    ("GET", "/v1/forecasts?horizon=99999999999999999999", None, None, 400, "horizon"),
+    ("GET", "/v1/forecasts?format=", None, None, 400, "format: must be csv or ndjson"),
+    ("GET", "/v1/forecasts?format=CSV", None, None, 400, "format"),
+    ("GET", "/v1/forecasts?label=:x", None, None, 400, "label"),
+    ("GET", "/v1/forecasts?policy=%00", None, None, 400, "policy: no policy"),
     ("GET", "/v1/series/w/none/forecast", None, None, 404, "no series"),
     ("GET", "/v1/attention?state=everything", None, None, 400, "state must be"),
     ("GET", "/v1/attention?severity=loud", None, None, 400, "severity must be"),
@@ -792,6 +800,15 @@ def test_forecast_export_matches_each_series_and_is_written_whole():
                            timeout=harness.DEADLINE)
         assert r.returncode == 1 and "no policy 'nope'" in r.stderr, r.stderr
         assert not os.path.exists(out + ".partial") and os.path.getsize(out) > 0
+        for flags, needle in ((["--horizon", "0"], "--horizon"), (["--horizon", "abc"], "--horizon"),
+                              (["--horizon", "105"], "--horizon"), (["--format", "xml"], "--format"),
+                              (["--horizon"], "needs a value"), (["--bogus", "1"], "unknown option")):
+            r = subprocess.run([harness.BINARY, "export", "--url", s.url, "--out", out] + flags,
+                               capture_output=True, text=True, timeout=harness.DEADLINE)
+            assert r.returncode == 2 and needle in r.stderr, (flags, r.returncode, r.stderr)
+        r = subprocess.run([harness.BINARY, "export", "--url", s.url], capture_output=True,
+                           text=True, timeout=harness.DEADLINE)
+        assert r.returncode == 2 and "usage: forewarden export --out FILE" in r.stderr, r.stderr
         status, metrics, _ = s.request("GET", "/metrics")
         assert 'forewarden_exports_total{outcome="complete"} 4' in metrics, metrics
         assert "forewarden_export_rows_total 84" in metrics
