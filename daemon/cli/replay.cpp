@@ -14,10 +14,7 @@
 #include <thread>
 #include <unordered_map>
 
-#include "daemon/common/csv.h"
-#include "daemon/common/key_arena.h"
-#include "daemon/common/key_text.h"
-#include "daemon/common/parse_number.h"
+#include "daemon/cli/history.h"
 #include "daemon/common/text_out.h"
 #include "monitors/ahead.h"
 #include "monitors/series.h"
@@ -25,19 +22,6 @@
 namespace forewarden {
 
 namespace {
-
-struct StringHash {
-  using is_transparent = void;
-  std::size_t operator()(std::string_view s) const { return std::hash<std::string_view>{}(s); }
-};
-
-struct SeriesSlot {
-  std::string_view key;  // in the KeyArena
-  const config::Policy* policy;
-  SeriesSlot* next_seen = nullptr;  // the series whose row followed this one's last time
-  monitors::SeriesState state;
-  std::vector<std::pair<std::size_t, std::size_t>> open;  // (rule, episode row) with --alerts
-};
 
 // One alert episode for the --alerts file.
 struct EpisodeRow {
@@ -47,36 +31,6 @@ struct EpisodeRow {
   monitors::Severity severity;
   std::string opened, escalated, resolved;
 };
-
-// A parsed period with its normalised text.
-struct ParsedPeriod {
-  monitors::PeriodParse parse;
-  char text[10];
-};
-
-// Parses a period string of one kind, remembering answers (feeds repeat few periods; the
-// cache stops growing at 100,000 distinct strings).
-class PeriodCache {
- public:
-  const ParsedPeriod& Parse(monitors::PeriodKind kind, std::string_view text) {
-    auto& cache = caches_[static_cast<int>(kind)];
-    auto it = cache.find(text);
-    if (it != cache.end()) return it->second;
-    scratch_.parse = monitors::ParsePeriod(kind, text);
-    if (scratch_.parse.ok()) monitors::FormatPeriodTo(kind, scratch_.parse.ordinal, scratch_.text);
-    if (scratch_.parse.ok() && cache.size() < 100000)
-      return cache.emplace(std::string(text), scratch_).first->second;
-    return scratch_;
-  }
-
- private:
-  std::unordered_map<std::string, ParsedPeriod, StringHash, std::equal_to<>> caches_[3];
-  ParsedPeriod scratch_;
-};
-
-std::string Where(long line, const char* field) {
-  return "line " + std::to_string(line) + ", field " + field + ": ";
-}
 
 struct OutputFile {
   std::string final_path, temp_path;
@@ -93,7 +47,7 @@ struct OutputFile {
 // One output row, computed by the engine thread and formatted by the writer thread.
 struct Row {
   std::string_view key;  // points into the KeyArena
-  const char* period;    // 10 chars, owned by the period cache (stable: node-based map)
+  const char* period;    // 10 chars, owned by the history reader (stable)
   const config::Policy* policy;
   double actual;
   monitors::StepResult result;
@@ -313,10 +267,6 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
   ReplaySummary summary;
   std::string error;
   const auto t0 = std::chrono::steady_clock::now();
-  CsvReader in(options.input);
-  if (!in.ok()) {
-    return Status::Io(in.error());
-  }
   OutputFile out_file;
   if (options.output.empty() || options.output == "-") {
     out_file.file = stdout;
@@ -330,33 +280,15 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
     out_file.owned = true;
   }
 
-  std::vector<std::string_view> fields;
-  if (!in.Next(fields)) {
-    if (!in.ok()) return Status::Io(in.error());
-    return Status::Invalid(options.input +
-                           ": empty input: expected the header series,period,value");
-  }
-  const ActualsHeader header = ReadActualsHeader(fields);
-  if (!header.problems.empty()) {
-    return Status::Invalid("line " + std::to_string(in.line()) + ": " + header.problems.front());
-  }
-  const int col_series = header.series, col_period = header.period, col_value = header.value;
-  const std::vector<std::string>& label_names = header.labels;  // other columns are labels
+  HistoryReader reader(settings, options.input);
+  if (Status opened = reader.Open(); !opened) return opened;
 
-  const std::size_t ncols = fields.size();
-
-  // Series state lives in first-seen order; feeds usually repeat the same order every period,
-  // so each slot remembers which series came next and the hash lookup is skipped when that
-  // guess is right (the memory walk is then sequential too).
-  std::deque<SeriesSlot> slots;
-  KeyArena keys;
-  std::unordered_map<std::string_view, SeriesSlot*, StringHash, std::equal_to<>> series;
-  SeriesSlot* previous = nullptr;
-  PeriodCache periods;
-  // Declared after the keys, slots and period cache that queued rows point into, so that it
-  // is destroyed (and its threads joined) first.
+  // Declared after the reader whose keys and periods queued rows point into, so that it is
+  // destroyed (and its threads joined) first.
   const bool want_episodes = !options.alerts.empty();
   std::vector<EpisodeRow> episodes;
+  // With --alerts: per series (by first-seen index), its open episodes as (rule, episode row).
+  std::vector<std::vector<std::pair<std::size_t, std::size_t>>> open_episodes;
   RowWriter writer(out_file.file, options.horizon);
   struct AbandonOnError {
     RowWriter& writer;
@@ -366,73 +298,21 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
     }
   } abandon_on_error{writer};
   std::unordered_map<const config::Policy*, std::vector<long>> opened_counts;
-  std::string problem;
   long rows = 0;
 
-  while (in.Next(fields)) {
-    const long line = in.line();
-    if (fields.size() != ncols) {
-      return Status::Invalid("line " + std::to_string(line) + ": expected " +
-                             std::to_string(ncols) + " fields, found " +
-                             std::to_string(fields.size()));
-    }
-    const std::string_view key = fields[col_series];
-    if (key.empty()) {
-      return Status::Invalid(Where(line, "series") + "the series key is empty");
-    }
-    SeriesSlot* found = previous ? previous->next_seen : nullptr;
-    if (!found || found->key != key) {
-      auto it = series.find(key);
-      if (it != series.end()) {
-        found = it->second;
-      } else {
-        if (std::string why = KeyTextProblem(key); !why.empty()) {
-          return Status::Invalid(Where(line, "series") + "the series key holds " + why);
-        }
-        std::vector<std::pair<std::string, std::string>> labels;
-        for (std::size_t i = 0; i < ncols; ++i)
-          if (!label_names[i].empty() && !fields[i].empty())
-            labels.emplace_back(label_names[i], std::string(fields[i]));
-        const config::Policy* policy = config::FindPolicy(settings, key, labels);
-        if (!policy) {
-          return Status::Invalid(Where(line, "series") + "no policy matches the series '" +
-                                 std::string(key) + "'");
-        }
-        slots.push_back(
-            SeriesSlot{keys.Add(key), policy, nullptr, monitors::NewSeriesState(policy->spec), {}});
-        found = &slots.back();
-        series.emplace(found->key, found);
-      }
-      if (previous) previous->next_seen = found;
-    }
-    previous = found;
-    SeriesSlot& slot = *found;
-    const config::Policy& policy = *slot.policy;
-    const ParsedPeriod& parsed = periods.Parse(policy.period, fields[col_period]);
-    const monitors::PeriodParse& period = parsed.parse;
-    if (!period.ok()) {
-      return Status::Invalid(Where(line, "period") + period.error);
-    }
-    double value = 0.0;
-    // Not finite (nan, inf): the step refuses it below with the same words as the service.
-    if (ReadNumber(fields[col_value], value) == NumberText::kNotANumber) {
-      return Status::Invalid(Where(line, "value") + "'" + std::string(fields[col_value]) +
-                             "' is not a number");
-    }
+  for (;;) {
     Row& row = writer.Next();
-    const monitors::StepStatus status =
-        monitors::Step(policy.spec, slot.state, period.ordinal, value, row.result, &problem);
-    const monitors::StepResult& r = row.result;
-    if (status != monitors::StepStatus::kOk) {
+    HistoryRow read;
+    const Result<bool> more = reader.Next(read, row.result);
+    if (!more || !*more) {
       writer.DropLast();
-      const char* field = status == monitors::StepStatus::kBadValue ? "value" : "period";
-      if (status == monitors::StepStatus::kNotLater)
-        problem = "period " + monitors::FormatPeriod(policy.period, period.ordinal) +
-                  " is not after the series' last period " +
-                  monitors::FormatPeriod(policy.period, slot.state.last_period) +
-                  " (periods must increase within a series)";
-      return Status::Invalid(Where(line, field) + problem + " (series '" + std::string(key) + "')");
+      if (!more) return more.status();
+      break;
     }
+    HistorySeries& slot = *read.series;
+    const config::Policy& policy = *slot.policy;
+    const ParsedPeriod& parsed = *read.period;
+    const monitors::StepResult& r = row.result;
     ++rows;
     if (options.horizon > 0 && slot.state.started)
       row.ahead = monitors::ForecastAhead(policy.spec.method,
@@ -441,7 +321,7 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
     row.key = slot.key;
     row.period = parsed.text;
     row.policy = &policy;
-    row.actual = value;
+    row.actual = read.value;
     if (r.episodes_opened) {
       auto& counts = opened_counts[&policy];
       counts.resize(policy.spec.rules.size(), 0);
@@ -449,42 +329,39 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
         if (r.episodes_opened >> i & 1) ++counts[i];
     }
     if (want_episodes) {
+      if (open_episodes.size() <= slot.index) open_episodes.resize(slot.index + 1);
+      auto& open = open_episodes[slot.index];
       const auto& rules = policy.spec.rules;
       monitors::ForEachEpisodeStep(r, rules.size(), [&](const monitors::EpisodeStep& e) {
         const std::size_t i = e.rule;
-        auto it = std::find_if(slot.open.begin(), slot.open.end(),
-                               [i](const auto& o) { return o.first == i; });
-        if (e.resolved && it != slot.open.end()) {
+        auto it =
+            std::find_if(open.begin(), open.end(), [i](const auto& o) { return o.first == i; });
+        if (e.resolved && it != open.end()) {
           episodes[it->second].resolved.assign(parsed.text, sizeof parsed.text);
-          slot.open.erase(it);
-          it = slot.open.end();
+          open.erase(it);
+          it = open.end();
         }
         if (e.opened) {
-          slot.open.push_back({i, episodes.size()});
+          open.push_back({i, episodes.size()});
           episodes.push_back({slot.key, &policy, i, rules[i].severity,
                               std::string(parsed.text, sizeof parsed.text), "", ""});
-          it = slot.open.end() - 1;
+          it = open.end() - 1;
           if (slot.state.rules[i].escalated && slot.state.rules[i].open) {
             episodes.back().severity = rules[i].escalate_severity;
             episodes.back().escalated.assign(parsed.text, sizeof parsed.text);
           }
           if (e.resolved) {  // began and ended inside the step
             episodes.back().resolved.assign(parsed.text, sizeof parsed.text);
-            slot.open.pop_back();
-            it = slot.open.end();
+            open.pop_back();
+            it = open.end();
           }
         }
-        if (e.escalated && it != slot.open.end()) {
+        if (e.escalated && it != open.end()) {
           episodes[it->second].severity = rules[i].escalate_severity;
           episodes[it->second].escalated.assign(parsed.text, sizeof parsed.text);
         }
       });
     }
-  }
-  if (!in.ok()) {
-    const std::string what = options.input + ": " + in.error();
-    if (in.error().rfind("read error", 0) == 0) return Status::Io(what);
-    return Status::Invalid(what);
   }
   abandon_on_error.done = true;
   if (!writer.Finish() || std::fflush(out_file.file) != 0) {
@@ -501,7 +378,7 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
     out_file.owned = false;
   }
   if (want_episodes && !WriteEpisodes(options.alerts, episodes, error)) return Status::Io(error);
-  summary.series = static_cast<long>(series.size());
+  summary.series = static_cast<long>(reader.series_count());
   summary.actuals = rows;
   for (const config::Policy& p : settings.policies)
     for (const auto& rule : p.spec.rules) summary.alerts_opened[p.name + "/" + rule.name] = 0;
