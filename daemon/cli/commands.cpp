@@ -3,9 +3,12 @@
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
+#include <fstream>
 #include <iostream>
 #include <map>
 #include <sstream>
+
+#include <unistd.h>
 
 #include "config/load.h"
 #include "daemon/api/export.h"
@@ -14,6 +17,7 @@
 #include "daemon/cli/replay.h"
 #include "daemon/cli/serve.h"
 #include "daemon/cli/simulate.h"
+#include "daemon/cli/tune.h"
 #include "daemon/common/parse_number.h"
 #include "daemon/common/text_out.h"
 #include "daemon/store/backup.h"
@@ -30,6 +34,12 @@ commands:
         "-" reads standard input / writes standard output (the default output).
         --alerts writes one row per alert episode: series, policy, rule, severity and the
         periods it opened, escalated and resolved (empty while still open).
+  tune --config FILE --input FILE.csv [--truth FILE.csv] [--grid FILE.yaml]
+       [--results FILE.csv] [--settings-out FILE.yaml] [--report FILE.html] [--threads N]
+        Choose each policy's smoothing constants, adaptive alpha and alert budgets from
+        history: every candidate of a grid (defaults per method, or --grid) run over the
+        same history with the service's step and rules; prints a table, writes every
+        candidate's figures, the recommended settings and an HTML report.
   serve --config FILE [--listen HOST:PORT] [--data DIR]
         Run the service: HTTP API (default 127.0.0.1:8700), durable store in the data
         folder, optional drop folder. SIGHUP reloads the settings; SIGTERM stops gracefully.
@@ -213,6 +223,68 @@ int Replay(const std::vector<std::string>& args, std::ostream& err) {
   return 0;
 }
 
+int Tune(const std::vector<std::string>& args, std::ostream& out, std::ostream& err) {
+  std::map<std::string, std::string> flags;
+  if (!ParseFlags(
+          args, 1,
+          {"config", "input", "truth", "grid", "results", "settings-out", "report", "threads"},
+          flags, err))
+    return 2;
+  if (!flags.count("config") || !flags.count("input")) {
+    err << "usage: forewarden tune --config FILE --input FILE.csv [--truth FILE.csv] "
+           "[--grid FILE.yaml] [--results FILE.csv] [--settings-out FILE.yaml] "
+           "[--report FILE.html] [--threads N]\n";
+    return 2;
+  }
+  TuneOptions o;
+  if (flags.count("threads")) {
+    Result<std::int64_t> t = ParseWholeNumber(flags["threads"], 1, 1024);
+    if (!t) {
+      err << "forewarden tune: --threads: " << t.status().message() << '\n';
+      return 2;
+    }
+    o.threads = static_cast<int>(*t);
+  }
+  o.config = flags["config"];
+  o.input = flags["input"];
+  o.truth = flags.count("truth") ? flags["truth"] : "";
+  o.grid = flags.count("grid") ? flags["grid"] : "";
+  o.results = flags.count("results") ? flags["results"] : "";
+  o.settings_out = flags.count("settings-out") ? flags["settings-out"] : "";
+  o.report = flags.count("report") ? flags["report"] : "";
+  for (const std::string* path : {&o.results, &o.settings_out, &o.report})
+    if (!path->empty() && (*path == o.config || *path == o.input)) {
+      err << "forewarden tune: " << *path << " is an input; write the outputs elsewhere\n";
+      return 2;
+    }
+  o.progress = isatty(2) != 0;
+  std::ifstream in(o.config, std::ios::binary);
+  if (!in) {
+    err << o.config << ": cannot open the settings file\n";
+    return 2;
+  }
+  std::ostringstream text;
+  text << in.rdbuf();
+  const config::LoadResult loaded = config::LoadSettingsText(text.str(), o.config);
+  if (!loaded.ok()) {
+    for (const auto& p : loaded.problems) err << p.ToString() << '\n';
+    err << loaded.problems.size() << (loaded.problems.size() == 1 ? " problem" : " problems")
+        << " in " << o.config << '\n';
+    return 2;
+  }
+  const Result<TuneSummary> summary = RunTune(loaded.settings, text.str(), o, out, err);
+  if (!summary) {
+    err << "forewarden tune: " << summary.status().message() << '\n';
+    if (summary.status().kind() == ErrorKind::kInvalid) {
+      err << "nothing was written: fix the input and run tune again\n";
+      return 2;
+    }
+    return 1;
+  }
+  err << FormatTuneSummary(*summary);
+  return 0;
+}
+
 bool ToNumber(const std::string& text, double& out) {
   char* end = nullptr;
   out = std::strtod(text.c_str(), &end);
@@ -282,6 +354,7 @@ int RunCommand(const std::vector<std::string>& args, std::ostream& out, std::ost
   }
   const std::string& cmd = args[0];
   if (cmd == "replay") return Replay(args, err);
+  if (cmd == "tune") return Tune(args, out, err);
   if (cmd == "check-config") return CheckConfig(args, out, err);
   if (cmd == "backup") {
     std::map<std::string, std::string> flags;
