@@ -157,7 +157,7 @@ bool PlanEdit(const std::string& t, const YAML::Node& root, const KeyEdit& edit,
   YAML::Node map = policy;
   std::string where = "policy '" + edit.policy + "'";
   if (!edit.rule.empty()) {
-    map = FindNamed(policy["rules"], edit.rule);
+    map.reset(FindNamed(policy["rules"], edit.rule));  // reset: `=` would overwrite the policy
     where += ", rule '" + edit.rule + "'";
     if (!map.IsDefined()) {
       problem = where + ": no such rule";

@@ -264,15 +264,15 @@ GridLoad LoadTuneGridText(const std::string& text, const std::string& name,
   GridReader g(r, settings);
   YAML::Node defaults, own;
   if (have && root["default"].IsDefined()) {
-    defaults = root["default"];
+    defaults.reset(root["default"]);
     GridAxes check;  // the section alone: ranges and keys
     g.ReadAxes(defaults, "default", nullptr, false, check);
   }
   if (have && root["policies"].IsDefined()) {
-    own = root["policies"];
+    own.reset(root["policies"]);
     if (!own.IsMap()) {
       r.Add(own, "policies", "must be a map from policy name to its axes");
-      own = YAML::Node();
+      own.reset();
     } else {
       for (auto it = own.begin(); it != own.end(); ++it) {
         const std::string pname = it->first.Scalar();
@@ -283,6 +283,7 @@ GridLoad LoadTuneGridText(const std::string& text, const std::string& name,
       }
     }
   }
+  const YAML::Node& sections = own;  // const: a lookup must not add a key
   for (const Policy& p : settings.policies) {
     GridAxes a = Defaults(p, with_truth);
     const std::size_t quiet = r.problems().size();
@@ -291,8 +292,8 @@ GridLoad LoadTuneGridText(const std::string& text, const std::string& name,
       r.problems().resize(quiet);  // reported once above, for the section alone
     }
     const std::string ppath = "policies." + p.name;
-    if (own.IsDefined() && own.IsMap() && own[p.name].IsDefined())
-      g.ReadAxes(own[p.name], ppath, &p, true, a);
+    if (sections.IsDefined() && sections.IsMap() && sections[p.name].IsDefined())
+      g.ReadAxes(sections[p.name], ppath, &p, true, a);
     const monitors::PolicySpec& s = p.spec;
     const Method m = s.method;
     WithCurrent(a.alpha, s.constants.alpha);
@@ -315,10 +316,13 @@ GridLoad LoadTuneGridText(const std::string& text, const std::string& name,
       for (const auto& v : a.adaptive)
         if (std::none_of(ad.begin(), ad.end(), [&](const auto& x) { return SameAdaptive(x, v); }))
           ad.push_back(v);
+    if (HasCapRule(s))  // an alpha_at_cap rule needs adaptive on
+      ad.erase(std::remove_if(ad.begin(), ad.end(), [](const auto& x) { return !x.enabled; }),
+               ad.end());
     a.adaptive = std::move(ad);
     if (a.candidates() > static_cast<std::size_t>(out.grid.max_candidates)) {
-      const YAML::Node at = own.IsDefined() && own.IsMap() && own[p.name].IsDefined()
-                                ? own[p.name]
+      const YAML::Node at = sections.IsDefined() && sections.IsMap() && sections[p.name].IsDefined()
+                                ? sections[p.name]
                                 : (defaults.IsDefined() ? defaults : root);
       r.Add(at, ppath,
             std::to_string(a.candidates()) + " candidates for policy '" + p.name +

@@ -39,16 +39,22 @@ def r_vector(code):
     return [None if v == "NA" else float(v) for v in out]
 
 
-def replay(binary, policy_yaml, values, tmp):
-    """Replays values as one monthly series; returns the output rows as dicts."""
-    cfg = os.path.join(tmp, "policy.yaml")
-    with open(cfg, "w") as f:
-        f.write("policies:\n  - name: ref\n    match: '*'\n    period: month\n" + policy_yaml)
+def write_monthly(values, tmp):
+    """Writes values as one monthly series `ref` from 2000-01; returns the CSV's path."""
     inp = os.path.join(tmp, "in.csv")
     with open(inp, "w") as f:
         f.write("series,period,value\n")
         for i, v in enumerate(values):
             f.write("ref,%04d-%02d,%s\n" % (2000 + i // 12, 1 + i % 12, repr(float(v))))
+    return inp
+
+
+def replay(binary, policy_yaml, values, tmp):
+    """Replays values as one monthly series; returns the output rows as dicts."""
+    cfg = os.path.join(tmp, "policy.yaml")
+    with open(cfg, "w") as f:
+        f.write("policies:\n  - name: ref\n    match: '*'\n    period: month\n" + policy_yaml)
+    inp = write_monthly(values, tmp)
     out = os.path.join(tmp, "out.csv")
     subprocess.run([binary, "replay", "--config", cfg, "--input", inp, "--output", out],
                    check=True, capture_output=True, text=True)
@@ -330,6 +336,42 @@ def case_ahead_statsmodels(binary, tmp):
     return bad
 
 
+def case_tune_r(binary, tmp):
+    """forewarden tune's accuracy figures (ME, RMSE, MAE, MASE) for a grid of ses constants
+    against R forecast's accuracy(ses(ts(x), alpha = a, initial = "simple")) training-set row
+    (Hyndman and Koehler 2006 measures; MASE scaled by the in-sample naive MAE, frequency 1).
+    R counts the first period with its error 0 (the fitted value of period 1 is x1); tune scores
+    only periods that had a forecast (2..n), so by hand: R's mean times n equals ours times n - 1
+    (for RMSE, of the squares)."""
+    bad = 0
+    alphas = (0.1, 0.3, 0.5)
+    for name, expr in DATASETS.items():
+        x = r_series(expr)
+        n = len(x)
+        cfg = os.path.join(tmp, "tune.yaml")
+        with open(cfg, "w") as f:
+            f.write("policies:\n  - name: ref\n    match: '*'\n    period: month\n"
+                    "    method: ses\n    alpha: 0.3\n")
+        grid = os.path.join(tmp, "grid.yaml")
+        with open(grid, "w") as f:
+            f.write("default: {alpha: [%s], adaptive: [off]}\n" % ", ".join(map(str, alphas)))
+        inp = write_monthly(x, tmp)
+        res = os.path.join(tmp, "results.csv")
+        subprocess.run([binary, "tune", "--config", cfg, "--input", inp, "--grid", grid,
+                        "--results", res], check=True, capture_output=True, text=True)
+        with open(res) as f:
+            rows = {float(r["alpha"]): r for r in csv.DictReader(f)}
+        for a in alphas:
+            ref = r_vector("a <- accuracy(ses(ts(%s), alpha=%r, initial='simple')); "
+                           "c(a[1, 'ME'], a[1, 'RMSE'], a[1, 'MAE'], a[1, 'MASE'])" % (expr, a))
+            r = rows[a]
+            k = (n - 1) / n
+            ours = [float(r["mean_error"]) * k, math.sqrt(float(r["rmse"]) ** 2 * k),
+                    float(r["mae"]) * k, float(r["mase"]) * k]
+            bad += compare("tune/ses %.1f/R accuracy/%s" % (a, name), ours, ref)
+    return bad
+
+
 CASES = {
     "ses-r": case_ses_r,
     "ses-statsmodels": case_ses_statsmodels,
@@ -342,6 +384,7 @@ CASES = {
     "fitted-r": case_fitted_r,
     "ahead-statsmodels": case_ahead_statsmodels,
     "ahead-r": case_ahead_r,
+    "tune-r": case_tune_r,
 }
 
 
