@@ -20,6 +20,7 @@
 #include "config/load.h"
 #include "daemon/cli/history.h"
 #include "daemon/cli/tune_report.h"
+#include "daemon/common/chunked_vector.h"
 #include "daemon/common/csv.h"
 #include "daemon/common/text_out.h"
 #include "monitors/calibrate.h"
@@ -331,6 +332,86 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
     return Status::Invalid(m);
   }
 
+  // The candidates: every combination of each policy's axes, the current settings first.
+  std::vector<Candidate> cands;
+  std::vector<std::size_t> first_of(settings.policies.size() + 1, 0);
+  for (std::size_t pi = 0; pi < settings.policies.size(); ++pi) {
+    const config::Policy& p = settings.policies[pi];
+    const config::GridAxes& a = grid.grid.policies[pi].second;
+    first_of[pi] = cands.size();
+    for (double alpha : a.alpha)
+      for (double beta : a.trend_beta)
+        for (double phi : a.damping)
+          for (double gamma : a.season_gamma)
+            for (const auto& ad : a.adaptive)
+              for (double scale : a.false_alert_scale) {
+                Candidate c;
+                c.policy = pi;
+                c.alpha = alpha;
+                c.beta = beta;
+                c.phi = phi;
+                c.gamma = gamma;
+                c.adaptive = ad;
+                c.scale = scale;
+                c.edits = EditsOf(c, p);
+                c.current = c.edits.empty();
+                cands.push_back(std::move(c));
+              }
+  }
+  first_of[settings.policies.size()] = cands.size();
+
+  // Each candidate's policy as the loader reads it from the edited settings: the limits of
+  // calibrated rules are derived for its constants exactly as check-config would. This needs
+  // no history, so it runs beside the read; a policy found to have no series in the history
+  // is skipped from then on.
+  auto say = [&](const std::string& line) {
+    if (options.progress) err << '\r' << line << "\033[K" << std::flush;
+  };
+  std::vector<std::atomic<bool>> absent(settings.policies.size());
+  std::atomic<long> prepared{0};
+  std::atomic<bool> reading{true};
+  struct Background {
+    std::thread thread;
+    std::atomic<bool> stop{false};
+    ~Background() {
+      stop = true;
+      if (thread.joinable()) thread.join();
+    }
+  } prep;
+  const auto prep_start = Clock::now();
+  prep.thread = std::thread([&] {
+    RunParallel(
+        cands.size(), threads,
+        [&](std::size_t i) {
+          Candidate& c = cands[i];
+          if (prep.stop || absent[c.policy]) return;
+          const config::Policy& p = settings.policies[c.policy];
+          if (c.edits.empty()) {
+            c.loaded = p;
+          } else {
+            std::string text, why;
+            if (!config::EditSettingsText(settings_text, c.edits, text, why)) {
+              c.problem = why;
+            } else {
+              config::LoadResult l = config::LoadSettingsText(text, options.config);
+              if (!l.ok()) {
+                c.problem = l.problems.front().ToString();
+              } else {
+                for (config::Policy& q : l.settings.policies)
+                  if (q.name == p.name) c.loaded = std::move(q);
+              }
+            }
+          }
+          prepared.fetch_add(1);
+        },
+        [&] {
+          say(std::string("tune: ") + (reading ? "reading the history; " : "") +
+              "deriving limits: " + std::to_string(prepared.load()) + " of " +
+              std::to_string(cands.size()) + " candidates");
+        });
+    summary.prepare_seconds = Seconds(prep_start);
+  });
+
   // The history, read once through replay's reader (same checks, same words).
   auto t0 = Clock::now();
   HistoryReader reader(settings, options.input);
@@ -340,7 +421,7 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
     PeriodOrdinal ord;
     double val;
   };
-  std::vector<RowRef> rows;
+  ChunkedVector<RowRef> rows;  // never moved while it grows
   {
     monitors::StepResult r;
     HistoryRow row;
@@ -371,10 +452,11 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
   }
   {
     const auto& all = reader.series();
-    std::vector<std::size_t> count(all.size(), 0), local(all.size(), 0);
-    for (const RowRef& r : rows) ++count[r.series];
+    std::vector<std::size_t> count(all.size(), 0), local(all.size(), 0), owner(all.size(), 0);
+    for (std::size_t i = 0; i < rows.size(); ++i) ++count[rows[i].series];
     for (const HistorySeries& s : all) {
-      PolicyData& d = data[policy_index[s.policy]];
+      owner[s.index] = policy_index[s.policy];
+      PolicyData& d = data[owner[s.index]];
       local[s.index] = d.keys.size();
       d.keys.push_back(s.key);
       d.begin.push_back(d.ord.size());
@@ -386,14 +468,14 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
       d.begin.push_back(d.ord.size());
       d.val.resize(d.ord.size());
     }
-    for (const RowRef& r : rows) {
-      const HistorySeries& s = all[r.series];
-      PolicyData& d = data[policy_index[s.policy]];
+    for (std::size_t i = 0; i < rows.size(); ++i) {
+      const RowRef& r = rows[i];
+      PolicyData& d = data[owner[r.series]];
       const std::size_t at = d.begin[local[r.series]] + fill[r.series]++;
       d.ord[at] = r.ord;
       d.val[at] = r.val;
     }
-    rows = {};
+    rows = ChunkedVector<RowRef>();
     for (PolicyData& d : data) {
       const monitors::PolicySpec& spec = d.policy->spec;
       const std::size_t m = monitors::IsSeasonal(spec.method)
@@ -405,71 +487,13 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
     }
   }
   summary.read_seconds = Seconds(t0);
-
-  // The candidates: every combination of each policy's axes, the current settings first.
-  std::vector<Candidate> cands;
-  std::vector<std::size_t> first_of(data.size(), 0);
-  for (std::size_t pi = 0; pi < data.size(); ++pi) {
-    const config::Policy& p = *data[pi].policy;
-    const config::GridAxes& a = grid.grid.policies[pi].second;
-    first_of[pi] = cands.size();
-    if (data[pi].keys.empty()) continue;  // no series of this policy in the history
-    for (double alpha : a.alpha)
-      for (double beta : a.trend_beta)
-        for (double phi : a.damping)
-          for (double gamma : a.season_gamma)
-            for (const auto& ad : a.adaptive)
-              for (double scale : a.false_alert_scale) {
-                Candidate c;
-                c.policy = pi;
-                c.alpha = alpha;
-                c.beta = beta;
-                c.phi = phi;
-                c.gamma = gamma;
-                c.adaptive = ad;
-                c.scale = scale;
-                c.edits = EditsOf(c, p);
-                c.current = c.edits.empty();
-                cands.push_back(std::move(c));
-              }
-  }
-  summary.candidates = static_cast<long>(cands.size());
-
-  // Each candidate's policy as the loader reads it from the edited settings: the limits of
-  // calibrated rules are derived for its constants exactly as check-config would.
-  t0 = Clock::now();
-  std::atomic<long> prepared{0};
-  auto say = [&](const std::string& line) {
-    if (options.progress) err << '\r' << line << "\033[K" << std::flush;
-  };
-  RunParallel(
-      cands.size(), threads,
-      [&](std::size_t i) {
-        Candidate& c = cands[i];
-        const config::Policy& p = *data[c.policy].policy;
-        if (c.edits.empty()) {
-          c.loaded = p;
-        } else {
-          std::string text, why;
-          if (!config::EditSettingsText(settings_text, c.edits, text, why)) {
-            c.problem = why;
-          } else {
-            config::LoadResult l = config::LoadSettingsText(text, options.config);
-            if (!l.ok()) {
-              c.problem = l.problems.front().ToString();
-            } else {
-              for (config::Policy& q : l.settings.policies)
-                if (q.name == p.name) c.loaded = std::move(q);
-            }
-          }
-        }
-        prepared.fetch_add(1);
-      },
-      [&] {
-        say("tune: deriving limits: " + std::to_string(prepared.load()) + " of " +
-            std::to_string(cands.size()) + " candidates");
-      });
-  summary.prepare_seconds = Seconds(t0);
+  reading = false;
+  for (std::size_t pi = 0; pi < data.size(); ++pi) absent[pi] = data[pi].keys.empty();
+  prep.thread.join();
+  long present = 0;
+  for (const Candidate& c : cands)
+    if (!absent[c.policy]) ++present;
+  summary.candidates = present;
 
   // Every candidate over its policy's history, the largest first.
   std::vector<std::size_t> order(cands.size());
@@ -479,14 +503,14 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
   });
   double total = 0;
   for (const Candidate& c : cands)
-    if (c.loaded) total += static_cast<double>(data[c.policy].ord.size());
+    if (c.loaded && !absent[c.policy]) total += static_cast<double>(data[c.policy].ord.size());
   std::atomic<long> done{0};
   t0 = Clock::now();
   RunParallel(
       order.size(), threads,
       [&](std::size_t i) {
         Candidate& c = cands[order[i]];
-        if (!c.loaded) return;
+        if (!c.loaded || absent[c.policy]) return;
         const PolicyData& d = data[c.policy];
         Evaluate(d, c.loaded->spec, with_truth, *d.policy, c.fig, c.problem, done);
         if (!c.problem.empty()) c.loaded.reset();
@@ -515,8 +539,8 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
   for (std::size_t pi = 0; pi < data.size(); ++pi) {
     const config::Policy& p = *data[pi].policy;
     const std::size_t from = first_of[pi];
-    const std::size_t to = pi + 1 < data.size() ? first_of[pi + 1] : cands.size();
-    if (from == to) continue;
+    const std::size_t to = first_of[pi + 1];
+    if (absent[pi]) continue;  // no series of this policy in the history
     const config::GridAxes& axes = grid.grid.policies[pi].second;
     auto rate = [&](const Candidate& c) {
       return with_truth ? c.fig.false_per_1000() : c.fig.alerts_per_1000();
@@ -640,6 +664,7 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
         "alerts_per_1000,false_alerts_per_1000,changes,changes_caught,median_delay,problem\n");
     std::vector<long> number(data.size(), 0);
     for (const Candidate& c : cands) {
+      if (absent[c.policy]) continue;
       const config::Policy& p = *data[c.policy].policy;
       const Figures& f = c.fig;
       auto num = [&](double v) {

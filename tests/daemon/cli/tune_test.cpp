@@ -84,8 +84,12 @@ TEST_CASE("tune's accuracy figures for one series match a hand computation", "[r
   // 2, 0, 4 (by hand). MAE 2, RMSE sqrt(20/3), mean error 2; the naive forecast's in-sample
   // MAE is (2 + 1 + 4) / 3, so MASE = 2 / (7/3) = 6/7 (Hyndman and Koehler 2006). At alpha 1
   // ses is the naive forecast itself: errors 2, -1, 4 and MASE exactly 1.
+  // A second policy takes no series of the history: it is left out of every output.
   const std::string cfg = dir.Write("s.yaml",
                                     "policies:\n"
+                                    "  - name: unused\n"
+                                    "    match: 'zzz*'\n"
+                                    "    period: week\n"
                                     "  - name: one\n"
                                     "    match: '*'\n"
                                     "    period: week\n"
@@ -114,6 +118,7 @@ TEST_CASE("tune's accuracy figures for one series match a hand computation", "[r
   // the current settings are more accurate: kept
   CHECK(rows[0].at("chosen") == "yes");
   CHECK(r.out.find("none (keep)") != std::string::npos);
+  CHECK(r.out.find("unused") == std::string::npos);
 }
 
 TEST_CASE("tune scores alerts against a truth file: false, caught and the delay", "[integration]") {
