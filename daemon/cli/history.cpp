@@ -151,6 +151,7 @@ Result<bool> HistoryReader::Next(HistoryRow& row, monitors::StepResult& result) 
     return Status::Invalid(Where(line, "value") + "'" + std::string(fields[m.header.value]) +
                            "' is not a number");
   }
+  const double mad_before = slot.state.stats.mad;
   const monitors::StepStatus status =
       monitors::Step(policy.spec, slot.state, period.ordinal, value, result, &m.problem);
   if (status != monitors::StepStatus::kOk) {
@@ -166,6 +167,7 @@ Result<bool> HistoryReader::Next(HistoryRow& row, monitors::StepResult& result) 
   row.period = &parsed;
   row.value = value;
   row.line = line;
+  row.mad_before = mad_before;
   return true;
 }
 

@@ -39,6 +39,7 @@ struct HistoryRow {
   const ParsedPeriod* period = nullptr;  // stable for the reader's lifetime
   double value = 0.0;
   long line = 0;
+  double mad_before = 0.0;  // the series' MAD before this row was applied
 };
 
 class HistoryReader {

@@ -17,6 +17,7 @@
 #include "daemon/cli/history.h"
 #include "daemon/common/text_out.h"
 #include "monitors/ahead.h"
+#include "monitors/diagnosis.h"
 #include "monitors/series.h"
 
 namespace forewarden {
@@ -30,7 +31,14 @@ struct EpisodeRow {
   std::size_t rule;
   monitors::Severity severity;
   std::string opened, escalated, resolved;
+  monitors::PeriodOrdinal opened_at = 0;
+  monitors::Diagnosis diagnosis;  // from the periods up to kDiagnosisPeriods after it opened
+  std::string began;              // the period the diagnosis says the change began
 };
+
+// An episode's diagnosis is made when it opens and made again with each of the next periods
+// up to this many, so that a one-off can be told from a step; it stays as it is after that.
+constexpr monitors::PeriodOrdinal kDiagnosisPeriods = 8;
 
 struct OutputFile {
   std::string final_path, temp_path;
@@ -237,7 +245,9 @@ bool WriteEpisodes(const std::string& path, const std::vector<EpisodeRow>& episo
     return false;
   }
   TextOut out(f);
-  out.Put("series,policy,rule,severity,opened,escalated,resolved\n");
+  out.Put(
+      "series,policy,rule,severity,opened,escalated,resolved,change_began,kind,level,"
+      "level_lower,level_upper,action\n");
   for (const EpisodeRow& e : episodes) {
     out.Field(e.key);
     out.Put(',');
@@ -249,6 +259,21 @@ bool WriteEpisodes(const std::string& path, const std::vector<EpisodeRow>& episo
     for (const std::string* t : {&e.opened, &e.escalated, &e.resolved}) {
       out.Put(',');
       out.Put(*t);
+    }
+    out.Put(',');
+    if (e.diagnosis.ok) {
+      const monitors::Diagnosis& d = e.diagnosis;
+      out.Put(e.began);
+      out.Put(',');
+      out.Put(monitors::ChangeKindName(d.kind));
+      for (double v : {d.level, d.lower, d.upper}) {
+        out.Put(',');
+        out.Number(v);
+      }
+      out.Put(',');
+      out.Field(d.advice);
+    } else {
+      out.Put(",,,,,");
     }
     out.Put('\n');
   }
@@ -289,6 +314,11 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
   std::vector<EpisodeRow> episodes;
   // With --alerts: per series (by first-seen index), its open episodes as (rule, episode row).
   std::vector<std::vector<std::pair<std::size_t, std::size_t>>> open_episodes;
+  // With --alerts: per series, its newest periods for the episodes' diagnosis.
+  std::vector<monitors::RecentPeriods> recent;
+  std::vector<std::size_t> touched;  // episode rows changed by this step
+  std::vector<monitors::PeriodOrdinal> d_period;
+  std::vector<double> d_actual, d_forecast, d_mad;
   RowWriter writer(out_file.file, options.horizon);
   struct AbandonOnError {
     RowWriter& writer;
@@ -329,22 +359,38 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
         if (r.episodes_opened >> i & 1) ++counts[i];
     }
     if (want_episodes) {
-      if (open_episodes.size() <= slot.index) open_episodes.resize(slot.index + 1);
+      if (open_episodes.size() <= slot.index) {
+        open_episodes.resize(slot.index + 1);
+        recent.resize(slot.index + 1);
+      }
+      recent[slot.index].Push(parsed.parse.ordinal, read.value,
+                              r.has_forecast ? r.forecast : std::nan(""), read.mad_before);
       auto& open = open_episodes[slot.index];
+      touched.clear();
       const auto& rules = policy.spec.rules;
       monitors::ForEachEpisodeStep(r, rules.size(), [&](const monitors::EpisodeStep& e) {
         const std::size_t i = e.rule;
         auto it =
             std::find_if(open.begin(), open.end(), [i](const auto& o) { return o.first == i; });
         if (e.resolved && it != open.end()) {
+          touched.push_back(it->second);
           episodes[it->second].resolved.assign(parsed.text, sizeof parsed.text);
           open.erase(it);
           it = open.end();
         }
         if (e.opened) {
           open.push_back({i, episodes.size()});
-          episodes.push_back({slot.key, &policy, i, rules[i].severity,
-                              std::string(parsed.text, sizeof parsed.text), "", ""});
+          touched.push_back(episodes.size());
+          episodes.push_back({slot.key,
+                              &policy,
+                              i,
+                              rules[i].severity,
+                              std::string(parsed.text, sizeof parsed.text),
+                              "",
+                              "",
+                              parsed.parse.ordinal,
+                              {},
+                              ""});
           it = open.end() - 1;
           if (slot.state.rules[i].escalated && slot.state.rules[i].open) {
             episodes.back().severity = rules[i].escalate_severity;
@@ -361,6 +407,23 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
           episodes[it->second].escalated.assign(parsed.text, sizeof parsed.text);
         }
       });
+      // The diagnosis of every episode open after this step or changed by it, while it is at
+      // most kDiagnosisPeriods old, from the series' newest periods (monitors/diagnosis.h).
+      for (const auto& o : open) touched.push_back(o.second);
+      if (!touched.empty()) recent[slot.index].Copy(d_period, d_actual, d_forecast, d_mad);
+      for (std::size_t e : touched) {
+        EpisodeRow& ep = episodes[e];
+        if (parsed.parse.ordinal - ep.opened_at > kDiagnosisPeriods) continue;
+        std::size_t latest = 0;
+        while (latest + 1 < d_period.size() && d_period[latest + 1] <= ep.opened_at) ++latest;
+        ep.diagnosis = monitors::Diagnose(d_actual, d_forecast, d_mad,
+                                          monitors::IsIntermittent(policy.spec.method),
+                                          policy.spec.coverage, latest);
+        if (ep.diagnosis.ok)
+          ep.began = monitors::FormatPeriod(
+              policy.period,
+              d_period[d_period.size() - 1 - static_cast<std::size_t>(ep.diagnosis.began)]);
+      }
     }
   }
   abandon_on_error.done = true;

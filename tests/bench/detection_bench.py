@@ -27,6 +27,8 @@ import sys
 import tempfile
 
 WINDOW = 13  # periods after a change within which an alert counts as its detection
+# the diagnosis' kind that names each injected kind (monitors/diagnosis.h)
+KIND_SAID = {"trend-start": "trend-up", "step-up": "step-up", "step-down": "step-down", "spike": "spike"}
 
 
 def week_index(text):
@@ -69,15 +71,21 @@ def main():
         for r in csv.DictReader(f):
             truth[r["series"]] = (week_index(r["period"]) - first_period, r["kind"], float(r["sigmas"]))
     rows = []
+    diag = collections.defaultdict(lambda: collections.defaultdict(list))
     for config in sorted(glob.glob(os.path.join(a.configs, "*.yaml"))):
         name = os.path.splitext(os.path.basename(config))[0]
         episodes = os.path.join(work, name + ".alerts.csv")
         subprocess.run([a.binary, "replay", "--config", config, "--input", feed, "--output",
                         os.devnull, "--alerts", episodes], check=True, capture_output=True)
         opened = collections.defaultdict(list)
+        diagnosis = collections.defaultdict(list)  # series -> (opened, began, kind)
         with open(episodes) as f:
             for r in csv.DictReader(f):
                 opened[r["series"]].append(week_index(r["opened"]) - first_period)
+                if r["change_began"]:
+                    diagnosis[r["series"]].append((week_index(r["opened"]) - first_period,
+                                                   week_index(r["change_began"]) - first_period,
+                                                   r["kind"]))
         warm = warmup_of(config)
         false_alerts = 0
         watched = 0
@@ -100,6 +108,11 @@ def main():
             after = [t - change_at for t in times if change_at <= t <= change_at + WINDOW]
             delay = after[0] if after else None
             delays[kind].append(delay)
+            if delay is not None:  # the diagnosis of the alert that caught the change
+                _, began, said = sorted(x for x in diagnosis[key] if x[0] == change_at + delay)[0]
+                group = kind if kind != "step-up" and kind != "step-down" or abs(sigmas) < 3 else "step >= 3 sigma"
+                for g in {group, kind}:
+                    diag[name][g].append((abs(began - change_at), said == KIND_SAID.get(kind, kind)))
             if kind in ("step-up", "step-down") and abs(sigmas) >= 3:
                 delays["step >= 3 sigma"].append(delay)
         result = {"config": name, "false_per_1000": 1000.0 * false_alerts / max(1, watched)}
@@ -122,6 +135,16 @@ def main():
             hit4, hit, med, n = r[k]
             cells.append("%.0f%% / %.0f%% / %s (n=%d)" % (100 * hit4, 100 * hit, "-" if med is None else "%g" % med, n))
         print("| %s | %.2f | %s |" % (r["config"], r["false_per_1000"], " | ".join(cells)))
+    print("\nDiagnosis of the alert that caught each change (default configuration): the change's start\n"
+          "estimated within 2 periods, and the kind named right (trend-start as trend-up)\n")
+    print("| change | caught | start within 2 periods | kind right |")
+    print("|---|---|---|---|")
+    for kind in kinds:
+        ds = diag["default"].get(kind, [])
+        if not ds:
+            continue
+        print("| %s | %d | %.0f%% | %.0f%% |" % (kind, len(ds), 100.0 * sum(1 for d, _ in ds if d <= 2) / len(ds),
+                                               100.0 * sum(1 for _, ok in ds if ok) / len(ds)))
     target = [r for r in rows if r["config"] == "default"]
     if target:
         r = target[0]

@@ -280,3 +280,38 @@ TEST_CASE("replay --horizon writes the forecasts ahead made after each actual", 
     CHECK_THAT(err2.str(), Catch::Contains("--horizon"));
   }
 }
+
+TEST_CASE("replay --alerts gives each episode its diagnosis: start, kind, level and action",
+          "[integration]") {
+  TempDir dir;
+  // A step from 10 to 40 in week 7 under ses alpha 0.1 with M = 1 before the first forecast:
+  // the spike rule (error beyond 3 sigma) opens in week 7. Diagnosis by hand over weeks 1-9
+  // (forecasts 10 for weeks 2-7, then 13 and 15.7): the start statistic is 90^2 / 3 = 2700 at
+  // week 7 against 90^2 / 4 = 2025 at week 6, so the change began in week 7; deviations 30, 30,
+  // 30: a step up to 40.
+  const std::string cfg = dir.Write("s.yaml",
+                                    "policies:\n"
+                                    "  - name: one\n"
+                                    "    match: '*'\n"
+                                    "    period: week\n"
+                                    "    alpha: 0.1\n"
+                                    "    initial_mad: 1\n"
+                                    "    rules:\n"
+                                    "      - {name: spike, signal: error, limit: 3}\n");
+  std::string csv = "series,period,value\n";
+  for (int w = 1; w <= 9; ++w)
+    csv += "a,2026-W0" + std::to_string(w) + "," + (w >= 7 ? "40" : "10") + "\n";
+  const std::string in = dir.Write("in.csv", csv);
+  std::ostringstream out, err;
+  REQUIRE(forewarden::RunCommand({"replay", "--config", cfg, "--input", in, "--output",
+                                  dir.File("o.csv"), "--alerts", dir.File("a.csv")},
+                                 out, err) == 0);
+  const std::vector<std::string> lines = Lines(TempDir::Read(dir.File("a.csv")));
+  REQUIRE(lines.size() == 2);
+  CHECK(lines[0] ==
+        "series,policy,rule,severity,opened,escalated,resolved,change_began,kind,level,"
+        "level_lower,level_upper,action");
+  CHECK(lines[1].rfind("a,one,spike,warning,2026-02-09,,", 0) == 0);
+  CHECK(lines[1].find(",2026-02-09,step-up,40,") != std::string::npos);
+  CHECK(lines[1].find(",re-level to 40") != std::string::npos);
+}
