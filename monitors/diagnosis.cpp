@@ -216,4 +216,26 @@ Diagnosis Diagnose(const std::vector<double>& y, const std::vector<double>& f,
   return d;
 }
 
+AlertDiagnosis DiagnoseAlert(const std::vector<PeriodOrdinal>& period,
+                             const std::vector<double>& actual, const std::vector<double>& forecast,
+                             const std::vector<double>& mad, PeriodOrdinal opened,
+                             bool intermittent, double coverage) {
+  AlertDiagnosis out;
+  const std::size_t n = std::min({period.size(), actual.size(), forecast.size(), mad.size()});
+  std::size_t end = 0;  // one past the newest period to use
+  while (end < n && period[end] <= opened + kDiagnosisPeriods) ++end;
+  const std::size_t from = end > kDiagnosisWindow ? end - kDiagnosisWindow : 0;
+  if (end == from) return out;
+  std::size_t latest = 0;  // the opening period, relative to `from`
+  while (from + latest + 1 < end && period[from + latest + 1] <= opened) ++latest;
+  auto slice = [&](const std::vector<double>& v) {
+    return std::vector<double>(v.begin() + static_cast<std::ptrdiff_t>(from),
+                               v.begin() + static_cast<std::ptrdiff_t>(end));
+  };
+  out.diagnosis =
+      Diagnose(slice(actual), slice(forecast), slice(mad), intermittent, coverage, latest);
+  if (out.diagnosis.ok) out.began = period[end - 1 - static_cast<std::size_t>(out.diagnosis.began)];
+  return out;
+}
+
 }  // namespace monitors

@@ -79,4 +79,19 @@ Diagnosis Diagnose(const std::vector<double>& actual, const std::vector<double>&
                    const std::vector<double>& mad, bool intermittent, double coverage,
                    std::size_t latest_start = static_cast<std::size_t>(-1));
 
+// How the service and replay diagnose an alert: from a series' periods (oldest first, any
+// number: replay's ring, the service's retained history), the newest kDiagnosisWindow of those
+// no later than kDiagnosisPeriods after the alert opened, the change looked for at or before
+// the opening period. `began` is the period the change began (when the diagnosis is ok).
+inline constexpr std::size_t kDiagnosisWindow = 26;
+inline constexpr PeriodOrdinal kDiagnosisPeriods = 8;
+struct AlertDiagnosis {
+  Diagnosis diagnosis;
+  PeriodOrdinal began = 0;
+};
+AlertDiagnosis DiagnoseAlert(const std::vector<PeriodOrdinal>& period,
+                             const std::vector<double>& actual, const std::vector<double>& forecast,
+                             const std::vector<double>& mad, PeriodOrdinal opened,
+                             bool intermittent, double coverage);
+
 }  // namespace monitors

@@ -316,6 +316,29 @@ json SeriesDetail(const SeriesView& v) {
   return out;
 }
 
+// The diagnosis of an alert (as AlertObject gives it) from its series' retained history, as
+// replay --alerts makes it; null when the series is gone or there is too little to go on.
+json DiagnosisJson(Engine& engine, const json& alert) {
+  const std::string key = alert.value("series", "");
+  const auto v = engine.FindSeries(key);
+  if (!v) return nullptr;
+  const config::Policy& p = *v->spec;
+  const monitors::PeriodParse opened =
+      monitors::ParsePeriod(p.period, alert.value("opened_period", ""));
+  if (!opened.ok()) return nullptr;
+  const Result<monitors::AlertDiagnosis> d = engine.DiagnoseAlert(key, opened.ordinal);
+  if (!d || !d->diagnosis.ok) return nullptr;
+  const monitors::Diagnosis& x = d->diagnosis;
+  return {{"change_began", monitors::FormatPeriod(p.period, d->began)},
+          {"kind", monitors::ChangeKindName(x.kind)},
+          {"level", x.level},
+          {"level_lower", x.lower},
+          {"level_upper", x.upper},
+          {"level_before", x.before},
+          {"action", monitors::SuggestedActionName(x.action)},
+          {"advice", x.advice}};
+}
+
 }  // namespace
 
 // ---- the route table -------------------------------------------------------------------------
@@ -868,12 +891,19 @@ void Api::Forecasts(const std::shared_ptr<Call>& c) {
 void Api::SeriesReset(const std::shared_ptr<Call>& c) {
   Result<Body> body = Body::Parse(c->request.body, "{\"to\": \"last\", \"who\": \"name\"}");
   if (!body) return c->Fail(body.status());
-  Result<std::string> how = body->Text("to", true, "value, last or mean");
+  Result<std::string> how = body->Text("to", true, "value, last, mean or change");
   if (!how) return c->Fail(how.status());
-  if (*how != "value" && *how != "last" && *how != "mean")
-    return c->Fail(Status::Invalid("field to: must be value, last or mean"));
+  if (*how != "value" && *how != "last" && *how != "mean" && *how != "change")
+    return c->Fail(Status::Invalid("field to: must be value, last, mean or change"));
   double value = 0;
   int k = 1;
+  std::int64_t alert_id = 0;
+  if (*how == "change") {  // the level since the change that set off this alert (its diagnosis)
+    Result<std::int64_t> a = body->Whole("alert", 1, INT64_MAX,
+                                         "the alert whose change to re-level to, with to = change");
+    if (!a) return c->Fail(a.status());
+    alert_id = *a;
+  }
   if (*how == "value") {
     Result<double> v = body->Number("value", "the new level with to = value");
     if (!v) return c->Fail(v.status());
@@ -892,8 +922,25 @@ void Api::SeriesReset(const std::shared_ptr<Call>& c) {
   *who = Actor(*c, *who);
   Result<std::string> note = body->Text("note", false, "a note for the audit log");
   if (!note) return c->Fail(note.status());
-  OnEngine(c, [this, c, how = *how, value, k, who = *who, note = *note] {
-    Result<double> level = engine_.Reset(c->key, how, value, k, who, note);
+  OnEngine(c, [this, c, how = *how, value, k, who = *who, note = *note, alert_id] {
+    double to_value = value;
+    std::string to_how = how, to_note = note;
+    if (how == "change") {
+      Result<json> alert = AlertObject(engine_.db(), alert_id);
+      if (!alert) return c->Fail(alert.status());
+      if (alert->value("series", "") != c->key)
+        return c->Fail(Status::Invalid("field alert: alert " + std::to_string(alert_id) +
+                                       " is not an alert of this series"));
+      const json d = DiagnosisJson(engine_, *alert);
+      if (d.is_null())
+        return c->Fail(Status::Conflict("alert " + std::to_string(alert_id) +
+                                        " has no diagnosis (too little retained history)"));
+      to_value = d["level"].get<double>();
+      to_how = "value";
+      to_note = "the level since the change that began in " + d["change_began"].get<std::string>() +
+                " (alert #" + std::to_string(alert_id) + ")" + (note.empty() ? "" : "; " + note);
+    }
+    Result<double> level = engine_.Reset(c->key, to_how, to_value, k, who, to_note);
     if (!level) return c->Fail(level.status());
     auto v = engine_.FindSeries(c->key);
     json out = SeriesDetail(*v);
@@ -953,6 +1000,7 @@ void Api::AlertDetail(const std::shared_ptr<Call>& c) {
   OnEngine(c, [this, c, id = *id] {
     Result<json> alert = AlertWithHistory(engine_.db(), id);
     if (!alert) return c->Fail(alert.status());
+    (*alert)["diagnosis"] = DiagnosisJson(engine_, *alert);
     c->Answer(Json(200, *alert));
   });
 }

@@ -32,13 +32,11 @@ struct EpisodeRow {
   monitors::Severity severity;
   std::string opened, escalated, resolved;
   monitors::PeriodOrdinal opened_at = 0;
-  monitors::Diagnosis diagnosis;  // from the periods up to kDiagnosisPeriods after it opened
-  std::string began;              // the period the diagnosis says the change began
+  // Made when it opens and again with each of the next monitors::kDiagnosisPeriods periods,
+  // so that a one-off can be told from a step; it stays as it is after that.
+  monitors::Diagnosis diagnosis;
+  std::string began;  // the period the diagnosis says the change began
 };
-
-// An episode's diagnosis is made when it opens and made again with each of the next periods
-// up to this many, so that a one-off can be told from a step; it stays as it is after that.
-constexpr monitors::PeriodOrdinal kDiagnosisPeriods = 8;
 
 struct OutputFile {
   std::string final_path, temp_path;
@@ -315,8 +313,8 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
   // With --alerts: per series (by first-seen index), its open episodes as (rule, episode row).
   std::vector<std::vector<std::pair<std::size_t, std::size_t>>> open_episodes;
   // With --alerts: per series, its newest periods for the episodes' diagnosis.
-  std::vector<monitors::RecentPeriods> recent;
-  std::vector<std::size_t> touched;  // episode rows changed by this step
+  std::vector<monitors::RecentPeriods> recent;  // each of monitors::kDiagnosisWindow periods
+  std::vector<std::size_t> touched;             // episode rows changed by this step
   std::vector<monitors::PeriodOrdinal> d_period;
   std::vector<double> d_actual, d_forecast, d_mad;
   RowWriter writer(out_file.file, options.horizon);
@@ -361,7 +359,7 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
     if (want_episodes) {
       if (open_episodes.size() <= slot.index) {
         open_episodes.resize(slot.index + 1);
-        recent.resize(slot.index + 1);
+        recent.resize(slot.index + 1, monitors::RecentPeriods(monitors::kDiagnosisWindow));
       }
       recent[slot.index].Push(parsed.parse.ordinal, read.value,
                               r.has_forecast ? r.forecast : std::nan(""), read.mad_before);
@@ -413,16 +411,12 @@ Result<ReplaySummary> RunReplay(const config::Settings& settings, const ReplayOp
       if (!touched.empty()) recent[slot.index].Copy(d_period, d_actual, d_forecast, d_mad);
       for (std::size_t e : touched) {
         EpisodeRow& ep = episodes[e];
-        if (parsed.parse.ordinal - ep.opened_at > kDiagnosisPeriods) continue;
-        std::size_t latest = 0;
-        while (latest + 1 < d_period.size() && d_period[latest + 1] <= ep.opened_at) ++latest;
-        ep.diagnosis = monitors::Diagnose(d_actual, d_forecast, d_mad,
-                                          monitors::IsIntermittent(policy.spec.method),
-                                          policy.spec.coverage, latest);
-        if (ep.diagnosis.ok)
-          ep.began = monitors::FormatPeriod(
-              policy.period,
-              d_period[d_period.size() - 1 - static_cast<std::size_t>(ep.diagnosis.began)]);
+        if (parsed.parse.ordinal - ep.opened_at > monitors::kDiagnosisPeriods) continue;
+        const monitors::AlertDiagnosis d = monitors::DiagnoseAlert(
+            d_period, d_actual, d_forecast, d_mad, ep.opened_at,
+            monitors::IsIntermittent(policy.spec.method), policy.spec.coverage);
+        ep.diagnosis = d.diagnosis;
+        if (d.diagnosis.ok) ep.began = monitors::FormatPeriod(policy.period, d.began);
       }
     }
   }

@@ -6,6 +6,8 @@
 #include <chrono>
 #include <cmath>
 
+#include "monitors/interval.h"
+
 namespace forewarden {
 namespace {
 
@@ -978,6 +980,35 @@ bool Engine::History(const std::string& key, std::int64_t from, std::int64_t to,
   for (HistoryRow& r : all)
     if (r.period >= from && r.period <= to) rows.push_back(r);
   return true;
+}
+
+Result<monitors::AlertDiagnosis> Engine::DiagnoseAlert(const std::string& key,
+                                                       std::int64_t opened) {
+  const long pos = index_.Find(key);
+  if (pos < 0) return Status::NotFound("no series '" + key + "'");
+  std::vector<HistoryRow> rows;
+  std::string error;
+  if (!History(key, INT64_MIN, INT64_MAX, rows, error)) return Status::StoreFailed(error);
+  const monitors::PolicySpec& spec = series_[static_cast<std::size_t>(pos)].policy->spec;
+  std::vector<monitors::PeriodOrdinal> period;
+  std::vector<double> actual, forecast, mad;
+  double previous_mad = spec.initial_mad;
+  const double per_mad = monitors::IntervalHalfWidth(spec.coverage, 1.0);
+  for (const HistoryRow& h : rows) {
+    const monitors::StepResult& r = h.result;
+    // The MAD before this period: exact from its interval when there is one (the interval is
+    // z x 1.2533 x that MAD), else the previous period's.
+    const double mad_before =
+        r.has_forecast && r.lower ? (r.forecast - *r.lower) / per_mad : previous_mad;
+    previous_mad = r.stats.mad;
+    if (!h.observed) continue;
+    period.push_back(h.period);
+    actual.push_back(h.actual);
+    forecast.push_back(r.has_forecast ? r.forecast : std::nan(""));
+    mad.push_back(mad_before);
+  }
+  return monitors::DiagnoseAlert(period, actual, forecast, mad, opened,
+                                 monitors::IsIntermittent(spec.method), spec.coverage);
 }
 
 Result<double> Engine::Reset(const std::string& key, const std::string& how, double value, int k,

@@ -36,6 +36,7 @@
 #include "daemon/engine/series_index.h"
 #include "daemon/store/alert_book.h"
 #include "daemon/store/store.h"
+#include "monitors/diagnosis.h"
 
 namespace forewarden {
 
@@ -185,6 +186,10 @@ class Engine {
   // Recomputed retained history of a series within [from, to].
   bool History(const std::string& key, std::int64_t from, std::int64_t to,
                std::vector<HistoryRow>& rows, std::string& error);
+  // The diagnosis of an alert of series `key` that opened in period `opened`, from its
+  // recomputed retained history, as replay --alerts makes it (monitors::DiagnoseAlert). Not
+  // found without the series; store failed when the history cannot be recomputed.
+  Result<monitors::AlertDiagnosis> DiagnoseAlert(const std::string& key, std::int64_t opened);
   // Re-levels a series; `how` is "value", "last" or "mean"; `k` periods for "mean". On success
   // the audit log records who and the note and the new level is returned; otherwise not found,
   // conflict (no forecast yet, an intermittent method, too few actuals), invalid or store failed.

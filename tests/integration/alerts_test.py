@@ -645,6 +645,61 @@ receivers:
         rx.close()
 
 
+def test_alert_diagnosis_agrees_with_replay_and_resets_to_the_level_since_the_change():
+    """GET /v1/alerts/{id} carries the same diagnosis replay --alerts writes for the same input
+    (start, kind, level, interval, advice), and a reset to the change re-levels to that level
+    and says so in the audit log; bad reset requests name the field."""
+    work = temp_dir()
+    cfg = os.path.join(work, "s.yaml")
+    with open(cfg, "w") as f:
+        f.write(settings())
+    body = "series,period,value\n" + csv_rows("up", UP) + csv_rows("blip", BLIP)
+    inp = os.path.join(work, "in.csv")
+    with open(inp, "w") as f:
+        f.write(body)
+    episodes_file = os.path.join(work, "alerts.csv")
+    subprocess.run([harness.BINARY, "replay", "--config", cfg, "--input", inp, "--output",
+                    os.devnull, "--alerts", episodes_file], check=True, capture_output=True)
+    import csv
+    with open(episodes_file) as f:
+        expected = {r["series"]: r for r in csv.DictReader(f)}
+    assert set(expected) == {"up", "blip"}, expected
+    assert expected["up"]["kind"] == "step-up" and expected["up"]["change_began"] == "2026-03-09", expected["up"]
+    s = Server(settings(), workdir=work)
+    try:
+        status, _ = s.post_csv(body)[:2]
+        assert status == 200
+        for key in ("up", "blip"):
+            status, got, _ = s.request("GET", "/v1/alerts?series=" + key)
+            assert status == 200, got
+            alert = got["alerts"][0]
+            status, got, _ = s.request("GET", "/v1/alerts/%d" % alert["id"])
+            d = got["diagnosis"]
+            want = expected[key]
+            assert d["change_began"] == want["change_began"] and d["kind"] == want["kind"], (d, want)
+            for ours, theirs in (("level", "level"), ("level_lower", "level_lower"), ("level_upper", "level_upper")):
+                assert harness.close(d[ours], want[theirs]), (key, ours, d, want)
+            assert d["advice"] == want["action"], (d, want)
+        up_alert = s.request("GET", "/v1/alerts?series=up")[1]["alerts"][0]["id"]
+        blip_alert = s.request("GET", "/v1/alerts?series=blip")[1]["alerts"][0]["id"]
+        for req, code, needle in (
+                ('{"to": "change", "who": "x"}', 400, "field alert: missing"),
+                ('{"to": "change", "alert": "1", "who": "x"}', 400, "field alert: must be a whole number"),
+                ('{"to": "change", "alert": 0, "who": "x"}', 400, "field alert: outside"),
+                ('{"to": "change", "alert": %d, "who": "x"}' % blip_alert, 400, "is not an alert of this series"),
+                ('{"to": "change", "alert": 999, "who": "x"}', 404, "no alert 999")):
+            status, got, _ = s.request("POST", "/v1/series/up/reset", req, "application/json")
+            assert status == code and needle in json.dumps(got), (req, status, got)
+        status, out, _ = s.request("POST", "/v1/series/up/reset",
+                                   '{"to": "change", "alert": %d, "who": "pat"}' % up_alert, "application/json")
+        assert status == 200, out
+        assert harness.close(out["reset"]["level"], expected["up"]["level"]), (out["reset"], expected["up"])
+        audit = s.request("GET", "/v1/series/up")[1]["audit"][0]
+        assert "the level since the change that began in 2026-03-09 (alert #%d)" % up_alert in json.dumps(audit), audit
+    finally:
+        s.stop()
+
+
 if __name__ == "__main__":
     sys.exit(run([test_lifecycle_api_and_replay_agree, test_webhook_signature_outage_and_recovery,
                   test_reloads_during_delivery_change_nothing_delivered,
@@ -652,4 +707,5 @@ if __name__ == "__main__":
                   test_kill9_with_undelivered_events_delivers_after_restart, test_dead_letters_and_retry,
                   test_storm_is_grouped, test_policies_show_derived_limits,
                   test_attention_list_groups_orders_filters_and_counts,
-                  test_alertmanager_shows_alerts_open_then_resolved]))
+                  test_alertmanager_shows_alerts_open_then_resolved,
+                  test_alert_diagnosis_agrees_with_replay_and_resets_to_the_level_since_the_change]))

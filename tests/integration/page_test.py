@@ -258,6 +258,15 @@ def test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api(
         b.shot("series")
         _, detail, _ = srv.request("GET", "/v1/series/%s" % series_path(key))
         alerts = [a for a in api["rows"][0]["alerts"] if a["state"] == "open"]
+        # each alert's diagnosis as the API gives it, and a reset to the level since the change
+        _, first_detail, _ = srv.request("GET", "/v1/alerts/%d" % alerts[0]["id"])
+        diagnosis = first_detail["diagnosis"]
+        assert diagnosis, first_detail
+        texts = [p.text for p in b.css("#alert-history .diagnosis")]
+        assert any(diagnosis["change_began"] in t and diagnosis["advice"] in t for t in texts), texts
+        b.one("#reset-to-change").click()
+        shown = "{:,.3f}".format(diagnosis["level"]).rstrip("0").rstrip(".")  # the page's fmt(v, 3)
+        assert "The level becomes " + shown + " " in b.one("#reset-preview").text, (shown, b.one("#reset-preview").text)
         first = alerts[0]["id"]
 
         def act(action, alert, fill):

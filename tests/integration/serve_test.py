@@ -394,7 +394,7 @@ BAD_REQUESTS = [
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "mean", "who": "x"}', 400, "field k: missing"),
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "mean", "k": "2", "who": "x"}', 400, "field k: must be a whole number"),
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "last", "who": ""}', 400, "field who: empty"),
-    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "middle", "who": "x"}', 400, "field to: must be value, last or mean"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "middle", "who": "x"}', 400, "field to: must be value, last, mean or change"),
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "last", "who": "x", "note": "%s"}' % ("n" * 5000), 400, "field note: longer than 4096 bytes"),
     ("POST", "/v1/alerts/1/acknowledge", "application/json", '{}', 400, "field by: missing"),
     ("POST", "/v1/alerts/1/acknowledge", "application/json", '{"by": ""}', 400, "field by: empty"),

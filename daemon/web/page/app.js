@@ -736,8 +736,10 @@
     return box;
   }
 
-  function resetPanel(key, detail, rows, reload) {
+  function resetPanel(key, detail, rows, reload, details) {
     const observed = rows.filter((r) => !r.filled && r.actual !== null);
+    // the newest unresolved alert with a diagnosis offers its level since the change
+    const diagnosed = (details || []).find((a) => a.state !== 'resolved' && a.diagnosis);
     const slot = answerBox();
     const radios = el('fieldset', { class: 'inline' }, el('legend', {}, 'New level'));
     const choice = (value, text, checked) => {
@@ -747,6 +749,7 @@
     choice('last', 'the last actual', true);
     choice('mean', 'the mean of the last k actuals', false);
     choice('value', 'a value', false);
+    if (diagnosed) choice('change', 'the level since the change (alert #' + diagnosed.id + ')', false);
     const k = el('input', { id: 'reset-k', type: 'number', min: '1', max: '100000', step: '1', value: '4' });
     const value = el('input', { id: 'reset-value', type: 'number', step: 'any' });
     const note = el('textarea', { id: 'reset-note', rows: '2', maxlength: '4096' });
@@ -755,6 +758,7 @@
     const level = () => {
       const to = radios.querySelector('input:checked').value;
       if (to === 'last') return observed.length ? observed[observed.length - 1].actual : null;
+      if (to === 'change') return diagnosed.diagnosis.level;
       if (to === 'mean') {
         const n = Math.floor(Number(k.value));
         if (!(n >= 1)) return null;
@@ -781,6 +785,7 @@
       const body = { to, note: note.value };
       if (to === 'mean') body.k = Math.floor(Number(k.value));
       if (to === 'value') body.value = Number(value.value);
+      if (to === 'change') body.alert = diagnosed.id;
       if (who) body.who = who.querySelector('input').value.trim();
       send('v1/series/' + encodeURIComponent(key) + '/reset', body, slot,
         (a) => 'Re-levelled to ' + fmt(a.reset.level, 3) + ' by ' + a.reset.who + '; the next forecast is ' + fmt(a.forecast, 3) + '.',
@@ -798,8 +803,12 @@
         const deliveries = (e.deliveries || []).map((d) => d.sink + ': ' + d.state + (d.attempts ? ' after ' + d.attempts + ' attempt(s)' : '') + (d.last_error ? ' (' + d.last_error + ')' : '')).join('; ');
         events.append(el('li', {}, e.at + ' \u2014 ' + e.kind + (e.by ? ' by ' + e.by : '') + (e.note ? ': \u201c' + e.note + '\u201d' : '') + (deliveries ? ' [' + deliveries + ']' : '')));
       }
+      const d = a.diagnosis;
+      const diagnosis = d ? el('p', { class: 'diagnosis' }, el('strong', {}, 'Diagnosis: '),
+        d.kind.replace('-', ' ') + ' from ' + d.change_began + '; level since ' + fmt(d.level, 3) +
+        ' (' + fmt(d.level_lower, 3) + ' to ' + fmt(d.level_upper, 3) + ', before ' + fmt(d.level_before, 3) + '). Suggested: ' + d.advice + '.') : null;
       list.append(el('div', { class: 'alert-item' }, sevTag(a.severity, a.rule + ' #' + a.id), el('span', { class: 'tag st-mute' }, a.state),
-        el('span', { class: 'muted' }, ' ' + a.opened_period + (a.resolved_period ? ' to ' + a.resolved_period : '') + (a.resolved_reason ? ' (' + a.resolved_reason + ')' : '')), events));
+        el('span', { class: 'muted' }, ' ' + a.opened_period + (a.resolved_period ? ' to ' + a.resolved_period : '') + (a.resolved_reason ? ' (' + a.resolved_reason + ')' : '')), diagnosis, events));
     }
     return el('section', { class: 'panel', 'aria-labelledby': 'history-title' }, el('h2', { id: 'history-title' }, 'Alert history'), list);
   }
@@ -881,7 +890,7 @@
     const work = el('section', { class: 'panel', 'aria-labelledby': 'work-title' }, el('h2', { id: 'work-title' }, 'Work the alerts'), readOnlyNote());
     if (!unresolved.length) work.append(el('p', { class: 'muted' }, 'No unresolved alert on this series.'));
     for (const a of unresolved) work.append(alertActions(a, key, reload));
-    main.append(el('div', { class: 'panels' }, work, resetPanel(key, detail, rows, reload)));
+    main.append(el('div', { class: 'panels' }, work, resetPanel(key, detail, rows, reload, details)));
     main.append(rowTable(key, rows));
     main.append(el('div', { class: 'panels' }, historyPanel(details), auditPanel(detail.audit || [])));
     main.dataset.ready = 'series';
