@@ -122,7 +122,7 @@ class RecentWindow {
     Header h = header();
     if (capacity != h.cap || !buf_) {
       buf_.reset(new float[Size(capacity)]);
-      h = Header{capacity, 0, 0};
+      h = Header{capacity, 0, 0, 0};
     }
     float* at = data() + kFields * h.head;
     at[0] = static_cast<float>(error);
@@ -168,12 +168,17 @@ class RecentWindow {
  private:
   // One allocation: a 8-byte header (capacity, next slot, count) then the periods, so that a
   // series pays one pointer when it has no window.
-  struct Header {  // trivial: copied in and out of the float buffer with memcpy
-    std::uint16_t cap, head, count;
+  // Trivial: copied in and out of the float buffer with memcpy. Eight bytes, the two floats the
+  // buffer keeps for it, so that it is written and read back as one 8-byte word (a 6-byte
+  // header was stored in two pieces and loaded in one, which the processor cannot forward from
+  // the stores: a stall on every step of a policy with a window).
+  struct Header {
+    std::uint16_t cap, head, count, unused;
   };
+  static_assert(sizeof(Header) == 2 * sizeof(float));
   static std::size_t Size(std::size_t cap) { return 2 + kFields * cap; }
   Header header() const {
-    Header h{0, 0, 0};
+    Header h{0, 0, 0, 0};
     if (buf_) std::memcpy(&h, buf_.get(), sizeof h);
     return h;
   }

@@ -290,6 +290,7 @@ void RunParallel(std::size_t n, int threads, Work&& work, Tick&& tick) {
   std::condition_variable cv;
   int running = threads;
   std::vector<std::thread> pool;
+  pool.reserve(static_cast<std::size_t>(threads));
   for (int t = 0; t < threads; ++t)
     pool.emplace_back([&] {
       for (std::size_t i; (i = next.fetch_add(1)) < n;) work(i);
