@@ -95,6 +95,7 @@ constexpr const char* kScript = R"js(
     });
     rows.sort(function (a, b) { return a[0] - b[0]; });
     var el = document.getElementById('chart-' + k);
+    el.setAttribute('data-points', String(rows.length));
     if (!rows.length) { el.textContent = 'No candidate has both figures to plot.'; return; }
     new Dygraph(el, rows, {
       labels: [p.rate_name + ' per 1,000 series-periods', 'over the ceiling', 'within the ceiling', 'chosen', 'now'],
@@ -111,6 +112,7 @@ constexpr const char* kScript = R"js(
       }
     });
   });
+  document.getElementById('main').setAttribute('data-ready', 'report');
 })();
 )js";
 
@@ -127,7 +129,8 @@ std::string TuneReportHtml(const std::string& heading, const std::vector<ReportP
   out.Put("</style>\n</head><body>\n<header><h1>Tuning report</h1><div>");
   Html(out, heading);
   out.Put(
-      "</div></header>\n<main>\n<p class=\"note\">Each point is one candidate setting of a "
+      "</div></header>\n<main id=\"main\">\n<p class=\"note\">Each point is one candidate setting "
+      "of a "
       "policy, run over the same history with the service's own step and rules. Lower is "
       "more accurate (MASE: mean absolute error over that of the naive forecast); further "
       "left raises fewer alerts. The dashed line is the ceiling on the alert rate: the "

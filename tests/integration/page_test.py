@@ -515,10 +515,48 @@ def test_each_view_at_1280_and_360_wide_with_screenshots_and_timing():
         srv.stop()
 
 
+def test_tune_report_draws_every_candidate_of_every_policy():
+    """forewarden tune's HTML report, opened from disk: one chart per policy with a point for
+    every candidate that ran (read from the chart), the chosen candidate marked in each table,
+    nothing fetched and no console error."""
+    d = temp_dir()
+    feed(d, series=200, periods=80)
+    cfg = os.path.join(d, "tune.yaml")
+    with open(cfg, "w") as f:
+        f.write(SETTINGS.replace("policies:\n", "policies:\n  - {name: slow, match: '*/sku-9*', period: week, "
+                                 "method: sba, rules: [{name: bias, signal: trigg, limit: 0.7}]}\n"))
+    report, results = os.path.join(d, "report.html"), os.path.join(d, "results.csv")
+    subprocess.run([BINARY, "tune", "--config", cfg, "--input", os.path.join(d, "feed.csv"), "--truth",
+                    os.path.join(d, "truth.csv"), "--report", report, "--results", results],
+                   check=True, capture_output=True, timeout=DEADLINE)
+    import csv
+    with open(results) as f:
+        rows = list(csv.DictReader(f))
+    policies = []
+    for r in rows:
+        if r["policy"] not in policies:
+            policies.append(r["policy"])
+    b = Browser()
+    try:
+        b.open("file://" + report, "report")
+        assert len(b.css("section")) == len(policies) == 2, policies
+        for k, name in enumerate(policies):
+            ran = [r for r in rows if r["policy"] == name and r["mase"] and r["false_alerts_per_1000"]]
+            assert b.one("#chart-%d" % k).get_attribute("data-points") == str(len(ran)), name
+            assert len(b.css("#chart-%d canvas" % k)) >= 1
+        chosen = b.css("tr.chosen")
+        assert len(chosen) == len(policies)
+        assert not b.js("return performance.getEntriesByType('resource').filter(e => !e.name.startsWith('file:')).length")
+        b.shot("tune-report")
+    finally:
+        b.close()
+
+
 if __name__ == "__main__":
     sys.exit(run([test_attention_list_matches_the_api_and_the_keyboard_opens_a_series,
                   test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api,
                   test_a_hostile_key_shows_as_text_and_no_script_runs,
                   test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so,
                   test_when_reads_need_a_token_the_page_asks_first_then_shows_the_list,
-                  test_each_view_at_1280_and_360_wide_with_screenshots_and_timing]))
+                  test_each_view_at_1280_and_360_wide_with_screenshots_and_timing,
+                  test_tune_report_draws_every_candidate_of_every_policy]))
