@@ -253,7 +253,11 @@ int Tune(const std::vector<std::string>& args, std::ostream& out, std::ostream& 
   o.settings_out = flags.count("settings-out") ? flags["settings-out"] : "";
   o.report = flags.count("report") ? flags["report"] : "";
   for (const std::string* path : {&o.results, &o.settings_out, &o.report})
-    if (!path->empty() && (*path == o.config || *path == o.input)) {
+    if (*path == "-") {
+      err << "forewarden tune: the outputs are files; '-' is not one (the table goes to standard "
+             "output)\n";
+      return 2;
+    } else if (!path->empty() && (*path == o.config || *path == o.input)) {
       err << "forewarden tune: " << *path << " is an input; write the outputs elsewhere\n";
       return 2;
     }

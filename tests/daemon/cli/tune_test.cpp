@@ -213,6 +213,9 @@ TEST_CASE("tune refuses a bad history exactly as replay does, and writes nothing
   const Run same = Command({"tune", "--config", cfg, "--input", in, "--results", in});
   CHECK(same.rc == 2);
   CHECK(same.err.find("is an input") != std::string::npos);
+  const Run dash = Command({"tune", "--config", cfg, "--input", in, "--report", "-"});
+  CHECK(dash.rc == 2);
+  CHECK(dash.err.find("'-' is not one") != std::string::npos);
   const Run threads = Command({"tune", "--config", cfg, "--input", in, "--threads", "0"});
   CHECK(threads.rc == 2);
   CHECK(threads.err.find("--threads") != std::string::npos);
