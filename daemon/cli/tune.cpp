@@ -249,6 +249,8 @@ Status ReadTruth(const std::string& path, const HistoryReader& reader,
     return Status::Invalid(path + ": empty: expected the header series,period,kind");
   }
   int cs = -1, cp = -1;
+  if (!fields.empty() && fields[0].substr(0, 3) == "\xEF\xBB\xBF")  // a byte-order mark
+    fields[0].remove_prefix(3);
   for (std::size_t i = 0; i < fields.size(); ++i) {
     if (fields[i] == "series") cs = static_cast<int>(i);
     if (fields[i] == "period") cp = static_cast<int>(i);
@@ -415,8 +417,9 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
 
   // The history, read once through replay's reader (same checks, same words).
   auto t0 = Clock::now();
+  const std::string input_name = options.input == "-" ? "<stdin>" : options.input;
   HistoryReader reader(settings, options.input);
-  if (Status s = reader.Open(); !s) return s.Prefix(options.input + ": ");
+  if (Status s = reader.Open(); !s) return s.Prefix(input_name + ": ");
   struct RowRef {
     std::uint32_t series;
     PeriodOrdinal ord;
@@ -428,10 +431,10 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
     HistoryRow row;
     for (;;) {
       const Result<bool> more = reader.Next(row, r);
-      if (!more) return Status(more.status()).Prefix(options.input + ": ");
+      if (!more) return Status(more.status()).Prefix(input_name + ": ");
       if (!*more) break;
       if (row.series->index > std::numeric_limits<std::uint32_t>::max())
-        return Status::Invalid(options.input + ": more than 4,294,967,295 series");
+        return Status::Invalid(input_name + ": more than 4,294,967,295 series");
       rows.push_back(
           {static_cast<std::uint32_t>(row.series->index), row.period->parse.ordinal, row.value});
     }

@@ -146,8 +146,8 @@ TEST_CASE("tune scores alerts against a truth file: false, caught and the delay"
   }
   const std::string in = dir.Write("in.csv", csv);
   const std::string truth = dir.Write("t.csv",
-                                      "series,period,kind\n"
-                                      "a,2026-02-11,step-up\n"  // a date inside week 7
+                                      "\xEF\xBB\xBFseries,period,kind\n"  // with a byte-order mark
+                                      "a,2026-02-11,step-up\n"            // a date inside week 7
                                       "zzz,2026-W03,step-up\n");
   const std::string grid = dir.Write("g.yaml", "default: {alpha: [0.5], adaptive: [off]}\n");
   const Run r = Command({"tune", "--config", cfg, "--input", in, "--truth", truth, "--grid", grid,
