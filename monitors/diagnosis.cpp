@@ -82,10 +82,23 @@ Diagnosis Diagnose(const std::vector<double>& y, const std::vector<double>& f,
                    std::size_t latest_start) {
   Diagnosis d;
   const std::size_t n = std::min({y.size(), f.size(), mad.size()});
-  // The start: the candidate k (with a forecast) maximising (sum of y_i - f_k, i >= k)^2 / m.
+  // A one-off at the period the alert opened comes first: one outlier would otherwise dominate
+  // the mean-shift statistic below and drag the start back to any run of noise before it.
   std::size_t best = n;
+  const std::size_t opened = std::min(latest_start, n == 0 ? 0 : n - 1);
+  if (n > 0 && std::isfinite(f[opened]) && mad[opened] > 0) {
+    const double s = kSigmaPerMad * mad[opened];
+    double rest = 0;
+    for (std::size_t i = opened + 1; i < n; ++i) rest += std::fabs(y[i] - f[opened]);
+    if (opened + 1 < n) rest /= static_cast<double>(n - opened - 1);
+    // ...and the period before it was not already off: that would be a step under way
+    const bool before_calm = opened == 0 || !std::isfinite(f[opened - 1]) ||
+                             std::fabs(y[opened - 1] - f[opened - 1]) < 1.5 * s;
+    if (std::fabs(y[opened] - f[opened]) > 3 * s && rest < 1.5 * s && before_calm) best = opened;
+  }
+  // The start: the candidate k (with a forecast) maximising (sum of y_i - f_k, i >= k)^2 / m.
   double best_t = -1.0;
-  for (std::size_t k = 0; k < n && k <= latest_start; ++k) {
+  for (std::size_t k = 0; k < n && k <= latest_start && best != opened; ++k) {
     if (!std::isfinite(f[k])) continue;
     double sum = 0;
     for (std::size_t i = k; i < n; ++i) sum += y[i] - f[k];

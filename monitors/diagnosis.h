@@ -1,13 +1,15 @@
 // The diagnosis of an alert: what a series' recent actuals and forecasts say about the change
 // that set it off. Pure: values in, values out.
 //
-// The change's start: over the newest n periods (oldest first) with actuals y and the
-// forecasts f fixed before each, for every candidate start k the actuals from k on are compared
-// with the level the series had before k (its forecast f[k], made before k's actual). The
-// start is the k that maximises (sum_{i>=k} (y_i - f_k))^2 / (n - k): the maximum-likelihood
-// change point for a mean that moves from a known level to an unknown constant at k, with
-// normal noise of constant variance (Hinkley 1970; Page 1954 for the cumulative-sum form). The
-// later k wins a tie.
+// A one-off first: when the period the alert opened in is beyond 3 sigma from its forecast, the
+// period before it was within 1.5 sigma of its own, and the periods after it (if any) are back
+// within 1.5 sigma of that forecast on average, the change is a spike that began there. Otherwise
+// the change's start: over the newest n periods (oldest first) with actuals y and the forecasts f
+// fixed before each, for every candidate start k the actuals from k on are compared with the level
+// the series had before k (its forecast f[k], made before k's actual). The start is the k that
+// maximises (sum_{i>=k} (y_i - f_k))^2 / (n - k): the maximum-likelihood change point for a mean
+// that moves from a known level to an unknown constant at k, with normal noise of constant variance
+// (Hinkley 1970; Page 1954 for the cumulative-sum form). The later k wins a tie.
 //
 // The kind, from the deviations d_i = y_i - f_k since the start, their count m and the noise
 // sigma (1.2533 x the MAD before the start):
