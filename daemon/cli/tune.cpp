@@ -317,6 +317,11 @@ std::string Fixed(double v, int digits) {
   return b;
 }
 
+// A share as a whole percentage, "-" when there is none (no changes to catch).
+std::string Percent(double share) {
+  return std::isnan(share) ? std::string("-") : Fixed(100 * share, 0) + "%";
+}
+
 }  // namespace
 
 Result<TuneSummary> RunTune(const config::Settings& settings, const std::string& settings_text,
@@ -592,8 +597,7 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
     std::string rates = Fixed(rate(*now), 2) + " / " + Fixed(rate(*best), 2);
     std::string caught;
     if (with_truth)
-      caught = "  " + Fixed(100 * now->fig.caught_share(), 0) + "% / " +
-               Fixed(100 * best->fig.caught_share(), 0) + "%";
+      caught = "  " + Percent(now->fig.caught_share()) + " / " + Percent(best->fig.caught_share());
     std::snprintf(
         line, sizeof line, "%-20s %10zu  %-17s %-17s %-21s%s  %s\n", p.name.c_str(), to - from,
         (Fixed(now->fig.mase(), 3) + " / " + Fixed(best->fig.mase(), 3)).c_str(),
