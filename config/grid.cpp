@@ -1,7 +1,6 @@
 #include "config/grid.h"
 
 #include <algorithm>
-#include <fstream>
 #include <set>
 #include <sstream>
 
@@ -78,11 +77,6 @@ void WithCurrent(std::vector<double>& axis, double current) {
   axis = std::move(out);
 }
 
-bool SameAdaptive(const monitors::AdaptiveSpec& a, const monitors::AdaptiveSpec& b) {
-  if (!a.enabled || !b.enabled) return a.enabled == b.enabled;
-  return a.floor == b.floor && a.cap == b.cap && a.lagged == b.lagged;
-}
-
 class GridReader {
  public:
   GridReader(YamlReader& r, const Settings& settings) : r_(r), settings_(settings) {}
@@ -130,15 +124,7 @@ class GridReader {
       return;
     }
     std::vector<YAML::Node> items;
-    if (ad.IsSequence()) {
-      for (std::size_t i = 0; i < ad.size(); ++i) items.push_back(ad[i]);
-    } else {
-      items.push_back(ad);
-    }
-    if (items.empty() || items.size() > kMaxAxisValues) {
-      r_.Add(ad, ap, "must list 1 to " + std::to_string(kMaxAxisValues) + " values");
-      return;
-    }
+    if (!Items(ad, ap, items)) return;
     std::vector<monitors::AdaptiveSpec> out;
     for (std::size_t i = 0; i < items.size(); ++i) {
       const YAML::Node it = items[i];
@@ -181,6 +167,22 @@ class GridReader {
     return list;
   }
 
+  // The values of an axis: a list, or one value; false (a problem added) when it lists none or
+  // more than kMaxAxisValues.
+  bool Items(const YAML::Node& v, const std::string& path, std::vector<YAML::Node>& items) {
+    items.clear();
+    if (v.IsSequence()) {
+      for (std::size_t i = 0; i < v.size(); ++i) items.push_back(v[i]);
+    } else {
+      items.push_back(v);
+    }
+    if (items.empty() || items.size() > kMaxAxisValues) {
+      r_.Add(v, path, "must list 1 to " + std::to_string(kMaxAxisValues) + " values");
+      return false;
+    }
+    return true;
+  }
+
   // A list of numbers (or one number) in (lo, hi].
   void Numbers(const YAML::Node& n, const std::string& path, const char* key, double lo, double hi,
                std::vector<double>& out, bool applies, bool own, const char* why_not = "") {
@@ -192,15 +194,7 @@ class GridReader {
       return;
     }
     std::vector<YAML::Node> items;
-    if (v.IsSequence()) {
-      for (std::size_t i = 0; i < v.size(); ++i) items.push_back(v[i]);
-    } else {
-      items.push_back(v);
-    }
-    if (items.empty() || items.size() > kMaxAxisValues) {
-      r_.Add(v, kp, "must list 1 to " + std::to_string(kMaxAxisValues) + " values");
-      return;
-    }
+    if (!Items(v, kp, items)) return;
     std::vector<double> values;
     for (std::size_t i = 0; i < items.size(); ++i) {
       double x = 0;
@@ -314,7 +308,8 @@ GridLoad LoadTuneGridText(const std::string& text, const std::string& name,
     std::vector<monitors::AdaptiveSpec> ad{s.adaptive};
     if (!monitors::IsIntermittent(m))
       for (const auto& v : a.adaptive)
-        if (std::none_of(ad.begin(), ad.end(), [&](const auto& x) { return SameAdaptive(x, v); }))
+        if (std::none_of(ad.begin(), ad.end(),
+                         [&](const auto& x) { return monitors::SameAdaptive(x, v); }))
           ad.push_back(v);
     if (HasCapRule(s))  // an alpha_at_cap rule needs adaptive on
       ad.erase(std::remove_if(ad.begin(), ad.end(), [](const auto& x) { return !x.enabled; }),
@@ -336,18 +331,10 @@ GridLoad LoadTuneGridText(const std::string& text, const std::string& name,
 
 GridLoad LoadTuneGrid(const std::string& path, const Settings& settings, bool with_truth) {
   if (path.empty()) return LoadTuneGridText("", "(default grid)", settings, with_truth);
-  std::ifstream in(path, std::ios::binary);
-  if (!in) {
-    GridLoad out;
-    Problem p;
-    p.file = path;
-    p.message = "cannot open the grid file";
-    out.problems.push_back(p);
-    return out;
-  }
-  std::ostringstream text;
-  text << in.rdbuf();
-  return LoadTuneGridText(text.str(), path, settings, with_truth);
+  std::string text;
+  GridLoad out;
+  if (!ReadConfigFile(path, "grid", text, out.problems)) return out;
+  return LoadTuneGridText(text, path, settings, with_truth);
 }
 
 }  // namespace config

@@ -781,19 +781,13 @@ std::vector<std::string> SettingsKeys() {
   return out;
 }
 
-LoadResult LoadSettingsFile(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) {
-    LoadResult result;
-    Problem p;
-    p.file = path;
-    p.message = "cannot open the settings file";
-    result.problems.push_back(p);
-    return result;
-  }
-  std::ostringstream text;
-  text << in.rdbuf();
-  return LoadSettingsText(text.str(), path);
+LoadResult LoadSettingsFile(const std::string& path, std::string* text) {
+  std::string read;
+  LoadResult result;
+  if (!ReadConfigFile(path, "settings", read, result.problems)) return result;
+  result = LoadSettingsText(read, path);
+  if (text) *text = std::move(read);
+  return result;
 }
 
 }  // namespace config

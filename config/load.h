@@ -25,7 +25,8 @@ struct LoadResult {
   bool ok() const { return problems.empty(); }
 };
 
-LoadResult LoadSettingsFile(const std::string& path);
+// `text`, when given, receives the file's text (what `tune` edits for its recommendation).
+LoadResult LoadSettingsFile(const std::string& path, std::string* text = nullptr);
 
 // Every key the loader takes, as paths: "server.listen", "policies[].rules[].limit", ...
 std::vector<std::string> SettingsKeys();

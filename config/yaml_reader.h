@@ -6,6 +6,7 @@
 #include <yaml-cpp/yaml.h>
 
 #include <cmath>
+#include <fstream>
 #include <set>
 #include <sstream>
 #include <string>
@@ -14,6 +15,24 @@
 #include "config/load.h"
 
 namespace config {
+
+// The whole file at `path` in `text`; false, with the problem "cannot open the WHAT file" added
+// to `problems`, when it cannot be read.
+inline bool ReadConfigFile(const std::string& path, const char* what, std::string& text,
+                           std::vector<Problem>& problems) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) {
+    Problem p;
+    p.file = path;
+    p.message = std::string("cannot open the ") + what + " file";
+    problems.push_back(p);
+    return false;
+  }
+  std::ostringstream all;
+  all << in.rdbuf();
+  text = all.str();
+  return true;
+}
 
 class YamlReader {
  public:

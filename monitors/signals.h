@@ -49,6 +49,12 @@ struct AdaptiveSpec {
   bool lagged = true;
 };
 
+// The same adaptive rule: both off, or both on with the same bounds and timing.
+inline bool SameAdaptive(const AdaptiveSpec& a, const AdaptiveSpec& b) {
+  if (!a.enabled || !b.enabled) return a.enabled == b.enabled;
+  return a.floor == b.floor && a.cap == b.cap && a.lagged == b.lagged;
+}
+
 // The adaptive alpha from the statistics `s` (E(t) for immediate, E(t-1) for lagged; the
 // caller picks which), or `previous` while M is 0.
 inline double AdaptiveAlpha(const AdaptiveSpec& spec, const ErrorStats& s, double previous) {

@@ -3,7 +3,6 @@
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
-#include <fstream>
 #include <iostream>
 #include <map>
 #include <sstream>
@@ -90,8 +89,10 @@ bool ParseFlags(const std::vector<std::string>& args, std::size_t from,
   return true;
 }
 
-bool LoadOrReport(const std::string& path, config::Settings& settings, std::ostream& err) {
-  config::LoadResult loaded = config::LoadSettingsFile(path);
+// `text`, when given, receives the file's text.
+bool LoadOrReport(const std::string& path, config::Settings& settings, std::ostream& err,
+                  std::string* text = nullptr) {
+  config::LoadResult loaded = config::LoadSettingsFile(path, text);
   if (!loaded.ok()) {
     for (const auto& p : loaded.problems) err << p.ToString() << '\n';
     err << loaded.problems.size() << (loaded.problems.size() == 1 ? " problem" : " problems")
@@ -262,21 +263,10 @@ int Tune(const std::vector<std::string>& args, std::ostream& out, std::ostream& 
       return 2;
     }
   o.progress = isatty(2) != 0;
-  std::ifstream in(o.config, std::ios::binary);
-  if (!in) {
-    err << o.config << ": cannot open the settings file\n";
-    return 2;
-  }
-  std::ostringstream text;
-  text << in.rdbuf();
-  const config::LoadResult loaded = config::LoadSettingsText(text.str(), o.config);
-  if (!loaded.ok()) {
-    for (const auto& p : loaded.problems) err << p.ToString() << '\n';
-    err << loaded.problems.size() << (loaded.problems.size() == 1 ? " problem" : " problems")
-        << " in " << o.config << '\n';
-    return 2;
-  }
-  const Result<TuneSummary> summary = RunTune(loaded.settings, text.str(), o, out, err);
+  config::Settings settings;
+  std::string text;
+  if (!LoadOrReport(o.config, settings, err, &text)) return 2;
+  const Result<TuneSummary> summary = RunTune(settings, text, o, out, err);
   if (!summary) {
     err << "forewarden tune: " << summary.status().message() << '\n';
     if (summary.status().kind() == ErrorKind::kInvalid) {

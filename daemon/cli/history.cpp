@@ -80,6 +80,11 @@ const std::deque<HistorySeries>& HistoryReader::series() const {
   return impl_->slots;
 }
 
+const HistorySeries* HistoryReader::Find(std::string_view key) const {
+  auto it = impl_->series.find(key);
+  return it == impl_->series.end() ? nullptr : it->second;
+}
+
 Status HistoryReader::Open() {
   Impl& m = *impl_;
   if (!m.in.ok()) return Status::Io(m.in.error());

@@ -58,6 +58,8 @@ class HistoryReader {
   Result<bool> Next(HistoryRow& row, monitors::StepResult& result);
 
   std::size_t series_count() const;
+  // The series with this key, or null when the history has none.
+  const HistorySeries* Find(std::string_view key) const;
   // The series in first-seen order (index i is the series with `index` i).
   const std::deque<HistorySeries>& series() const;
 

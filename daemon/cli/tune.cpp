@@ -13,7 +13,6 @@
 #include <optional>
 #include <ostream>
 #include <thread>
-#include <unordered_map>
 
 #include "config/edit.h"
 #include "config/grid.h"
@@ -101,11 +100,6 @@ std::string AdaptiveYaml(const monitors::AdaptiveSpec& a) {
          ", lag: " + (a.lagged ? "true" : "false") + "}";
 }
 
-bool SameAdaptive(const monitors::AdaptiveSpec& a, const monitors::AdaptiveSpec& b) {
-  if (!a.enabled || !b.enabled) return a.enabled == b.enabled;
-  return a.floor == b.floor && a.cap == b.cap && a.lagged == b.lagged;
-}
-
 // The candidate's constants in words, only the axes its method has.
 std::string Describe(const Candidate& c, const config::Policy& p) {
   const monitors::Method m = p.spec.method;
@@ -144,7 +138,7 @@ std::vector<config::KeyEdit> EditsOf(const Candidate& c, const config::Policy& p
   set("trend_beta", c.beta, s.constants.beta);
   set("damping", c.phi, s.constants.phi);
   set("season_gamma", c.gamma, s.constants.gamma);
-  if (!SameAdaptive(c.adaptive, s.adaptive)) {
+  if (!monitors::SameAdaptive(c.adaptive, s.adaptive)) {
     if (c.adaptive.enabled)
       e.push_back({p.name, "", "adaptive", AdaptiveYaml(c.adaptive)});
     else
@@ -249,8 +243,6 @@ Status ReadTruth(const std::string& path, const HistoryReader& reader,
     return Status::Invalid(path + ": empty: expected the header series,period,kind");
   }
   int cs = -1, cp = -1;
-  if (!fields.empty() && fields[0].substr(0, 3) == "\xEF\xBB\xBF")  // a byte-order mark
-    fields[0].remove_prefix(3);
   for (std::size_t i = 0; i < fields.size(); ++i) {
     if (fields[i] == "series") cs = static_cast<int>(i);
     if (fields[i] == "period") cp = static_cast<int>(i);
@@ -259,8 +251,6 @@ Status ReadTruth(const std::string& path, const HistoryReader& reader,
     return Status::Invalid(path + ": line " + std::to_string(in.line()) +
                            ": the header needs the columns series and period");
   const std::size_t ncols = fields.size();
-  std::unordered_map<std::string_view, const HistorySeries*> by_key;
-  for (const HistorySeries& s : reader.series()) by_key.emplace(s.key, &s);
   changes.assign(reader.series_count(), {});
   while (in.Next(fields)) {
     const std::string where = path + ": line " + std::to_string(in.line()) + ", field ";
@@ -269,14 +259,14 @@ Status ReadTruth(const std::string& path, const HistoryReader& reader,
                              std::to_string(ncols) + " fields, found " +
                              std::to_string(fields.size()));
     if (fields[cs].empty()) return Status::Invalid(where + "series: the series key is empty");
-    auto it = by_key.find(fields[cs]);
-    if (it == by_key.end()) {
+    const HistorySeries* series = reader.Find(fields[cs]);
+    if (!series) {
       ++ignored;
       continue;
     }
-    const monitors::PeriodParse p = monitors::ParsePeriod(it->second->policy->period, fields[cp]);
+    const monitors::PeriodParse p = monitors::ParsePeriod(series->policy->period, fields[cp]);
     if (!p.ok()) return Status::Invalid(where + "period: " + p.error);
-    changes[it->second->index].push_back(p.ordinal);
+    changes[series->index].push_back(p.ordinal);
   }
   if (!in.ok()) return Status::Invalid(path + ": " + in.error());
   for (auto& c : changes) std::sort(c.begin(), c.end());
@@ -454,17 +444,13 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
 
   // Group the rows by policy and series (a counting sort: series keep first-seen order).
   std::vector<PolicyData> data(settings.policies.size());
-  std::unordered_map<const config::Policy*, std::size_t> policy_index;
-  for (std::size_t i = 0; i < settings.policies.size(); ++i) {
-    data[i].policy = &settings.policies[i];
-    policy_index[&settings.policies[i]] = i;
-  }
+  for (std::size_t i = 0; i < settings.policies.size(); ++i) data[i].policy = &settings.policies[i];
   {
     const auto& all = reader.series();
     std::vector<std::size_t> count(all.size(), 0), local(all.size(), 0), owner(all.size(), 0);
     for (std::size_t i = 0; i < rows.size(); ++i) ++count[rows[i].series];
     for (const HistorySeries& s : all) {
-      owner[s.index] = policy_index[s.policy];
+      owner[s.index] = static_cast<std::size_t>(s.policy - settings.policies.data());
       PolicyData& d = data[owner[s.index]];
       local[s.index] = d.keys.size();
       d.keys.push_back(s.key);
@@ -652,7 +638,7 @@ Result<TuneSummary> RunTune(const config::Settings& settings, const std::string&
         const auto &x = q.spec, &y = want.spec;
         same = x.constants.alpha == y.constants.alpha && x.constants.beta == y.constants.beta &&
                x.constants.phi == y.constants.phi && x.constants.gamma == y.constants.gamma &&
-               SameAdaptive(x.adaptive, y.adaptive) && x.rules.size() == y.rules.size();
+               monitors::SameAdaptive(x.adaptive, y.adaptive) && x.rules.size() == y.rules.size();
         for (std::size_t i = 0; same && i < x.rules.size(); ++i)
           same = x.rules[i].limit == y.rules[i].limit;
       }

@@ -395,6 +395,17 @@ BAD_REQUESTS = [
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "mean", "k": "2", "who": "x"}', 400, "field k: must be a whole number"),
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "last", "who": ""}', 400, "field who: empty"),
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "middle", "who": "x"}', 400, "field to: must be value, last, mean or change"),
+    # to = change: the alert whose diagnosis gives the level, missing, of the wrong type, out of
+    # range, or not there
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "who": "x"}', 400, "field alert: missing"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": null, "who": "x"}', 400, "field alert: missing"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": "3", "who": "x"}', 400, "field alert: must be a whole number"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": 2.5, "who": "x"}', 400, "field alert: must be a whole number"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": [1], "who": "x"}', 400, "field alert: must be a whole number"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": 0, "who": "x"}', 400, "field alert: outside"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": -4, "who": "x"}', 400, "field alert: outside"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": 18446744073709551615, "who": "x"}', 400, "field alert: outside"),
+    ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "change", "alert": 987654, "who": "x"}', 404, "no alert 987654"),
     ("POST", "/v1/series/w/a/reset", "application/json", '{"to": "last", "who": "x", "note": "%s"}' % ("n" * 5000), 400, "field note: longer than 4096 bytes"),
     ("POST", "/v1/alerts/1/acknowledge", "application/json", '{}', 400, "field by: missing"),
     ("POST", "/v1/alerts/1/acknowledge", "application/json", '{"by": ""}', 400, "field by: empty"),

@@ -216,9 +216,26 @@ TEST_CASE("tune refuses a bad history exactly as replay does, and writes nothing
   const Run dash = Command({"tune", "--config", cfg, "--input", in, "--report", "-"});
   CHECK(dash.rc == 2);
   CHECK(dash.err.find("'-' is not one") != std::string::npos);
-  const Run threads = Command({"tune", "--config", cfg, "--input", in, "--threads", "0"});
-  CHECK(threads.rc == 2);
-  CHECK(threads.err.find("--threads") != std::string::npos);
+  for (const char* t : {"0", "-1", "2.5", "abc", "", "1025", "99999999999999999999"}) {
+    const Run threads = Command({"tune", "--config", cfg, "--input", in, "--threads", t});
+    INFO(t);
+    CHECK(threads.rc == 2);
+    CHECK(threads.err.find("--threads") != std::string::npos);
+  }
+  const Run no_value = Command({"tune", "--config", cfg, "--input", in, "--threads"});
+  CHECK(no_value.rc == 2);
+  CHECK(no_value.err.find("needs a value") != std::string::npos);
+  const Run no_input = Command({"tune", "--config", cfg});
+  CHECK(no_input.rc == 2);
+  CHECK(no_input.err.find("usage: forewarden tune") != std::string::npos);
+  const Run no_truth =
+      Command({"tune", "--config", cfg, "--input", in, "--truth", "/nonexistent/t.csv"});
+  CHECK(no_truth.rc == 1);
+  CHECK(no_truth.err.find("/nonexistent/t.csv") != std::string::npos);
+  const Run no_settings = Command({"tune", "--config", "/nonexistent/s.yaml", "--input", in});
+  CHECK(no_settings.rc == 2);
+  CHECK(no_settings.err.find("/nonexistent/s.yaml: cannot open the settings file") !=
+        std::string::npos);
 }
 
 TEST_CASE(
