@@ -148,12 +148,7 @@ class GridReader {
       const std::size_t before = r_.problems().size();
       r_.Range(it, "floor", ip, s.floor, 0.0, false, 1.0, false);
       r_.Range(it, "cap", ip, s.cap, 0.0, true, 1.0, false);
-      if (it["lag"].IsDefined()) {
-        if (it["lag"].IsScalar() && (it["lag"].Scalar() == "true" || it["lag"].Scalar() == "false"))
-          s.lagged = it["lag"].Scalar() == "true";
-        else
-          r_.Add(it["lag"], ip + ".lag", "must be true or false");
-      }
+      if (it["lag"].IsDefined()) r_.Bool(it["lag"], ip + ".lag", s.lagged);
       if (s.floor > s.cap) r_.Add(it, ip, "floor must not be above cap");
       if (r_.problems().size() == before) out.push_back(s);
     }

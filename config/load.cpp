@@ -405,13 +405,8 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       r.Range(adaptive, "cap", path + ".adaptive", s.adaptive.cap, 0.0, true, 1.0, false);
       if (s.adaptive.floor > s.adaptive.cap)
         r.Add(adaptive, path + ".adaptive", "floor must not exceed cap");
-      if (adaptive["lag"].IsDefined()) {
-        try {
-          s.adaptive.lagged = adaptive["lag"].as<bool>();
-        } catch (const YAML::Exception&) {
-          r.Add(adaptive["lag"], path + ".adaptive.lag", "must be true or false");
-        }
-      }
+      if (adaptive["lag"].IsDefined())
+        r.Bool(adaptive["lag"], path + ".adaptive.lag", s.adaptive.lagged);
       if (monitors::IsIntermittent(method))
         r.Add(adaptive, path + ".adaptive", "croston and sba do not take an adaptive alpha");
     }

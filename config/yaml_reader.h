@@ -5,6 +5,7 @@
 
 #include <yaml-cpp/yaml.h>
 
+#include <cctype>
 #include <cmath>
 #include <fstream>
 #include <set>
@@ -124,6 +125,31 @@ class YamlReader {
       return;
     }
     out = v;
+  }
+
+  // A boolean with the words yaml-cpp's own conversion takes (y, yes, true, on / n, no, false,
+  // off; all lower case, all upper case or capitalised), read here because that conversion is
+  // not safe to call from two threads at once (it writes a shared buffer; `tune` loads
+  // settings on every core).
+  bool Bool(const YAML::Node& n, const std::string& path, bool& out) {
+    static const char* const kTrue[] = {"y", "yes", "true", "on"};
+    static const char* const kFalse[] = {"n", "no", "false", "off"};
+    if (n.IsScalar()) {
+      const std::string& t = n.Scalar();
+      std::string lower = t;
+      for (char& c : lower) c = static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
+      std::string upper = lower, capital = lower;
+      for (char& c : upper) c = static_cast<char>(std::toupper(static_cast<unsigned char>(c)));
+      if (!capital.empty())
+        capital[0] = static_cast<char>(std::toupper(static_cast<unsigned char>(capital[0])));
+      const bool cased = t == lower || t == upper || t == capital;
+      for (const char* w : kTrue)
+        if (cased && lower == w) return out = true, true;
+      for (const char* w : kFalse)
+        if (cased && lower == w) return out = false, true;
+    }
+    Add(n, path, "must be true or false");
+    return false;
   }
 
   bool String(const YAML::Node& n, const std::string& path, std::string& out) {

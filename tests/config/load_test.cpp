@@ -275,3 +275,35 @@ TEST_CASE("the README's settings reference lists exactly the keys the loader tak
     CHECK(loaded.count(k) == 1);
   }
 }
+
+TEST_CASE("adaptive.lag takes the words yaml-cpp takes for a boolean, read without it", "[unit]") {
+  // Read by our own code: yaml-cpp's bool conversion writes a shared buffer, and tune loads
+  // settings on several threads at once (found by ThreadSanitizer).
+  auto lag = [](const std::string& word, bool& lagged) {
+    const config::LoadResult r = LoadSettingsText(
+        "policies:\n  - {name: p, match: '*', period: week, adaptive: {lag: " + word + "}}\n",
+        "s.yaml");
+    if (r.ok()) lagged = r.settings.policies[0].spec.adaptive.lagged;
+    return r;
+  };
+  for (const char* word : {"true", "True", "TRUE", "yes", "Yes", "y", "on", "ON"}) {
+    bool lagged = false;
+    INFO(word);
+    CHECK(lag(word, lagged).ok());
+    CHECK(lagged);
+  }
+  for (const char* word : {"false", "False", "no", "NO", "n", "off", "Off"}) {
+    bool lagged = true;
+    INFO(word);
+    CHECK(lag(word, lagged).ok());
+    CHECK_FALSE(lagged);
+  }
+  for (const char* word : {"tRue", "maybe", "1", "''", "[true]"}) {
+    bool lagged = true;
+    INFO(word);
+    const config::LoadResult r = lag(word, lagged);
+    REQUIRE_FALSE(r.ok());
+    CHECK(r.problems.front().ToString().find("policies[0].adaptive.lag: must be true or false") !=
+          std::string::npos);
+  }
+}
