@@ -61,6 +61,7 @@ const std::set<std::string> kServerKeys = {"listen",
                                            "token_for_reads"};
 const std::set<std::string> kPolicyKeys = {"name",
                                            "match",
+                                           "in_control",
                                            "period",
                                            "method",
                                            "alpha",
@@ -81,6 +82,8 @@ const std::set<std::string> kPolicyKeys = {"name",
                                            "stale_after",
                                            "export_top_series",
                                            "negative_actuals"};
+// croston and sba: the in-control demand budgets are calibrated on (monitors/calibrate.h)
+const std::set<std::string> kInControlKeys = {"demand_probability", "size_mean", "size_sd"};
 const std::set<std::string> kMatchKeys = {"key", "labels"};
 const std::set<std::string> kAdaptiveKeys = {"floor", "cap", "lag"};
 const std::set<std::string> kStartKeys = {"mean_of_first", "fitted", "level", "trend", "season"};
@@ -418,6 +421,21 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
     s.start.kind = StartKind::kMeanOfFirst;
     s.start.count = 2 * s.constants.season_length;
   }
+  if (const YAML::Node ic = n["in_control"]; ic.IsDefined()) {
+    const std::string ip = path + ".in_control";
+    if (!monitors::IsIntermittent(method)) {
+      r.Add(ic, ip,
+            "only croston and sba policies take in_control (the demand their limits are "
+            "derived on)");
+    } else if (!ic.IsMap()) {
+      r.Add(ic, ip, "must be a map {demand_probability, size_mean, size_sd}");
+    } else {
+      r.CheckKeys(ic, ip, kInControlKeys);
+      r.Range(ic, "demand_probability", ip, s.in_control.probability, 0.0, true, 1.0, false);
+      r.Range(ic, "size_mean", ip, s.in_control.size_mean, 0.0, true, 1e12, false);
+      r.Range(ic, "size_sd", ip, s.in_control.size_sd, 0.0, false, 1e12, false);
+    }
+  }
   const YAML::Node start_node = n["start"].IsDefined() ? n["start"] : n;
   const std::string start_path = path + ".start";
   if (monitors::IsIntermittent(method) && n["start"].IsDefined() &&
@@ -517,10 +535,13 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
         s.rules.push_back(rule);
       }
       // Limits from budgets, once the method and constants are known (same inputs: cached).
-      for (const Budget& b : budgets) {
+      std::vector<monitors::RuleBudget> asked;
+      for (const Budget& b : budgets) asked.push_back({b.index, b.every, b.clear_fraction});
+      const std::vector<monitors::Calibration> derived = monitors::CalibrateRules(s, asked);
+      for (std::size_t k = 0; k < budgets.size(); ++k) {
+        const Budget& b = budgets[k];
         const std::string rp = path + ".rules[" + std::to_string(b.node) + "]";
-        const monitors::Calibration c =
-            monitors::CalibrateRule(s, b.index, b.every, b.clear_fraction);
+        const monitors::Calibration& c = derived[k];
         monitors::RuleSpec& rule = s.rules[b.index];
         if (!c.ok) {
           r.Add(rules[b.node], rp, c.problem);
@@ -528,14 +549,16 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
         }
         rule.limit = c.limit;
         rule.clear = b.clear_fraction * c.limit;
+        rule.young = c.young;
         if (rule.escalate_limit && *rule.escalate_limit <= rule.limit) {
           std::ostringstream msg;
           msg << "escalate_limit " << *rule.escalate_limit << " is not beyond the derived limit "
               << rule.limit;
           r.Add(rules[b.node]["escalate_limit"], rp + ".escalate_limit", msg.str());
         }
-        p.calibrations.push_back(
-            {rule.name, b.every, c.limit, c.rate, monitors::PeriodsPerWeek(p.period) / b.every});
+        p.calibrations.push_back({rule.name, b.every, c.limit, c.rate,
+                                  monitors::PeriodsPerWeek(p.period) / b.every, c.young,
+                                  c.young_rates});
       }
       if (rules.size() > monitors::kMaxRules)
         r.Add(rules, path + ".rules",
@@ -767,6 +790,7 @@ std::vector<std::string> SettingsKeys() {
       {"policies[].", &kPolicyKeys},
       {"policies[].match.", &kMatchKeys},
       {"policies[].adaptive.", &kAdaptiveKeys},
+      {"policies[].in_control.", &kInControlKeys},
       {"policies[].start.", &kStartKeys},
       {"policies[].rules[].", &kRuleKeys},
       {"alerts.", &kAlertsKeys},

@@ -21,10 +21,12 @@ struct Match {
 // A limit derived from a false-alarm budget (monitors/calibrate.h).
 struct RuleCalibration {
   std::string rule;
-  double every = 0.0;            // periods per false alert per series, as configured
-  double limit = 0.0;            // derived
-  double rate = 0.0;             // episodes per period at that limit, in the simulation
-  double per_series_week = 0.0;  // expected false alerts per series per week
+  double every = 0.0;                     // periods per false alert per series, as configured
+  double limit = 0.0;                     // derived
+  double rate = 0.0;                      // episodes per period at that limit, in the simulation
+  double per_series_week = 0.0;           // expected false alerts per series per week
+  std::vector<monitors::AgeLimit> young;  // derived limits of young series (rule.h)
+  std::vector<double> young_rates;        // episodes per period in each young band
 };
 
 struct Policy {

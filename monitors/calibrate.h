@@ -12,16 +12,29 @@
 //   ses, holt, damped    y = 100 + 10 z                   (constant level, no trend)
 //   seasonal-add         y = 100 + 15 sin(2 pi j / m) + 10 z
 //   seasonal-mul         y = (100 + 10 z) * (1 + 0.15 sin(2 pi j / m))
-//   croston, sba         demand in a period with probability 1/3, size max(1, 5 + 2 z)
+//   croston, sba         demand in a period with probability p, size max(1, mean + sd z): the
+//                        policy's in_control (series.h; by default p = 1/3, mean 5, sd 2)
 // Each simulated series starts with the policy's own start rule, constants, adaptive rule,
-// monitoring constant and warm-up, and lives `every` periods: the budget is "at most one false
-// alert per series in `every` periods", its start included. This matters: the cumulative
-// signal never forgets the error of a series' start (C = (F - F1) / alpha on a constant level),
-// so a limit derived from a perfectly started model is far too tight for real series.
+// monitoring constant and warm-up.
 //
-// The rate counted is episodes opened per period (an episode is one alert: rule.h); the limit
-// is the smallest one whose rate is at most 1 / every. Deterministic: the same inputs give the
-// same limit on every machine.
+// The budget holds at every age, not only on average over a long life. A young series' signals
+// carry the error of its start state (the cumulative signal never forgets it: C = (F - F1) /
+// alpha on a constant level; a trend estimated from a short window wanders for dozens of
+// periods), so one limit for every age either floods new series with false alerts or is too
+// wide for old ones. The limit is therefore a function of the series' age past the warm-up,
+// the time-varying limits of Lucas and Saccucci (1990) for EWMA charts, derived here by
+// simulation because the signals' exact variance at an age depends on the start rule, the
+// method, adaptive alpha and the rule's persistence and hysteresis, for which no closed form
+// exists. Ages are cut into bands, [0, 4), [4, 8), [8, 16), ... [64, 128), then the steady band
+// from 128 on (the first band widens for large budgets, so that it needs at most about 200,000
+// paths); each band's limit is the smallest whose episodes opened in that band are at most
+// 1 / every per series-period, given the limits of the bands before it (the rule's state is
+// carried from band to band). Young bands are simulated on enough paths for 100 expected false
+// alerts, the steady band (ages 128 to 128 + every) for 200. All bands share their paths
+// (common random numbers): the first paths live longest.
+//
+// The rate counted is episodes opened per period (an episode is one alert: rule.h).
+// Deterministic: the same inputs give the same limits on every machine.
 #pragma once
 
 #include <cstdint>
@@ -75,18 +88,32 @@ std::vector<int> RunLengths(const SignalSample& sample, double limit);
 
 struct Calibration {
   bool ok = false;
-  double limit = 0.0;
-  double rate = 0.0;  // episodes per period at that limit, in the simulation
+  double limit = 0.0;               // from the steady age on
+  double rate = 0.0;                // episodes per period at that limit, in the simulation
+  std::vector<AgeLimit> young;      // the limits of the young bands (rule.h, Limits by age)
+  std::vector<double> young_rates;  // episodes per period in each young band at its limit
   std::string problem;
 };
 
-// The limit of rule `rule` for at most one false alert per `every` periods; the clear level
-// follows as clear_fraction * limit. `size` sets the number of paths (at least 200 expected
-// false alerts are simulated) and the seed; each path lives `every` periods plus the start
-// window and warm-up, counted from its first period. Results are cached for the process's lifetime
-// (same inputs, same answer), so reloads repeat no work. Thread-safe.
+// The limits by age of rule `rule` for at most one false alert per `every` periods at every age
+// (above); each clear level follows as clear_fraction * limit. `size` sets the least number of
+// paths of the steady band and the seed (its other fields are not used). Results are cached for
+// the process's lifetime (same inputs, same answer), so reloads repeat no work. Thread-safe.
 Calibration CalibrateRule(const PolicySpec& policy, std::size_t rule, double every,
                           double clear_fraction, const SimulationSize& size = {});
+
+// A rule's false-alarm budget: one false alert per `every` periods, clear at clear_fraction of
+// the limit.
+struct RuleBudget {
+  std::size_t rule = 0;
+  double every = 0.0;
+  double clear_fraction = 1.0;
+};
+// CalibrateRule for several rules of one policy at once: one simulation of the in-control
+// process serves them all (the rules only watch it). The answers are in the budgets' order.
+std::vector<Calibration> CalibrateRules(const PolicySpec& policy,
+                                        const std::vector<RuleBudget>& budgets,
+                                        const SimulationSize& size = {});
 
 // Periods per week for the expected-false-alerts figure: 7 (day), 1 (week), 12/52.1775 (month).
 double PeriodsPerWeek(PeriodKind kind);

@@ -21,6 +21,14 @@
 // `persistence` consecutive periods, and stops holding when it comes back within `clear`
 // (clear <= limit gives hysteresis). A period where the signal is undefined changes nothing.
 //
+// Limits by age (`young`): a calibrated rule (calibrate.h) may widen its limit while a series is
+// young, the time-varying limits of Lucas and Saccucci (1990): a young series' signals carry the
+// error of its start state, so one limit for every age would raise most false alerts in the
+// first periods. A series' age is the number of periods evaluated before this one (0 at the
+// first period past the warm-up); at ages below young[0].until the rule takes young[0]'s limit
+// and clear, below young[1].until young[1]'s, and so on; from the last `until` on, `limit` and
+// `clear`. Empty for rules with a fixed limit.
+//
 // Episodes: an episode opens when the rule starts holding and no episode is open; it escalates
 // (once) when the signal goes beyond `escalate_limit`; it ends after the rule has not held for
 // `resolve_after` consecutive evaluated periods. A rule that holds again before then continues
@@ -40,6 +48,16 @@ enum class SignalKind { kTrigg, kCusum, kError, kBias, kAccuracy, kAlphaAtCap, k
 enum class Direction { kBoth, kUnder, kOver };
 enum class Severity { kInfo, kWarning, kCritical };
 
+// A rule's limit and clear level for series younger than `until` (rule.h, Limits by age).
+struct AgeLimit {
+  int until = 0;
+  double limit = 0.0;
+  double clear = 0.0;
+};
+
+// The age given to rules evaluated outside a series' life (tests, stale checks): a steady age.
+inline constexpr int kSteadyAge = 1 << 30;
+
 struct RuleSpec {
   std::string name;
   SignalKind signal = SignalKind::kTrigg;
@@ -51,8 +69,22 @@ struct RuleSpec {
   int periods = 0;                       // bias, accuracy, windowed cusum: window length
   std::optional<double> escalate_limit;  // beyond it the episode takes escalate_severity
   Severity escalate_severity = Severity::kCritical;
-  int resolve_after = 1;  // periods clear before the episode ends
+  int resolve_after = 1;        // periods clear before the episode ends
+  std::vector<AgeLimit> young;  // limits by age, ascending `until` (calibrated rules only)
 };
+
+struct Limits {
+  double limit = 0.0;
+  double clear = 0.0;
+};
+
+// The limit and clear level at `age` (periods evaluated before this one).
+inline Limits LimitsAt(const RuleSpec& rule, int age) {
+  if (rule.young.empty() || age >= rule.young.back().until) return {rule.limit, rule.clear};
+  for (const AgeLimit& a : rule.young)
+    if (age < a.until) return {a.limit, a.clear};
+  return {rule.limit, rule.clear};
+}
 
 struct RuleState {
   std::uint16_t run = 0;       // consecutive periods beyond the limit (saturates at 65535)
@@ -139,11 +171,14 @@ struct EpisodeChange {
   bool resolved = false;
 };
 
-// Advances the rule by one period with the signal's value (nullopt if undefined).
-inline RuleChange EvaluateRule(const RuleSpec& rule, RuleState& st, std::optional<double> value) {
+// Advances the rule by one period with the signal's value (nullopt if undefined), at the series'
+// `age` (the limits by age above).
+inline RuleChange EvaluateRule(const RuleSpec& rule, RuleState& st, std::optional<double> value,
+                               int age = kSteadyAge) {
   if (!value) return RuleChange::kNone;
   const double x = Excursion(rule.direction, *value);
-  if (x > rule.limit) {
+  const Limits at = LimitsAt(rule, age);
+  if (x > at.limit) {
     if (st.run < UINT16_MAX) st.run += 1;
   } else {
     st.run = 0;
@@ -155,7 +190,7 @@ inline RuleChange EvaluateRule(const RuleSpec& rule, RuleState& st, std::optiona
     }
     return RuleChange::kNone;
   }
-  if (x <= rule.clear) {
+  if (x <= at.clear) {
     st.active = false;
     return RuleChange::kCleared;
   }

@@ -8,7 +8,7 @@
 namespace monitors {
 namespace {
 void Evaluate(const RuleSpec& rule, SeriesState& s, std::size_t i, std::optional<double> value,
-              StepResult& out);
+              StepResult& out, int age = kSteadyAge);
 }  // namespace
 
 std::uint16_t RecentCapacity(const PolicySpec& policy) {
@@ -89,10 +89,11 @@ void StartSeries(const PolicySpec& p, SeriesState& s) {
   s.window.clear();
 }
 
-// Evaluates rule i with `value`, recording what changed in `out` and s.active.
+// Evaluates rule i with `value` at the series' `age`, recording what changed in `out` and
+// s.active.
 void Evaluate(const RuleSpec& rule, SeriesState& s, std::size_t i, std::optional<double> value,
-              StepResult& out) {
-  const RuleChange change = EvaluateRule(rule, s.rules[i], value);
+              StepResult& out, int age) {
+  const RuleChange change = EvaluateRule(rule, s.rules[i], value, age);
   const std::uint64_t bit = std::uint64_t{1} << i;
   if (change == RuleChange::kOpened) {
     s.active |= bit;
@@ -159,10 +160,11 @@ void Observe(const PolicySpec& p, SeriesState& s, double y, StepResult& out) {
   if (s.forecasts > p.warmup) {
     out.trigg = TriggSignal(s.stats);
     out.cusum = CusumSignal(s.stats);
+    const int age = SeriesAge(p, s) - 1;  // periods evaluated before this one
     for (std::size_t i = 0; i < p.rules.size(); ++i) {
       const RuleSpec& rule = p.rules[i];
       if (!StepSignal(rule.signal)) continue;
-      Evaluate(rule, s, i, RuleValue(rule, out, s), out);
+      Evaluate(rule, s, i, RuleValue(rule, out, s), out, age);
     }
   }
   out.active = s.active;

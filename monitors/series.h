@@ -46,6 +46,13 @@ struct PolicySpec {
   // the methods that can take them (ses, holt, damped, seasonal-add) may.
   bool accept_negative = false;
   std::vector<RuleSpec> rules;  // at most kMaxRules
+  // croston and sba: the in-control demand their budgets are calibrated on (calibrate.h): a
+  // demand in a period with this probability, of size max(1, size_mean + size_sd z).
+  struct InControlDemand {
+    double probability = 1.0 / 3.0;
+    double size_mean = 5.0;
+    double size_sd = 2.0;
+  } in_control;
 };
 
 inline constexpr std::size_t kMaxRules = 64;
@@ -232,6 +239,12 @@ inline Constants EffectiveConstants(const PolicySpec& policy, const SeriesState&
   Constants c = s.own.get() ? *s.own.get() : policy.constants;
   c.alpha = s.alpha;
   return c;
+}
+
+// Periods past the warm-up a series has been evaluated in (0 while warming): the age its rules'
+// limits by age (rule.h) are read at.
+inline int SeriesAge(const PolicySpec& policy, const SeriesState& s) {
+  return s.forecasts > policy.warmup ? s.forecasts - policy.warmup : 0;
 }
 
 // A fresh state for a series of this policy.

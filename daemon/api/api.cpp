@@ -312,31 +312,27 @@ json SeriesDetail(const SeriesView& v) {
   out["cusum"] = s.stats.cusum;
   out["periods"] = s.next_index;
   out["forecasts"] = s.forecasts;
+  // periods judged past the warm-up: the age the next actual's rules read their limits at
+  out["age"] = monitors::SeriesAge(spec, s);
   out["missing_periods"] = s.missing;
   return out;
 }
 
-// The diagnosis of an alert (as AlertObject gives it) from its series' retained history, as
-// replay --alerts makes it; null when the series is gone or there is too little to go on.
+// The diagnosis of an alert (as AlertObject gives it) from its series' retained history now, as
+// replay --alerts makes it (it is remade while the alert is open); else the one stored when it
+// opened (null for a storm member or when there was too little to go on).
 json DiagnosisJson(Engine& engine, const json& alert) {
+  const json stored = alert.value("diagnosis", json(nullptr));
   const std::string key = alert.value("series", "");
   const auto v = engine.FindSeries(key);
-  if (!v) return nullptr;
+  if (!v) return stored;
   const config::Policy& p = *v->spec;
   const monitors::PeriodParse opened =
       monitors::ParsePeriod(p.period, alert.value("opened_period", ""));
-  if (!opened.ok()) return nullptr;
+  if (!opened.ok()) return stored;
   const Result<monitors::AlertDiagnosis> d = engine.DiagnoseAlert(key, opened.ordinal);
-  if (!d || !d->diagnosis.ok) return nullptr;
-  const monitors::Diagnosis& x = d->diagnosis;
-  return {{"change_began", monitors::FormatPeriod(p.period, d->began)},
-          {"kind", monitors::ChangeKindName(x.kind)},
-          {"level", x.level},
-          {"level_lower", x.lower},
-          {"level_upper", x.upper},
-          {"level_before", x.before},
-          {"action", monitors::SuggestedActionName(x.action)},
-          {"advice", x.advice}};
+  if (!d || !d->diagnosis.ok) return stored;
+  return DiagnosisObject(*d, p.period);
 }
 
 }  // namespace
@@ -659,6 +655,19 @@ void Api::AnswerPolicies(Call& call, const ReadView& view,
       if (r.escalate_limit)
         rule["escalate"] = {{"limit", *r.escalate_limit},
                             {"severity", monitors::SeverityName(r.escalate_severity)}};
+      if (!r.young.empty()) {
+        // limits by age (rule.h): [from, until) past the warm-up; the last runs on without end
+        json by_age = json::array();
+        int from = 0;
+        for (const monitors::AgeLimit& a : r.young) {
+          by_age.push_back(
+              {{"from", from}, {"until", a.until}, {"limit", a.limit}, {"clear", a.clear}});
+          from = a.until;
+        }
+        by_age.push_back(
+            {{"from", from}, {"until", nullptr}, {"limit", r.limit}, {"clear", r.clear}});
+        rule["limits_by_age"] = std::move(by_age);
+      }
       for (const auto& cal : p.calibrations)
         if (cal.rule == r.name)
           rule["calibration"] = {{"false_alert_every", cal.every},

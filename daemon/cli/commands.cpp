@@ -103,6 +103,40 @@ bool LoadOrReport(const std::string& path, config::Settings& settings, std::ostr
   return true;
 }
 
+// "limit by age (periods past the warm-up): 0-15 off, 16-31 0.9443, ..., 128+ 0.7564": bands
+// with the same limit are merged; a Trigg's signal limit of 1 can never be passed ("off": no
+// limit below 1 keeps the budget at that age).
+std::string LimitsByAge(const monitors::RuleSpec& r, const config::RuleCalibration& c) {
+  std::vector<std::pair<int, double>> bands;  // (from, limit)
+  int from = 0;
+  for (const monitors::AgeLimit& a : c.young) {
+    if (bands.empty() || bands.back().second != a.limit) bands.emplace_back(from, a.limit);
+    from = a.until;
+  }
+  if (bands.back().second != c.limit) bands.emplace_back(from, c.limit);
+  std::string out = "limit by age (periods past the warm-up):";
+  bool off = false;
+  for (std::size_t i = 0; i < bands.size(); ++i) {
+    char span[64];
+    if (i + 1 < bands.size())
+      std::snprintf(span, sizeof span, " %d-%d", bands[i].first, bands[i + 1].first - 1);
+    else
+      std::snprintf(span, sizeof span, " %d+", bands[i].first);
+    out += span;
+    if (r.signal == monitors::SignalKind::kTrigg && bands[i].second >= 1.0) {
+      out += " off";
+      off = true;
+    } else {
+      char v[32];
+      std::snprintf(v, sizeof v, " %.4g", bands[i].second);
+      out += v;
+    }
+    if (i + 1 < bands.size()) out += ',';
+  }
+  if (off) out += " (off: no limit of Trigg's signal below 1 keeps the budget at that age)";
+  return out;
+}
+
 std::string DescribeStart(const monitors::PolicySpec& s) {
   if (monitors::IsIntermittent(s.method)) return "first demand";
   switch (s.start.kind) {
@@ -145,6 +179,14 @@ int CheckConfig(const std::vector<std::string>& args, std::ostream& out, std::os
         << ", warmup " << s.warmup << ", gaps "
         << (s.gaps == monitors::GapRule::kZero ? "zero" : "skip") << ", coverage "
         << FormatNumber(s.coverage) << '\n';
+    if (monitors::IsIntermittent(s.method)) {
+      char line[200];
+      std::snprintf(line, sizeof line,
+                    "    in-control demand (budgets are derived on it): in a period with "
+                    "probability %.3g, of size max(1, %.4g + %.4g z), z standard normal\n",
+                    s.in_control.probability, s.in_control.size_mean, s.in_control.size_sd);
+      out << line;
+    }
     for (const auto& r : s.rules) {
       out << "    rule " << r.name << ": " << monitors::SignalKindName(r.signal);
       if (r.signal == monitors::SignalKind::kStale) {
@@ -166,10 +208,13 @@ int CheckConfig(const std::vector<std::string>& args, std::ostream& out, std::os
         if (c.rule == r.name) {
           char line[200];
           std::snprintf(line, sizeof line,
-                        "      limit derived for one false alert per %g periods: %.4g; expected "
-                        "%.3g false alerts per week per 1,000 in-control series\n",
-                        c.every, c.limit, 1000.0 * c.per_series_week);
+                        "      limit derived for one false alert per %g periods at every age: %.4g "
+                        "from age %d; expected %.3g false alerts per week per 1,000 in-control "
+                        "series\n",
+                        c.every, c.limit, c.young.empty() ? 0 : c.young.back().until,
+                        1000.0 * c.per_series_week);
           out << line;
+          if (!c.young.empty()) out << "      " << LimitsByAge(r, c) << '\n';
         }
     }
   }

@@ -6,6 +6,7 @@
 #include <chrono>
 #include <cmath>
 
+#include "daemon/store/alert_reads.h"
 #include "monitors/interval.h"
 
 namespace forewarden {
@@ -51,6 +52,11 @@ void ApplyAdjustments(monitors::SeriesState& s, const std::vector<Adjustment>& a
                       std::size_t& next, std::int64_t period) {
   for (; next < adjustments.size() && adjustments[next].period <= period; ++next)
     if (adjustments[next].period == period) Relevel(s, adjustments[next].level);
+}
+
+// The age the series' latest period was judged at (rule.h, limits by age).
+int LatestAge(const monitors::PolicySpec& spec, const monitors::SeriesState& s) {
+  return std::max(0, monitors::SeriesAge(spec, s) - 1);
 }
 
 void FitRules(monitors::SeriesState& s, const config::Policy& p) {
@@ -163,6 +169,15 @@ Status Engine::OpenAlerts() {
   if (Status opened = alerts_.Open(store_.db(), index_of); !opened)
     return opened.Prefix("store: alerts: ");
   alerts_.Configure(*settings_);
+  // A single alert carries its diagnosis from the moment it opens (notifications read it from
+  // the alert row: the delivery worker never asks the engine).
+  alerts_.SetDiagnoser([this](std::size_t index, std::size_t rule, std::int64_t period) {
+    const Series& s = series_[index];
+    if (!monitors::StepSignal(s.policy->spec.rules[rule].signal)) return std::string();
+    const Result<monitors::AlertDiagnosis> d = DiagnoseAlert(std::string(s.key), period);
+    if (!d || !d->diagnosis.ok) return std::string();
+    return DiagnosisObject(*d, s.policy->period).dump();
+  });
   alerts_.Index(
       [&](long index,
           const std::string& rule) -> std::optional<std::pair<std::size_t, std::size_t>> {
@@ -195,6 +210,7 @@ void Engine::CollectChanges(std::size_t index, const monitors::StepResult& r, st
     c.rule = i;
     c.period = period;
     if (monitors::StepSignal(rules[i].signal)) c.value = monitors::RuleValue(rules[i], r, s.state);
+    c.limit = monitors::LimitsAt(rules[i], LatestAge(s.policy->spec, s.state)).limit;
     c.severity = monitors::EpisodeSeverity(rules[i], s.state.rules[i]);
     if (e.opened) {
       c.kind = AlertChange::Kind::kOpened;
@@ -897,11 +913,11 @@ ReadRow Engine::ReadRowOf(std::size_t index) const {
   for (std::size_t i = 0; i < p.spec.rules.size() && i < st.rules.size(); ++i) {
     const monitors::RuleSpec& rule = p.spec.rules[i];
     double c = 0;
-    if (rule.signal == monitors::SignalKind::kTrigg && trigg && rule.limit > 0)
-      c = monitors::Excursion(rule.direction, *trigg) / rule.limit;
-    else if (rule.signal == monitors::SignalKind::kCusum && rule.periods == 0 && cusum &&
-             rule.limit > 0)
-      c = monitors::Excursion(rule.direction, *cusum) / rule.limit;
+    const double limit = monitors::LimitsAt(rule, LatestAge(p.spec, st)).limit;
+    if (rule.signal == monitors::SignalKind::kTrigg && trigg && limit > 0)
+      c = monitors::Excursion(rule.direction, *trigg) / limit;
+    else if (rule.signal == monitors::SignalKind::kCusum && rule.periods == 0 && cusum && limit > 0)
+      c = monitors::Excursion(rule.direction, *cusum) / limit;
     if ((st.rules[i].active || st.rules[i].run > 0) && c < 1) c = 1;
     if (c > best) {
       best = c;

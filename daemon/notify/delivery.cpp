@@ -116,8 +116,12 @@ json AmAlert(const json& alert, const std::string& severity, bool firing, std::i
               {"rule", alert.value("rule", "")},
               {"severity", severity},
               {"service", "forewarden"}};
+  json annotations{{"url", alert.value("url", "")}, {"page", alert.value("page_url", "")}};
+  // what changed and what to do, as diagnosed when the alert opened
+  if (const auto d = alert.find("diagnosis"); d != alert.end() && d->is_object())
+    annotations["diagnosis"] = d->value("advice", "");
   json a{{"labels", labels},
-         {"annotations", {{"url", alert.value("url", "")}, {"page", alert.value("page_url", "")}}},
+         {"annotations", annotations},
          {"startsAt", alert.value("opened_at", IsoTime(now_ms))},
          {"endsAt", IsoTime(firing ? ends_ms : now_ms)},
          {"generatorURL", alert.value("page_url", alert.value("url", ""))}};

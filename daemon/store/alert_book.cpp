@@ -12,8 +12,8 @@ bool AlertBook::OpenAll(Db& db, const std::function<long(std::int64_t)>& index_o
   db_ = &db;
   insert_alert_ = db.Prepare(
       "INSERT INTO alerts(series_id, series_key, policy, rule, signal, severity, state, "
-      "opened_period, opened_ms, updated_ms, value, limit_value, group_id) "
-      "VALUES(?1, ?2, ?3, ?4, ?5, ?6, 'open', ?7, ?8, ?8, ?9, ?10, ?11)");
+      "opened_period, opened_ms, updated_ms, value, limit_value, group_id, diagnosis) "
+      "VALUES(?1, ?2, ?3, ?4, ?5, ?6, 'open', ?7, ?8, ?8, ?9, ?10, ?11, ?12)");
   update_alert_state_ = db.Prepare(
       "UPDATE alerts SET state = ?2, updated_ms = ?3, "
       "ack_by = CASE WHEN ?2 = 'acknowledged' THEN ?4 ELSE ack_by END, "
@@ -245,11 +245,18 @@ bool AlertBook::ApplyAll(const std::vector<AlertChange>& changes, const SeriesIn
       else if (rule.signal == monitors::SignalKind::kAlphaAtCap)
         insert_alert_.Bind(10, static_cast<double>(rule.persistence));
       else
-        insert_alert_.Bind(10, rule.limit);
+        insert_alert_.Bind(10, c.limit);
       if (group_of[i])
         insert_alert_.Bind(11, group_of[i]);
       else
         insert_alert_.BindNull(11);
+      // a single alert is diagnosed now; a storm's members are not (their group is the news)
+      std::string diagnosis;
+      if (!group_of[i] && diagnoser_) diagnosis = diagnoser_(c.series, c.rule, c.period);
+      if (!diagnosis.empty())
+        insert_alert_.Bind(12, diagnosis);
+      else
+        insert_alert_.BindNull(12);
       if (!insert_alert_.Run()) return Fail("alert");
       Live o;
       o.id = db_->LastInsertId();

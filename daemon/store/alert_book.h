@@ -40,6 +40,7 @@ struct AlertChange {
   std::size_t rule = 0;
   std::int64_t period = 0;
   std::optional<double> value;
+  double limit = 0.0;  // the rule's limit at the series' age (rule.h, limits by age)
   monitors::Severity severity = monitors::Severity::kWarning;  // the episode's, after the step
   std::string reason;                                          // kResolved: "clear", "restated"
 };
@@ -63,6 +64,11 @@ class AlertBook {
   // `index_of` maps a series id to the engine's index (-1 when unknown).
   Status Open(Db& db, const std::function<long(std::int64_t)>& index_of);
   void Configure(const config::Settings& settings);  // sinks, storm threshold
+  // Makes the diagnosis stored with a single (not grouped) alert as it opens: JSON text, or ""
+  // for none. Called inside Apply's transaction, with the series' actuals of the batch in it.
+  using Diagnoser =
+      std::function<std::string(std::size_t index, std::size_t rule, std::int64_t period)>;
+  void SetDiagnoser(Diagnoser d) { diagnoser_ = std::move(d); }
   // After Open and Configure: places the loaded alerts under (index, rule) by rule name through
   // `locate` (nullopt: the rule is gone; the alert is left as stored) and parses snooze periods.
   void Index(const std::function<std::optional<std::pair<std::size_t, std::size_t>>(
@@ -168,6 +174,7 @@ class AlertBook {
   std::string error_;
   Stmt insert_alert_, update_alert_state_, set_severity_, resolve_alert_, insert_event_,
       insert_delivery_, insert_group_, group_left_, select_alert_;
+  Diagnoser diagnoser_;
 };
 
 }  // namespace forewarden

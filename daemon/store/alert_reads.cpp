@@ -15,8 +15,8 @@ namespace {
 constexpr const char* kAlertColumns =
     "SELECT id, series_key, policy, rule, signal, severity, state, opened_period, opened_ms, "
     "updated_ms, value, limit_value, ack_by, note, snooze_until_period, snooze_until_ms, "
-    "resolved_period, resolved_ms, resolved_by, resolved_reason, group_id FROM alerts WHERE id = "
-    "?1";
+    "resolved_period, resolved_ms, resolved_by, resolved_reason, group_id, diagnosis FROM alerts "
+    "WHERE id = ?1";
 
 // The alert object of a row selected with kAlertColumns.
 json AlertRow(const Stmt& q) {
@@ -48,6 +48,12 @@ json AlertRow(const Stmt& q) {
   j["resolved_by"] = text_or_null(18);
   j["resolved_reason"] = text_or_null(19);
   j["group"] = q.IsNull(20) ? json(nullptr) : json(q.Int(20));
+  // the diagnosis made as it opened (schema 5; null for storm members and older alerts)
+  j["diagnosis"] = nullptr;
+  if (!q.IsNull(21)) {
+    json d = json::parse(q.Text(21), nullptr, false);
+    if (!d.is_discarded()) j["diagnosis"] = std::move(d);
+  }
   return j;
 }
 
@@ -356,6 +362,8 @@ bool Notifications::EventInto(std::int64_t event, json& out, std::string& error)
   if (kind == "snoozed" && !detail.empty()) summary.append(" until ").append(detail);
   if (kind == "resolved" && !detail.empty()) summary.append(" (").append(detail).append(")");
   if (!note.empty()) summary.append(": ").append(note);
+  if (kind == "opened" && a["diagnosis"].is_object() && a["diagnosis"].contains("advice"))
+    summary.append(". ").append(a["diagnosis"]["advice"].get<std::string>());
   out["summary"] = summary;
   if (kind == "escalated" && !detail.empty()) out["previous_severity"] = detail;
   if (!actor.empty()) out["by"] = actor;
@@ -373,6 +381,18 @@ bool Notifications::CurrentInto(std::int64_t alert, json& out, std::string& erro
   out["summary"] = "open " + out["alert"]["rule"].get<std::string>() + " on " +
                    out["alert"]["series"].get<std::string>();
   return true;
+}
+
+json DiagnosisObject(const monitors::AlertDiagnosis& d, monitors::PeriodKind period) {
+  const monitors::Diagnosis& x = d.diagnosis;
+  return {{"change_began", monitors::FormatPeriod(period, d.began)},
+          {"kind", monitors::ChangeKindName(x.kind)},
+          {"level", x.level},
+          {"level_lower", x.lower},
+          {"level_upper", x.upper},
+          {"level_before", x.before},
+          {"action", monitors::SuggestedActionName(x.action)},
+          {"advice", x.advice}};
 }
 
 Result<json> Notifications::Event(std::int64_t event) {

@@ -11,11 +11,15 @@
 #include "config/settings.h"
 #include "daemon/common/status.h"
 #include "daemon/store/sqlite.h"
+#include "monitors/diagnosis.h"
 
 namespace forewarden {
 
 // An alert row as the API shows it; not found when there is no alert `id`.
 Result<nlohmann::json> AlertObject(Db& db, std::int64_t id);
+// An alert's diagnosis as the API, notifications and the alert row give it: change_began,
+// kind, level with level_lower/level_upper, level_before, action, advice.
+nlohmann::json DiagnosisObject(const monitors::AlertDiagnosis& d, monitors::PeriodKind period);
 // The same with "history": its events, each with its deliveries.
 Result<nlohmann::json> AlertWithHistory(Db& db, std::int64_t id);
 

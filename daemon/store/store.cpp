@@ -107,6 +107,9 @@ const char* const kMigrations[] = {
     "INSERT OR IGNORE INTO meta(key, value) VALUES('install_id', lower(hex(randomblob(8))));",
     // 4: the resets of one series, newest first, for its detail (GET /v1/series/{key})
     "CREATE INDEX audit_series ON audit(series_key, id);",
+    // 5: the diagnosis made when an alert opened (JSON; null for storm members and old alerts),
+    //    so that notifications carry it without asking the engine
+    "ALTER TABLE alerts ADD COLUMN diagnosis TEXT;",
 };
 constexpr int kSchemaVersion = static_cast<int>(sizeof kMigrations / sizeof kMigrations[0]);
 

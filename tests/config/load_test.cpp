@@ -99,6 +99,26 @@ TEST_CASE("settings that cannot work are refused", "[unit]") {
       {"policies:\n  - {name: a, match: '*', period: week, gaps: fill}\n",
        "gaps: must be zero or skip"},
       {"policies: [\n", "not valid YAML"},
+      {"policies:\n  - {name: a, match: '*', period: week, in_control: {demand_probability: "
+       "0.2}}\n",
+       "only croston and sba policies take in_control"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: sba, in_control: "
+       "{demand_probability: 0}}\n",
+       "in_control.demand_probability: must be in (0, 1], got 0"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: sba, in_control: "
+       "{demand_probability: 1.5}}\n",
+       "must be in (0, 1], got 1.5"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: croston, in_control: "
+       "{size_mean: -1}}\n",
+       "in_control.size_mean: must be in (0, 1e+12], got -1"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: sba, in_control: "
+       "{size_sd: .nan}}\n",
+       "in_control.size_sd"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: sba, in_control: "
+       "{chance: 0.2}}\n",
+       "chance"},
+      {"policies:\n  - {name: a, match: '*', period: week, method: sba, in_control: 0.2}\n",
+       "in_control: must be a map"},
       {"policies:\n  - {name: a, match: '*', period: week, rules: [{name: r, signal: bias, limit: "
        "0.2}]}\n",
        "a bias rule needs 'periods'"},
@@ -246,9 +266,43 @@ TEST_CASE("a false-alarm budget becomes a derived limit, shown with its expected
   CHECK(p.calibrations[0].per_series_week == Approx(7.0 / 1000));
   CHECK(p.spec.rules[1].limit == 2.5);
   CHECK(p.spec.rules[1].resolve_after == 2);
+  // limits by age: the rule carries them and the calibration reports them. C sums the errors of
+  // a series' life, so its in-control spread grows with age for about 1/alpha periods before it
+  // settles (the time-varying EWMA limits of Lucas and Saccucci 1990 widen the same way): young
+  // series get narrower limits here, where a Trigg rule on a trend method gets wider ones
+  // (tests/monitors/calibrate_test.cpp).
+  REQUIRE(drift.young.size() == 6);
+  CHECK(p.calibrations[0].young.size() == 6);
+  CHECK(drift.young.front().limit < 0.8 * drift.limit);
+  CHECK(drift.young.front().clear == Approx(0.5 * drift.young.front().limit));
+  CHECK(monitors::LimitsAt(drift, 0).limit == drift.young.front().limit);
+  CHECK(monitors::LimitsAt(drift, 127).limit == drift.young.back().limit);
+  CHECK(monitors::LimitsAt(drift, 128).limit == drift.limit);
   // no alerts section: one log sink
   REQUIRE(r.settings.alerts.sinks.size() == 1);
   CHECK(r.settings.alerts.sinks[0].kind == config::Sink::Kind::kLog);
+}
+
+TEST_CASE("an intermittent policy's in-control demand changes the limits derived on it", "[unit]") {
+  const std::string head =
+      "policies:\n  - name: a\n    match: '*'\n    period: week\n    method: sba\n"
+      "    alpha: 0.1\n    warmup: 8\n";
+  const std::string rules =
+      "    rules:\n      - {name: bias, signal: trigg, false_alert_every: 500}\n";
+  auto usual = LoadSettingsText(head + rules, "t.yaml");
+  auto sparse = LoadSettingsText(
+      head + "    in_control: {demand_probability: 0.1, size_mean: 2, size_sd: 1}\n" + rules,
+      "t.yaml");
+  INFO(AllProblems(usual) << AllProblems(sparse));
+  REQUIRE(usual.ok());
+  REQUIRE(sparse.ok());
+  const monitors::PolicySpec& s = sparse.settings.policies[0].spec;
+  CHECK(s.in_control.probability == 0.1);
+  CHECK(s.in_control.size_mean == 2);
+  CHECK(s.in_control.size_sd == 1);
+  CHECK(usual.settings.policies[0].spec.in_control.probability == Approx(1.0 / 3));
+  // sparser demand: each demand is a larger surprise, so Trigg's signal swings wider
+  CHECK(s.rules[0].limit != usual.settings.policies[0].spec.rules[0].limit);
 }
 
 TEST_CASE("the README's settings reference lists exactly the keys the loader takes", "[unit]") {

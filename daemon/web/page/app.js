@@ -582,7 +582,12 @@
       if (!(rule.signal === 'trigg' || (rule.signal === 'cusum' && !rule.periods))) continue;
       const axis = rule.signal === 'trigg' ? 0 : 1;
       const signs = rule.direction === 'under' ? [1] : rule.direction === 'over' ? [-1] : [1, -1];
-      for (const s of signs) lines.push({ value: s * rule.limit, axis, color: limitColor[rule.signal], label: rule.name + ' ' + (s > 0 ? '+' : '\u2212') + fmt(rule.limit) });
+      // a calibrated rule's limit depends on the series' age: the one its next actual is judged at
+      let limit = rule.limit;
+      for (const band of rule.limits_by_age || []) {
+        if (detail.age >= band.from && (band.until === null || detail.age < band.until)) limit = band.limit;
+      }
+      for (const s of signs) lines.push({ value: s * limit, axis, color: limitColor[rule.signal], label: rule.name + ' ' + (s > 0 ? '+' : '\u2212') + fmt(limit) });
     }
     let syncing = false;
     const graphs = [];
