@@ -29,7 +29,15 @@ using Reader = YamlReader;
 
 // The keys each map of the settings file takes (also the README's settings reference, which a
 // test compares with these).
-const std::set<std::string> kTopKeys = {"policies", "server", "fallback_policy", "alerts"};
+const std::set<std::string> kTopKeys = {"policies", "server", "fallback_policy", "alerts", "kafka"};
+const std::set<std::string> kKafkaKeys = {
+    "brokers",           "topics",    "group", "format", "batch_rows", "batch_ms",
+    "dead_letter_topic", "properties"};
+// librdkafka properties forewarden sets itself: the consumed offsets live in the store.
+const std::set<std::string> kKafkaOwnProperties = {"bootstrap.servers",  "group.id",
+                                                   "enable.auto.commit", "enable.auto.offset.store",
+                                                   "auto.offset.reset",  "enable.partition.eof",
+                                                   "rebalance_cb",       "offset_commit_cb"};
 const std::set<std::string> kServerKeys = {"listen",
                                            "data",
                                            "token_file",
@@ -536,6 +544,7 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       }
       // Limits from budgets, once the method and constants are known (same inputs: cached).
       std::vector<monitors::RuleBudget> asked;
+      asked.reserve(budgets.size());
       for (const Budget& b : budgets) asked.push_back({b.index, b.every, b.clear_fraction});
       const std::vector<monitors::Calibration> derived = monitors::CalibrateRules(s, asked);
       for (std::size_t k = 0; k < budgets.size(); ++k) {
@@ -563,6 +572,89 @@ void ReadPolicy(Reader& r, const YAML::Node& n, const std::string& path, Policy&
       if (rules.size() > monitors::kMaxRules)
         r.Add(rules, path + ".rules",
               "at most " + std::to_string(monitors::kMaxRules) + " rules per policy");
+    }
+  }
+}
+
+// A Kafka topic name: 1 to 249 of [A-Za-z0-9._-] (Kafka's own rule).
+bool TopicName(const std::string& t) {
+  if (t.empty() || t.size() > 249) return false;
+  for (char c : t)
+    if (!(std::isalnum(static_cast<unsigned char>(c)) || c == '.' || c == '_' || c == '-'))
+      return false;
+  return true;
+}
+
+void ReadKafka(Reader& r, const YAML::Node& n, Kafka& k) {
+  const std::string path = "kafka";
+  if (!n.IsMap()) {
+    r.Add(n, path, "must be a map with brokers and topics");
+    return;
+  }
+  r.CheckKeys(n, path, kKafkaKeys);
+  if (!n["brokers"].IsDefined() || !r.String(n["brokers"], path + ".brokers", k.brokers) ||
+      k.brokers.empty())
+    r.Add(n["brokers"].IsDefined() ? n["brokers"] : n, path + ".brokers",
+          "Kafka needs 'brokers' (bootstrap servers, \"host:port,host:port\")");
+  const YAML::Node topics = n["topics"];
+  if (!topics.IsDefined() || !topics.IsSequence() || topics.size() == 0) {
+    r.Add(topics.IsDefined() ? topics : n, path + ".topics", "must be a non-empty list of topics");
+  } else {
+    for (std::size_t i = 0; i < topics.size(); ++i) {
+      std::string t;
+      const std::string tp = path + ".topics[" + std::to_string(i) + "]";
+      if (!r.String(topics[i], tp, t)) continue;
+      if (!TopicName(t))
+        r.Add(topics[i], tp, "a topic name is 1 to 249 letters, digits, '.', '_' or '-'");
+      else
+        k.topics.push_back(t);
+    }
+  }
+  if (n["group"].IsDefined() && r.String(n["group"], path + ".group", k.group) && k.group.empty())
+    r.Add(n["group"], path + ".group", "must not be empty");
+  if (n["format"].IsDefined()) {
+    std::string f;
+    if (r.String(n["format"], path + ".format", f)) {
+      if (f == "csv")
+        k.format = Kafka::Format::kCsv;
+      else if (f == "ndjson")
+        k.format = Kafka::Format::kNdjson;
+      else
+        r.Add(n["format"], path + ".format", "must be csv or ndjson, got '" + f + "'");
+    }
+  }
+  if (n["dead_letter_topic"].IsDefined() &&
+      r.String(n["dead_letter_topic"], path + ".dead_letter_topic", k.dead_letter_topic) &&
+      !k.dead_letter_topic.empty() && !TopicName(k.dead_letter_topic))
+    r.Add(n["dead_letter_topic"], path + ".dead_letter_topic",
+          "a topic name is 1 to 249 letters, digits, '.', '_' or '-'");
+  for (const std::string& t : k.topics)
+    if (t == k.dead_letter_topic)
+      r.Add(n["dead_letter_topic"], path + ".dead_letter_topic",
+            "must not be one of the topics consumed");
+  r.Int(n, "batch_rows", path, k.batch_rows, 1, 200000);
+  r.Int(n, "batch_ms", path, k.batch_ms, 1, 60000);
+  const YAML::Node props = n["properties"];
+  if (props.IsDefined()) {
+    if (!props.IsMap()) {
+      r.Add(props, path + ".properties", "must be a map of librdkafka properties");
+    } else {
+      for (auto it = props.begin(); it != props.end(); ++it) {
+        const std::string name = it->first.Scalar();
+        const std::string pp = path + ".properties." + name;
+        std::string value;
+        if (!it->second.IsScalar()) {
+          r.Add(it->second, pp, "must be a single value");
+          continue;
+        }
+        value = it->second.Scalar();
+        if (kKafkaOwnProperties.count(name))
+          r.Add(it->first, pp,
+                "is set by forewarden (the consumed offsets are kept in its store); use the "
+                "kafka keys instead");
+        else
+          k.properties.emplace_back(name, value);
+      }
     }
   }
 }
@@ -752,6 +844,7 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
   log_sink.kind = Sink::Kind::kLog;
   result.settings.alerts.sinks = {log_sink};
   if (root["alerts"].IsDefined()) ReadAlerts(r, root["alerts"], result.settings.alerts);
+  if (root["kafka"].IsDefined()) ReadKafka(r, root["kafka"], result.settings.kafka);
   if (root["fallback_policy"].IsDefined())
     r.String(root["fallback_policy"], "fallback_policy", result.settings.fallback_policy);
   const YAML::Node policies = root["policies"];
@@ -794,7 +887,8 @@ std::vector<std::string> SettingsKeys() {
       {"policies[].start.", &kStartKeys},
       {"policies[].rules[].", &kRuleKeys},
       {"alerts.", &kAlertsKeys},
-      {"alerts.sinks[].", &kSinkKeys}};
+      {"alerts.sinks[].", &kSinkKeys},
+      {"kafka.", &kKafkaKeys}};
   for (const auto& [prefix, keys] : sections)
     for (const std::string& k : *keys) out.push_back(prefix + k);
   return out;

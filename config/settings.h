@@ -114,11 +114,26 @@ struct Server {
   long folder_poll_ms = 500;
 };
 
+// Actuals from Kafka topics (`kafka:`; daemon/feeds/kafka_source.h). Off while brokers is "".
+struct Kafka {
+  std::string brokers;              // bootstrap servers, "host:port,host:port"
+  std::vector<std::string> topics;  // consumed in one consumer group
+  std::string group = "forewarden";
+  enum class Format { kCsv, kNdjson };
+  Format format = Format::kCsv;   // csv: lines "series,period,value"; ndjson: objects
+  std::string dead_letter_topic;  // bad rows go there with the problem ("" = log and count only)
+  long batch_rows = 5000;         // rows applied in one engine batch, at most
+  long batch_ms = 200;            // how long a batch may wait to fill
+  // librdkafka properties passed through (security.protocol, sasl.*, ssl.*, ...)
+  std::vector<std::pair<std::string, std::string>> properties;
+};
+
 struct Settings {
   std::vector<Policy> policies;  // first match wins
   std::string fallback_policy;   // taken by series no policy matches ("" = reject them)
   Server server;
   Alerts alerts;
+  Kafka kafka;
 };
 
 // True when `key` matches the glob `pattern`.

@@ -7,7 +7,7 @@ set -euo pipefail
 
 build_pkgs=(cmake g++ ninja-build ccache pkg-config libboost-dev libboost-system-dev
             libyaml-cpp-dev libsqlite3-dev prometheus-cpp-dev catch2 nlohmann-json3-dev
-            libssl-dev libjs-dygraphs curl python3)
+            libssl-dev libjs-dygraphs librdkafka-dev curl python3)
 test_pkgs=(python3 python3-statsmodels python3-pandas python3-numpy r-base-core r-cran-forecast
            prometheus prometheus-alertmanager systemd clang libclang-rt-14-dev
            clang-format clang-tidy openssl chromium chromium-driver python3-selenium)

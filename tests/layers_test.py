@@ -27,7 +27,8 @@ ALLOWED = {
 # Outside libraries, by the header that brings them in, and the layers that may use them.
 LIBRARIES = {
     "boost/": {"http"},
-    "nlohmann/": {"batch", "store", "notify", "api", "cli"},
+    "nlohmann/": {"batch", "store", "notify", "feeds", "api", "cli"},
+    "librdkafka/": {"feeds"},
     "sqlite3.h": {"store"},
     "prometheus/": {"observe"},
     "openssl/": {"notify", "http"},

@@ -322,7 +322,7 @@ json SeriesDetail(const SeriesView& v) {
 // replay --alerts makes it (it is remade while the alert is open); else the one stored when it
 // opened (null for a storm member or when there was too little to go on).
 json DiagnosisJson(Engine& engine, const json& alert) {
-  const json stored = alert.value("diagnosis", json(nullptr));
+  json stored = alert.value("diagnosis", json(nullptr));
   const std::string key = alert.value("series", "");
   const auto v = engine.FindSeries(key);
   if (!v) return stored;

@@ -20,6 +20,7 @@
 #include "daemon/common/secret_text.h"
 #include "daemon/engine/engine.h"
 #include "daemon/feeds/drop_folder.h"
+#include "daemon/feeds/kafka_source.h"
 #include "daemon/http/http_server.h"
 #include "daemon/notify/delivery.h"
 #include "daemon/observe/metrics.h"
@@ -165,10 +166,29 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
       return 1;
     }
   }
+  std::unique_ptr<KafkaSource> kafka;
+  if (!settings->kafka.brokers.empty()) {
+    kafka = std::make_unique<KafkaSource>(
+        engine, settings->kafka,
+        IngestLimits{srv.max_rows_per_batch, static_cast<std::size_t>(srv.max_key_bytes),
+                     static_cast<std::size_t>(srv.max_labels),
+                     static_cast<std::size_t>(srv.max_label_bytes)},
+        [&err](const std::string& line, const char* level) { Log(err, line, level); });
+    if (Status started = kafka->Start(); !started) {
+      err << "forewarden serve: " << started.message() << '\n';
+      kafka.reset();
+      if (folder) folder->Stop();
+      server.Shutdown(std::chrono::seconds(0));
+      server.Run();
+      engine.Stop();
+      delivery.Stop();
+      return exit_code(started);
+    }
+  }
   std::atomic<long> reloads_ok{0}, reloads_failed{0};  // server and engine threads count them
   metrics.SetSources(MetricSources{&engine, &server.counters(), &api.counters(),
                                    folder ? &folder->counters() : nullptr, &delivery, &reloads_ok,
-                                   &reloads_failed});
+                                   &reloads_failed, kafka ? &kafka->counters() : nullptr});
   bool stopping = false;
   const std::chrono::seconds grace(srv.shutdown_grace_seconds);
   server.OnSignals([&](int signo) {
@@ -220,6 +240,13 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
               "warn");
           return;
         }
+        // The Kafka consumer keeps its settings until a restart (its group and offsets).
+        const config::Kafka &was = settings->kafka, &now = next->kafka;
+        if (was.brokers != now.brokers || was.topics != now.topics || was.group != now.group ||
+            was.format != now.format || was.dead_letter_topic != now.dead_letter_topic ||
+            was.batch_rows != now.batch_rows || was.batch_ms != now.batch_ms ||
+            was.properties != now.properties)
+          Log(err, "kafka settings changed: they apply at the next restart", "warn");
         const bool tls = !next->server.tls_cert_file.empty();
         if (Status checked =
                 tls ? server.CheckTls(next->server.tls_cert_file, next->server.tls_key_file)
@@ -303,6 +330,7 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   }
   watchdog_wake.notify_all();
   if (watchdog.joinable()) watchdog.join();
+  if (kafka) kafka->Stop();  // applies what it gathered while the engine still runs
   if (folder) folder->Stop();
   engine.Stop();
   delivery.Stop();

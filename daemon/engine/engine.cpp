@@ -370,11 +370,17 @@ void Engine::ClearDirty() {
 }
 
 bool Engine::Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)> done) {
+  return Submit(std::move(rows), {}, std::move(done));
+}
+
+bool Engine::Submit(std::vector<IngestRow> rows, std::vector<SourceOffset> offsets,
+                    std::function<void(IngestReply)> done) {
   {
     std::lock_guard lock(mu_);
     if (stopping_ || queue_.size() >= queue_depth_) return false;
     Job job;
     job.rows = std::move(rows);
+    job.offsets = std::move(offsets);
     job.done = std::move(done);
     queue_.push_back(std::move(job));
   }
@@ -624,6 +630,11 @@ void Engine::ApplyBatch(Pending& p) {
     p.reply.counts.alerts_opened = counts.opened;
     p.reply.counts.alerts_resolved = counts.resolved;
     p.alert_counts = counts;  // counted once the group commits
+    // a source's offsets commit with the actuals they carried, or not at all
+    if (Status put = store_.PutOffsets(p.job.offsets); !put) {
+      Fail(put.message());
+      return;
+    }
     if (Status released = store_.ReleaseSavepoint(); !released) Fail(released.message());
     return;
   }

@@ -160,6 +160,13 @@ class Engine {
   // Thread-safe. Queues a batch; false (and no call of `done`) when the queue is full.
   // `done` runs on the engine thread after the commit (or the rejection).
   bool Submit(std::vector<IngestRow> rows, std::function<void(IngestReply)> done);
+  // Submit for a source that resumes from the store: `offsets` are written in the same
+  // transaction as the rows, only when the batch is applied (a rejected batch writes neither).
+  // A batch of no rows and some offsets just moves the offsets on.
+  bool Submit(std::vector<IngestRow> rows, std::vector<SourceOffset> offsets,
+              std::function<void(IngestReply)> done);
+  // On the engine thread (from Post): where each source partition stands in the store.
+  Status StoredOffsets(std::vector<SourceOffset>& out) { return store_.Offsets(out); }
   // Thread-safe. Runs `job` on the engine thread, between batches; false when the queue is full.
   bool Post(std::function<void()> job);
   // Thread-safe. Replaces the settings (already validated) between batches.
@@ -244,6 +251,7 @@ class Engine {
   };
   struct Job {
     std::vector<IngestRow> rows;
+    std::vector<SourceOffset> offsets;  // written with the rows, only when they are applied
     std::function<void(IngestReply)> done;
     std::function<void()> read;
     std::shared_ptr<const config::Settings> reload;

@@ -16,6 +16,7 @@
 #include <sstream>
 
 #include "daemon/feeds/drop_folder.h"
+#include "daemon/feeds/kafka_source.h"
 #include "daemon/http/http_server.h"
 #include "daemon/notify/delivery.h"
 
@@ -415,6 +416,30 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
     files.Add({{"result", "done"}}).Increment(static_cast<double>(f->done.load()));
     files.Add({{"result", "rejected"}}).Increment(static_cast<double>(f->rejected.load()));
     files.Add({{"result", "retried"}}).Increment(static_cast<double>(f->retried.load()));
+  }
+
+  if (const KafkaCounters* k = src.kafka) {
+    auto counter = [&](const char* name, const char* help, const std::atomic<long>& v) {
+      BuildCounter().Name(name).Help(help).Register(now).Add({}).Increment(
+          static_cast<double>(v.load()));
+    };
+    counter("forewarden_kafka_messages_total", "Kafka messages consumed.", k->messages);
+    counter("forewarden_kafka_rows_total", "Rows from Kafka applied (in committed batches).",
+            k->rows);
+    counter("forewarden_kafka_dead_letters_total",
+            "Kafka messages refused (bad rows), sent to the dead-letter topic.", k->dead_letters);
+    counter("forewarden_kafka_batches_total", "Engine batches of Kafka rows committed.",
+            k->batches);
+    counter("forewarden_kafka_errors_total", "Errors librdkafka reported (brokers, network).",
+            k->errors);
+    counter("forewarden_kafka_rebalances_total", "Partition assignments and revocations.",
+            k->rebalances);
+    BuildGauge()
+        .Name("forewarden_kafka_partitions")
+        .Help("Kafka partitions assigned to this instance.")
+        .Register(now)
+        .Add({})
+        .Set(static_cast<double>(k->partitions.load()));
   }
 
   std::vector<prometheus::MetricFamily> families = now.Collect();

@@ -28,6 +28,7 @@ namespace forewarden {
 
 struct HttpCounters;
 struct DropFolderCounters;
+struct KafkaCounters;
 class Delivery;
 
 // What the API refused, by reason (kept by the API, read at scrape time).
@@ -58,6 +59,7 @@ struct MetricSources {
   const Delivery* delivery = nullptr;
   const std::atomic<long>* reloads_ok = nullptr;
   const std::atomic<long>* reloads_failed = nullptr;
+  const KafkaCounters* kafka = nullptr;
 };
 
 class Metrics {

@@ -110,6 +110,12 @@ const char* const kMigrations[] = {
     // 5: the diagnosis made when an alert opened (JSON; null for storm members and old alerts),
     //    so that notifications carry it without asking the engine
     "ALTER TABLE alerts ADD COLUMN diagnosis TEXT;",
+    // 6: where each Kafka topic partition stands, committed with the actuals it carried
+    "CREATE TABLE source_offsets("
+    "  topic TEXT NOT NULL,"
+    "  partition INTEGER NOT NULL,"
+    "  next_offset INTEGER NOT NULL,"
+    "  PRIMARY KEY(topic, partition)) WITHOUT ROWID;",
 };
 constexpr int kSchemaVersion = static_cast<int>(sizeof kMigrations / sizeof kMigrations[0]);
 
@@ -169,6 +175,9 @@ Status Store::Open(const std::string& dir, bool synchronous_full, long long max_
       "SELECT period, level FROM adjustments WHERE series_id = ?1 ORDER BY period, seq");
   audit_ = db_.Prepare(
       "INSERT INTO audit(at_ms, who, action, series_key, detail) VALUES(?1, ?2, ?3, ?4, ?5)");
+  put_offset_ = db_.Prepare(
+      "INSERT OR REPLACE INTO source_offsets(topic, partition, next_offset) VALUES(?1, ?2, ?3)");
+  offsets_ = db_.Prepare("SELECT topic, partition, next_offset FROM source_offsets");
   for (const Stmt* s : {&begin_,
                         &commit_,
                         &rollback_,
@@ -354,6 +363,26 @@ Status Store::DropBefore(std::int64_t id, std::int64_t before) {
 Status Store::PutAdjustment(std::int64_t id, const Adjustment& a) {
   return Check(put_adjustment_.Bind(1, id).Bind(2, a.period).Bind(3, a.level).Run(),
                "put adjustment");
+}
+
+Status Store::PutOffsets(const std::vector<SourceOffset>& offsets) {
+  for (const SourceOffset& o : offsets)
+    if (!put_offset_.Bind(1, o.topic)
+             .Bind(2, static_cast<std::int64_t>(o.partition))
+             .Bind(3, o.next)
+             .Run())
+      return Failed("put source offset");
+  return Status::Ok();
+}
+
+Status Store::Offsets(std::vector<SourceOffset>& out) {
+  out.clear();
+  for (;;) {
+    if (!offsets_.Step()) return Failed("read source offsets");
+    if (!offsets_.Row()) return Status::Ok();
+    out.push_back({std::string(offsets_.Text(0)), static_cast<std::int32_t>(offsets_.Int(1)),
+                   offsets_.Int(2)});
+  }
 }
 
 Status Store::Adjustments(std::int64_t id, std::vector<Adjustment>& out) {

@@ -43,6 +43,14 @@ struct Adjustment {
   double level = 0.0;
 };
 
+// Where a source of actuals stands: the next offset to read of one Kafka topic partition,
+// written in the same transaction as the actuals read before it.
+struct SourceOffset {
+  std::string topic;
+  std::int32_t partition = 0;
+  std::int64_t next = 0;
+};
+
 class Store {
  public:
   // Opens or creates `dir`/forewarden.db, applies migrations, sets WAL and `synchronous`
@@ -86,6 +94,10 @@ class Store {
   Status PutAdjustment(std::int64_t id, const Adjustment& a);
   Status Adjustments(std::int64_t id, std::vector<Adjustment>& out);
 
+  // Inside the caller's transaction: records where each source partition stands.
+  Status PutOffsets(const std::vector<SourceOffset>& offsets);
+  Status Offsets(std::vector<SourceOffset>& out);
+
   Status Audit(std::int64_t at_unix_ms, const std::string& who, const std::string& action,
                const std::string& series_key, const std::string& detail);
 
@@ -102,7 +114,7 @@ class Store {
   Stmt begin_, commit_, rollback_, savepoint_, release_, rollback_to_;
   Stmt insert_series_, insert_checkpoint_, update_state_, update_checkpoint_, load_checkpoint_;
   Stmt put_actual_, get_actual_, oldest_actual_, actuals_, drop_actuals_, drop_adjustments_;
-  Stmt put_adjustment_, adjustments_, audit_;
+  Stmt put_adjustment_, adjustments_, audit_, put_offset_, offsets_;
 };
 
 }  // namespace forewarden

@@ -1,0 +1,396 @@
+#include "daemon/feeds/kafka_source.h"
+
+#include <librdkafka/rdkafka.h>
+
+#include <algorithm>
+#include <chrono>
+#include <future>
+#include <map>
+#include <nlohmann/json.hpp>
+#include <optional>
+#include <set>
+#include <utility>
+#include <vector>
+
+namespace forewarden {
+namespace {
+
+using json = nlohmann::json;
+using Clock = std::chrono::steady_clock;
+
+// One consumed message, kept until the batch that carries its rows commits.
+struct Message {
+  std::string topic;
+  std::int32_t partition = 0;
+  std::int64_t offset = 0;
+  std::string key;
+  std::string text;
+  long first_row = 0, rows = 0;  // its rows in the batch: [first_row, first_row + rows)
+  std::vector<RowProblem> problems;
+};
+
+struct KafkaDeleter {
+  void operator()(rd_kafka_t* rk) const {
+    if (rk) rd_kafka_destroy(rk);
+  }
+};
+using KafkaHandle = std::unique_ptr<rd_kafka_t, KafkaDeleter>;
+
+}  // namespace
+
+struct KafkaSource::Impl {
+  Engine& engine;
+  config::Kafka settings;
+  IngestLimits limits;
+  Log log;
+  KafkaCounters counters;
+  KafkaHandle consumer, producer;
+  std::thread thread;
+  std::atomic<bool> stop{false};
+  bool started = false;
+
+  std::vector<Message> pending;
+  std::vector<IngestRow> rows;
+  Clock::time_point first_pending{};
+
+  Impl(Engine& e, config::Kafka s, IngestLimits l, Log lg)
+      : engine(e), settings(std::move(s)), limits(l), log(std::move(lg)) {}
+
+  // librdkafka configuration with the pass-through properties, then forewarden's own.
+  rd_kafka_conf_t* Conf(bool consumer_side, std::string& error) {
+    rd_kafka_conf_t* conf = rd_kafka_conf_new();
+    char why[512];
+    auto set = [&](const std::string& k, const std::string& v) {
+      if (rd_kafka_conf_set(conf, k.c_str(), v.c_str(), why, sizeof why) != RD_KAFKA_CONF_OK) {
+        error =
+            "kafka." + std::string(consumer_side ? "" : "dead-letter producer: ") + k + ": " + why;
+        return false;
+      }
+      return true;
+    };
+    bool ok = true;
+    for (const auto& [k, v] : settings.properties) ok = ok && set(k, v);
+    ok = ok && set("bootstrap.servers", settings.brokers);
+    if (consumer_side) {
+      ok = ok && set("group.id", settings.group) && set("enable.auto.commit", "false") &&
+           set("enable.auto.offset.store", "false") && set("auto.offset.reset", "earliest") &&
+           set("enable.partition.eof", "false");
+    } else {
+      ok = ok && set("enable.idempotence", "true");
+    }
+    if (!ok) {
+      rd_kafka_conf_destroy(conf);
+      return nullptr;
+    }
+    rd_kafka_conf_set_opaque(conf, this);
+    rd_kafka_conf_set_error_cb(conf, [](rd_kafka_t*, int err, const char* reason, void* opaque) {
+      auto* self = static_cast<Impl*>(opaque);
+      self->counters.errors.fetch_add(1);
+      self->log(std::string("kafka: ") + rd_kafka_err2name(static_cast<rd_kafka_resp_err_t>(err)) +
+                    ": " + reason,
+                "warn");
+    });
+    return conf;
+  }
+
+  Status Start() {
+    std::string error;
+    rd_kafka_conf_t* conf = Conf(true, error);
+    if (!conf) return Status::Invalid(error);
+    rd_kafka_conf_set_rebalance_cb(
+        conf, [](rd_kafka_t* rk, rd_kafka_resp_err_t err, rd_kafka_topic_partition_list_t* parts,
+                 void* opaque) { static_cast<Impl*>(opaque)->Rebalance(rk, err, parts); });
+    char why[512];
+    consumer.reset(rd_kafka_new(RD_KAFKA_CONSUMER, conf, why, sizeof why));
+    if (!consumer) {
+      rd_kafka_conf_destroy(conf);
+      return Status::Invalid(std::string("kafka: ") + why);
+    }
+    rd_kafka_poll_set_consumer(consumer.get());
+    if (!settings.dead_letter_topic.empty()) {
+      rd_kafka_conf_t* pconf = Conf(false, error);
+      if (!pconf) return Status::Invalid(error);
+      producer.reset(rd_kafka_new(RD_KAFKA_PRODUCER, pconf, why, sizeof why));
+      if (!producer) {
+        rd_kafka_conf_destroy(pconf);
+        return Status::Invalid(std::string("kafka: dead-letter producer: ") + why);
+      }
+    }
+    rd_kafka_topic_partition_list_t* topics =
+        rd_kafka_topic_partition_list_new(static_cast<int>(settings.topics.size()));
+    for (const std::string& t : settings.topics)
+      rd_kafka_topic_partition_list_add(topics, t.c_str(), RD_KAFKA_PARTITION_UA);
+    const rd_kafka_resp_err_t sub = rd_kafka_subscribe(consumer.get(), topics);
+    rd_kafka_topic_partition_list_destroy(topics);
+    if (sub != RD_KAFKA_RESP_ERR_NO_ERROR)
+      return Status::Invalid(std::string("kafka: subscribe: ") + rd_kafka_err2str(sub));
+    started = true;
+    thread = std::thread([this] { Run(); });
+    log("kafka: consuming " + std::to_string(settings.topics.size()) + " topic(s) as group '" +
+            settings.group + "' from " + settings.brokers,
+        "info");
+    return Status::Ok();
+  }
+
+  void Stop() {
+    if (!started) return;
+    started = false;
+    stop.store(true);
+    if (thread.joinable()) thread.join();
+    // Leaves the group (the revocation applies nothing: pending was applied by Run's end).
+    rd_kafka_consumer_close(consumer.get());
+    consumer.reset();
+    if (producer) rd_kafka_flush(producer.get(), 5000);
+    producer.reset();
+  }
+
+  void Run() {
+    while (!stop.load()) {
+      rd_kafka_message_t* m = rd_kafka_consumer_poll(consumer.get(), 100);
+      if (m) {
+        Take(*m);
+        rd_kafka_message_destroy(m);
+      }
+      const bool full = static_cast<long>(rows.size()) >= settings.batch_rows;
+      const bool waited = !pending.empty() && Clock::now() - first_pending >=
+                                                  std::chrono::milliseconds(settings.batch_ms);
+      if (full || waited || (!m && !pending.empty())) Flush();
+    }
+    Flush();
+  }
+
+  // Gathers one message's rows (or its problems).
+  void Take(const rd_kafka_message_t& m) {
+    if (m.err) {
+      if (m.err == RD_KAFKA_RESP_ERR__PARTITION_EOF) return;
+      counters.errors.fetch_add(1);
+      log(std::string("kafka: consumer: ") + rd_kafka_message_errstr(&m), "warn");
+      return;
+    }
+    counters.messages.fetch_add(1);
+    Message msg;
+    msg.topic = rd_kafka_topic_name(m.rkt);
+    msg.partition = m.partition;
+    msg.offset = m.offset;
+    if (m.key) msg.key.assign(static_cast<const char*>(m.key), m.key_len);
+    if (m.payload) msg.text.assign(static_cast<const char*>(m.payload), m.len);
+    // csv messages carry no header: the fixed columns go first, so lines number from 2
+    ParsedBatch parsed = settings.format == config::Kafka::Format::kCsv
+                             ? ParseCsvBatch("series,period,value\n" + msg.text, limits)
+                             : ParseNdjsonBatch(msg.text, limits);
+    const long shift = settings.format == config::Kafka::Format::kCsv ? 1 : 0;
+    if (parsed.problem_count > 0 || parsed.rows.empty()) {
+      msg.problems = std::move(parsed.problems);
+      for (RowProblem& p : msg.problems) p.line -= shift;
+      if (msg.problems.empty()) msg.problems.push_back({0, "", "the message holds no row"});
+    } else {
+      msg.first_row = static_cast<long>(rows.size());
+      msg.rows = static_cast<long>(parsed.rows.size());
+      for (IngestRow& r : parsed.rows) rows.push_back(std::move(r));
+    }
+    if (pending.empty()) first_pending = Clock::now();
+    pending.push_back(std::move(msg));
+  }
+
+  // The next offset of every partition the pending messages came from.
+  std::vector<SourceOffset> Offsets() const {
+    std::map<std::pair<std::string, std::int32_t>, std::int64_t> next;
+    for (const Message& m : pending) {
+      auto& n = next[{m.topic, m.partition}];
+      n = std::max(n, m.offset + 1);
+    }
+    std::vector<SourceOffset> out;
+    out.reserve(next.size());
+    for (const auto& [tp, n] : next) out.push_back({tp.first, tp.second, n});
+    return out;
+  }
+
+  // Applies the pending messages' rows with their offsets, sending the refused messages to the
+  // dead-letter topic first. Returns when committed (or when stopping makes waiting pointless:
+  // the rows are read again from the stored offsets after a restart).
+  void Flush() {
+    if (pending.empty()) return;
+    std::set<std::size_t> dead;  // messages refused
+    for (std::size_t i = 0; i < pending.size(); ++i)
+      if (!pending[i].problems.empty()) dead.insert(i);
+    std::vector<std::size_t> owner;  // batch row -> message
+    for (;;) {
+      std::vector<IngestRow> batch;
+      owner.clear();
+      for (std::size_t i = 0; i < pending.size(); ++i) {
+        if (dead.count(i)) continue;
+        const Message& m = pending[i];
+        for (long r = 0; r < m.rows; ++r) {
+          IngestRow row = rows[static_cast<std::size_t>(m.first_row + r)];
+          owner.push_back(i);
+          row.line = static_cast<long>(owner.size());  // problems name it back
+          batch.push_back(std::move(row));
+        }
+      }
+      // The refused messages are in the dead-letter topic before the offsets pass them.
+      if (!DeadLetter(dead)) return;
+      std::optional<IngestReply> reply = Apply(batch);
+      if (!reply) return;  // stopping
+      if (reply->status == IngestReply::Status::kOk) {
+        counters.rows.fetch_add(reply->counts.rows);
+        counters.batches.fetch_add(1);
+        break;
+      }
+      // Refused rows: their messages go to the dead-letter topic, the rest is applied again.
+      for (const RowProblem& p : reply->problems) {
+        if (p.line < 1 || p.line > static_cast<long>(owner.size())) continue;
+        const std::size_t i = owner[static_cast<std::size_t>(p.line - 1)];
+        Message& m = pending[i];
+        RowProblem q = p;
+        q.line = p.line - static_cast<long>(std::find(owner.begin(), owner.end(), i) -
+                                            owner.begin());  // the line within the message
+        m.problems.push_back(std::move(q));
+        dead.insert(i);
+      }
+      if (reply->problems.empty()) {  // refused without a row named: cannot go on safely
+        log("kafka: a batch was refused without a row named; retrying", "warn");
+        std::this_thread::sleep_for(std::chrono::milliseconds(200));
+      }
+    }
+    pending.clear();
+    rows.clear();
+  }
+
+  // Hands a batch (with the pending offsets) to the engine until it takes it; nullopt when
+  // stopping first.
+  std::optional<IngestReply> Apply(const std::vector<IngestRow>& batch) {
+    auto backoff = std::chrono::milliseconds(10);
+    for (;;) {
+      std::promise<IngestReply> promise;
+      auto future = promise.get_future();
+      if (engine.Submit(batch, Offsets(),
+                        [&promise](IngestReply r) { promise.set_value(std::move(r)); })) {
+        IngestReply reply = future.get();
+        if (reply.status != IngestReply::Status::kUnavailable) return reply;
+        log("kafka: the store cannot take the batch now: " + reply.error, "warn");
+      }
+      if (stop.load()) return std::nullopt;
+      std::this_thread::sleep_for(backoff);
+      backoff = std::min(backoff * 2, std::chrono::milliseconds(2000));
+    }
+  }
+
+  // Sends the refused messages of `dead` not yet sent; true once the brokers acknowledged all.
+  bool DeadLetter(const std::set<std::size_t>& dead) {
+    for (std::size_t i : dead) {
+      Message& m = pending[i];
+      if (m.rows < 0) continue;  // sent
+      json problems = json::array();
+      for (const RowProblem& p : m.problems)
+        problems.push_back({{"line", p.line}, {"field", p.field}, {"message", p.message}});
+      const std::string record =
+          json{{"topic", m.topic}, {"partition", m.partition}, {"offset", m.offset},
+               {"key", m.key},     {"problems", problems},     {"message", m.text}}
+              .dump(-1, ' ', false, json::error_handler_t::replace);
+      if (!producer) {
+        log("kafka: refused message (no dead_letter_topic): " + record, "warn");
+      } else {
+        for (;;) {
+          const rd_kafka_resp_err_t err = rd_kafka_producev(
+              producer.get(), RD_KAFKA_V_TOPIC(settings.dead_letter_topic.c_str()),
+              RD_KAFKA_V_KEY(m.key.data(), m.key.size()),
+              RD_KAFKA_V_VALUE(const_cast<char*>(record.data()), record.size()),
+              RD_KAFKA_V_MSGFLAGS(RD_KAFKA_MSG_F_COPY), RD_KAFKA_V_END);
+          if (err == RD_KAFKA_RESP_ERR_NO_ERROR) break;
+          if (err != RD_KAFKA_RESP_ERR__QUEUE_FULL || stop.load()) {
+            counters.errors.fetch_add(1);
+            log(std::string("kafka: dead-letter topic: ") + rd_kafka_err2str(err), "error");
+            return false;
+          }
+          rd_kafka_poll(producer.get(), 100);
+        }
+      }
+      m.rows = -1;  // sent (rows of a refused message are never applied)
+      counters.dead_letters.fetch_add(1);
+    }
+    if (!producer) return true;
+    // Delivered (idempotent producer: retried inside librdkafka) before the offsets move on.
+    while (rd_kafka_flush(producer.get(), 1000) != RD_KAFKA_RESP_ERR_NO_ERROR) {
+      if (stop.load()) return false;
+      log("kafka: waiting for the dead-letter topic to take refused messages", "warn");
+    }
+    return true;
+  }
+
+  // The offsets stored, read on the engine thread; nullopt when stopping first.
+  std::optional<std::vector<SourceOffset>> StoredOffsets() {
+    for (auto backoff = std::chrono::milliseconds(10);;
+         backoff = std::min(backoff * 2, std::chrono::milliseconds(2000))) {
+      std::promise<std::optional<std::vector<SourceOffset>>> promise;
+      auto future = promise.get_future();
+      const bool posted = engine.Post([this, &promise] {
+        std::vector<SourceOffset> out;
+        if (Status read = engine.StoredOffsets(out); !read) {
+          log("kafka: reading the stored offsets: " + read.message(), "error");
+          promise.set_value(std::nullopt);
+          return;
+        }
+        promise.set_value(std::move(out));
+      });
+      if (posted)
+        if (auto got = future.get()) return got;
+      if (stop.load()) return std::nullopt;
+      std::this_thread::sleep_for(backoff);
+    }
+  }
+
+  void Rebalance(rd_kafka_t* rk, rd_kafka_resp_err_t err, rd_kafka_topic_partition_list_t* parts) {
+    counters.rebalances.fetch_add(1);
+    const bool cooperative = std::string(rd_kafka_rebalance_protocol(rk)) == "COOPERATIVE";
+    if (err == RD_KAFKA_RESP_ERR__ASSIGN_PARTITIONS) {
+      // Resume every partition from the store (its beginning when it has none). Without the
+      // stored offsets nothing is assigned: reading from the beginning would apply rows twice.
+      std::optional<std::vector<SourceOffset>> stored = StoredOffsets();
+      if (!stored) return;  // stopping
+      for (int i = 0; i < parts->cnt; ++i) {
+        rd_kafka_topic_partition_t& p = parts->elems[i];
+        p.offset = RD_KAFKA_OFFSET_BEGINNING;
+        for (const SourceOffset& s : *stored)
+          if (s.topic == p.topic && s.partition == p.partition) p.offset = s.next;
+      }
+      if (cooperative)
+        rd_kafka_error_destroy(rd_kafka_incremental_assign(rk, parts));
+      else
+        rd_kafka_assign(rk, parts);
+      counters.partitions.fetch_add(parts->cnt);
+      log("kafka: assigned " + std::to_string(parts->cnt) + " partition(s)", "info");
+    } else {
+      // Revoked: what was read from them is applied before another instance takes them.
+      Flush();
+      if (cooperative) {
+        rd_kafka_error_destroy(rd_kafka_incremental_unassign(rk, parts));
+        counters.partitions.fetch_sub(parts->cnt);
+      } else {
+        rd_kafka_assign(rk, nullptr);
+        counters.partitions.store(0);
+      }
+      log("kafka: " + std::to_string(parts->cnt) + " partition(s) revoked", "info");
+    }
+  }
+};
+
+KafkaSource::KafkaSource(Engine& engine, config::Kafka settings, IngestLimits limits, Log log)
+    : impl_(std::make_unique<Impl>(engine, std::move(settings), limits, std::move(log))) {}
+
+KafkaSource::~KafkaSource() {
+  Stop();
+}
+
+Status KafkaSource::Start() {
+  return impl_->Start();
+}
+
+void KafkaSource::Stop() {
+  impl_->Stop();
+}
+
+const KafkaCounters& KafkaSource::counters() const {
+  return impl_->counters;
+}
+
+}  // namespace forewarden
