@@ -106,6 +106,8 @@ const std::set<std::string> kAlertsKeys = {
     "max_backoff_seconds", "batch", "resend_seconds", "public_url",
     "check_seconds"};
 const std::set<std::string> kSinkKeys = {"name",
+                                         "topic",
+                                         "brokers",
                                          "ca_file",
                                          "type",
                                          "url",
@@ -702,7 +704,7 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
     if (!sink.name.empty() && !names.insert(sink.name).second)
       r.Add(k["name"], sp + ".name", "sink name '" + sink.name + "' is used twice");
     if (!k["type"].IsDefined()) {
-      r.Add(k, sp, "a sink needs a 'type' (webhook, alertmanager or log)");
+      r.Add(k, sp, "a sink needs a 'type' (webhook, alertmanager, kafka or log)");
     } else if (r.String(k["type"], sp + ".type", type)) {
       if (type == "webhook")
         sink.kind = Sink::Kind::kWebhook;
@@ -710,22 +712,35 @@ void ReadAlerts(Reader& r, const YAML::Node& n, Alerts& a) {
         sink.kind = Sink::Kind::kAlertmanager;
       else if (type == "log")
         sink.kind = Sink::Kind::kLog;
+      else if (type == "kafka")
+        sink.kind = Sink::Kind::kKafka;
       else
-        r.Add(k["type"], sp + ".type", "must be webhook, alertmanager or log, got '" + type + "'");
+        r.Add(k["type"], sp + ".type",
+              "must be webhook, alertmanager, kafka or log, got '" + type + "'");
     }
     for (auto [key, out] :
          {std::pair{"url", &sink.url}, std::pair{"secret_file", &sink.secret_file},
           std::pair{"secret_env", &sink.secret_env}, std::pair{"key_id", &sink.key_id},
           std::pair{"previous_secret_file", &sink.previous_secret_file},
-          std::pair{"previous_key_id", &sink.previous_key_id}, std::pair{"ca_file", &sink.ca_file}})
+          std::pair{"previous_key_id", &sink.previous_key_id}, std::pair{"ca_file", &sink.ca_file},
+          std::pair{"topic", &sink.topic}, std::pair{"brokers", &sink.brokers}})
       if (k[key].IsDefined()) r.String(k[key], Reader::Join(sp, key), *out);
     r.Int(k, "timeout_seconds", sp, sink.timeout_seconds, 1, 3600);
-    if (sink.kind != Sink::Kind::kLog) {
+    if (sink.kind == Sink::Kind::kKafka) {
+      if (!TopicName(sink.topic))
+        r.Add(k["topic"].IsDefined() ? k["topic"] : k, sp + ".topic",
+              "a kafka sink needs a topic: 1 to 249 letters, digits, '.', '_' or '-'");
+      if (!sink.url.empty()) r.Add(k["url"], sp + ".url", "a kafka sink takes topic, not url");
+    } else if (!sink.topic.empty() || !sink.brokers.empty()) {
+      r.Add(k, sp, "only kafka sinks take topic and brokers");
+    }
+    // a kafka sink's brokers: its own, else kafka.brokers (checked once that section is read)
+    if (sink.kind == Sink::Kind::kWebhook || sink.kind == Sink::Kind::kAlertmanager) {
       if (sink.url.rfind("http://", 0) != 0 && sink.url.rfind("https://", 0) != 0)
         r.Add(k["url"].IsDefined() ? k["url"] : k, sp + ".url", "needs an http:// or https:// URL");
       if (!sink.ca_file.empty() && sink.url.rfind("https://", 0) != 0)
         r.Add(k["ca_file"], Reader::Join(sp, "ca_file"), "a CA file needs an https:// url");
-    } else if (!sink.url.empty()) {
+    } else if (sink.kind == Sink::Kind::kLog && !sink.url.empty()) {
       r.Add(k["url"], sp + ".url", "a log sink takes no url");
     }
     if (sink.kind != Sink::Kind::kWebhook &&
@@ -845,6 +860,14 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
   result.settings.alerts.sinks = {log_sink};
   if (root["alerts"].IsDefined()) ReadAlerts(r, root["alerts"], result.settings.alerts);
   if (root["kafka"].IsDefined()) ReadKafka(r, root["kafka"], result.settings.kafka);
+  for (std::size_t i = 0; i < result.settings.alerts.sinks.size(); ++i) {
+    Sink& k = result.settings.alerts.sinks[i];
+    if (k.kind != Sink::Kind::kKafka || !k.brokers.empty()) continue;
+    k.brokers = result.settings.kafka.brokers;
+    if (k.brokers.empty())
+      r.Add(root["alerts"], "alerts.sinks[" + std::to_string(i) + "].brokers",
+            "a kafka sink needs brokers: its own, or the kafka section's");
+  }
   if (root["fallback_policy"].IsDefined())
     r.String(root["fallback_policy"], "fallback_policy", result.settings.fallback_policy);
   const YAML::Node policies = root["policies"];

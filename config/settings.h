@@ -44,7 +44,7 @@ struct Policy {
 
 // Where alert notifications go (`alerts.sinks`).
 struct Sink {
-  enum class Kind { kWebhook, kAlertmanager, kLog };
+  enum class Kind { kWebhook, kAlertmanager, kLog, kKafka };
   std::string name;
   Kind kind = Kind::kLog;
   std::string url;                    // webhook: the endpoint; alertmanager: its base URL
@@ -56,6 +56,10 @@ struct Sink {
   std::string previous_secret_file;
   std::string previous_key_id;
   long timeout_seconds = 10;
+  // kafka: events produced to this topic, keyed by alert (or group) id, through these brokers
+  // (default: kafka.brokers) with kafka.properties
+  std::string topic;
+  std::string brokers;
 };
 
 // Alert lifecycle and delivery (`alerts:`); all optional.

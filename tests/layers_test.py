@@ -28,7 +28,7 @@ ALLOWED = {
 LIBRARIES = {
     "boost/": {"http"},
     "nlohmann/": {"batch", "store", "notify", "feeds", "api", "cli"},
-    "librdkafka/": {"feeds"},
+    "librdkafka/": {"feeds", "notify"},
     "sqlite3.h": {"store"},
     "prometheus/": {"observe"},
     "openssl/": {"notify", "http"},

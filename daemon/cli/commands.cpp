@@ -224,8 +224,10 @@ int CheckConfig(const std::vector<std::string>& args, std::ostream& out, std::os
     out << ", " << k.name << " ("
         << (k.kind == config::Sink::Kind::kWebhook        ? "webhook"
             : k.kind == config::Sink::Kind::kAlertmanager ? "alertmanager"
+            : k.kind == config::Sink::Kind::kKafka        ? "kafka"
                                                           : "log")
         << (k.url.empty() ? "" : " " + k.url)
+        << (k.topic.empty() ? "" : " topic " + k.topic + " on " + k.brokers)
         << (k.secret_file.empty() && k.secret_env.empty() ? "" : ", signed") << ")";
   out << "; storms of more than " << a.storm_threshold << " series grouped\n";
   return 0;

@@ -17,6 +17,11 @@ using LogFields = std::vector<std::pair<std::string, std::string>>;
 // The formatted line, ending in '\n'. `level`: info, warn or error.
 std::string LogLine(const char* level, const std::string& msg, const LogFields& fields = {});
 
+// The level word of a syslog severity (0-7), as librdkafka reports its log lines.
+inline const char* SyslogLevel(int severity) {
+  return severity <= 3 ? "error" : severity == 4 ? "warn" : severity <= 6 ? "info" : "debug";
+}
+
 // Writes a whole line at once (lines from several threads never mix).
 void WriteLog(std::ostream& out, const std::string& line);
 

@@ -12,6 +12,8 @@
 #include <utility>
 #include <vector>
 
+#include "daemon/common/log.h"
+
 namespace forewarden {
 namespace {
 
@@ -49,6 +51,7 @@ struct KafkaSource::Impl {
   std::atomic<bool> stop{false};
   bool started = false;
 
+  long undelivered = 0;  // dead letters the brokers did not take (producer callbacks, this thread)
   std::vector<Message> pending;
   std::vector<IngestRow> rows;
   Clock::time_point first_pending{};
@@ -77,12 +80,22 @@ struct KafkaSource::Impl {
            set("enable.partition.eof", "false");
     } else {
       ok = ok && set("enable.idempotence", "true");
+      // a dead letter that could not be delivered is counted, so that it is sent again
+      rd_kafka_conf_set_dr_msg_cb(conf, [](rd_kafka_t* rk, const rd_kafka_message_t* m, void*) {
+        if (m->err) static_cast<Impl*>(rd_kafka_opaque(rk))->undelivered += 1;
+      });
     }
     if (!ok) {
       rd_kafka_conf_destroy(conf);
       return nullptr;
     }
     rd_kafka_conf_set_opaque(conf, this);
+    // librdkafka's own lines in the service's log format (they went to stderr raw)
+    rd_kafka_conf_set_log_cb(
+        conf, [](const rd_kafka_t* rk, int level, const char* fac, const char* buf) {
+          auto* self = static_cast<Impl*>(rd_kafka_opaque(rk));
+          if (self) self->log(std::string("kafka: ") + fac + ": " + buf, SyslogLevel(level));
+        });
     rd_kafka_conf_set_error_cb(conf, [](rd_kafka_t*, int err, const char* reason, void* opaque) {
       auto* self = static_cast<Impl*>(opaque);
       self->counters.errors.fetch_add(1);
@@ -154,9 +167,40 @@ struct KafkaSource::Impl {
       const bool full = static_cast<long>(rows.size()) >= settings.batch_rows;
       const bool waited = !pending.empty() && Clock::now() - first_pending >=
                                                   std::chrono::milliseconds(settings.batch_ms);
-      if (full || waited || (!m && !pending.empty())) Flush();
+      if ((full || waited || (!m && !pending.empty())) && !Flush() && !stop.load()) {
+        // The dead-letter topic did not take the refused messages: nothing of the batch is
+        // committed. Drop it and read it again from the stored offsets after a pause, rather
+        // than gather more and more while the brokers cannot take it.
+        std::this_thread::sleep_for(std::chrono::milliseconds(500));
+        Rewind();
+      }
     }
     Flush();
+  }
+
+  // Drops what was gathered and not committed, and moves every assigned partition back to the
+  // offset stored with the last actuals committed from it.
+  void Rewind() {
+    pending.clear();
+    rows.clear();
+    rd_kafka_topic_partition_list_t* assigned = nullptr;
+    if (rd_kafka_assignment(consumer.get(), &assigned) != RD_KAFKA_RESP_ERR_NO_ERROR) return;
+    std::optional<std::vector<SourceOffset>> stored =
+        assigned->cnt > 0 ? StoredOffsets() : std::nullopt;
+    if (stored) {
+      for (int i = 0; i < assigned->cnt; ++i) {
+        rd_kafka_topic_partition_t& p = assigned->elems[i];
+        p.offset = RD_KAFKA_OFFSET_BEGINNING;
+        for (const SourceOffset& s : *stored)
+          if (s.topic == p.topic && s.partition == p.partition) p.offset = s.next;
+      }
+      if (rd_kafka_error_t* e = rd_kafka_seek_partitions(consumer.get(), assigned, 10000)) {
+        log(std::string("kafka: seeking back to the stored offsets: ") + rd_kafka_error_string(e),
+            "error");
+        rd_kafka_error_destroy(e);
+      }
+    }
+    rd_kafka_topic_partition_list_destroy(assigned);
   }
 
   // Gathers one message's rows (or its problems).
@@ -208,8 +252,8 @@ struct KafkaSource::Impl {
   // Applies the pending messages' rows with their offsets, sending the refused messages to the
   // dead-letter topic first. Returns when committed (or when stopping makes waiting pointless:
   // the rows are read again from the stored offsets after a restart).
-  void Flush() {
-    if (pending.empty()) return;
+  bool Flush() {
+    if (pending.empty()) return true;
     std::set<std::size_t> dead;  // messages refused
     for (std::size_t i = 0; i < pending.size(); ++i)
       if (!pending[i].problems.empty()) dead.insert(i);
@@ -228,9 +272,9 @@ struct KafkaSource::Impl {
         }
       }
       // The refused messages are in the dead-letter topic before the offsets pass them.
-      if (!DeadLetter(dead)) return;
+      if (!DeadLetter(dead)) return false;
       std::optional<IngestReply> reply = Apply(batch);
-      if (!reply) return;  // stopping
+      if (!reply) return false;  // stopping
       if (reply->status == IngestReply::Status::kOk) {
         counters.rows.fetch_add(reply->counts.rows);
         counters.batches.fetch_add(1);
@@ -254,6 +298,7 @@ struct KafkaSource::Impl {
     }
     pending.clear();
     rows.clear();
+    return true;
   }
 
   // Hands a batch (with the pending offsets) to the engine until it takes it; nullopt when
@@ -277,6 +322,8 @@ struct KafkaSource::Impl {
 
   // Sends the refused messages of `dead` not yet sent; true once the brokers acknowledged all.
   bool DeadLetter(const std::set<std::size_t>& dead) {
+    const long undelivered_before = undelivered;
+    std::vector<std::size_t> sent;
     for (std::size_t i : dead) {
       Message& m = pending[i];
       if (m.rows < 0) continue;  // sent
@@ -306,14 +353,24 @@ struct KafkaSource::Impl {
         }
       }
       m.rows = -1;  // sent (rows of a refused message are never applied)
-      counters.dead_letters.fetch_add(1);
+      sent.push_back(i);
     }
-    if (!producer) return true;
-    // Delivered (idempotent producer: retried inside librdkafka) before the offsets move on.
-    while (rd_kafka_flush(producer.get(), 1000) != RD_KAFKA_RESP_ERR_NO_ERROR) {
-      if (stop.load()) return false;
-      log("kafka: waiting for the dead-letter topic to take refused messages", "warn");
+    if (producer) {
+      // Delivered (idempotent producer: retried inside librdkafka) before the offsets move on.
+      while (rd_kafka_flush(producer.get(), 1000) != RD_KAFKA_RESP_ERR_NO_ERROR) {
+        if (stop.load()) return false;
+        log("kafka: waiting for the dead-letter topic to take refused messages", "warn");
+      }
+      if (undelivered != undelivered_before) {
+        // some were not taken (message timeout): this round's go again (at least once)
+        for (std::size_t i : sent) pending[i].rows = 0;
+        counters.errors.fetch_add(1);
+        log("kafka: the dead-letter topic did not take refused messages; sending them again",
+            "error");
+        return false;
+      }
     }
+    counters.dead_letters.fetch_add(static_cast<long>(sent.size()));
     return true;
   }
 
@@ -360,11 +417,15 @@ struct KafkaSource::Impl {
       counters.partitions.fetch_add(parts->cnt);
       log("kafka: assigned " + std::to_string(parts->cnt) + " partition(s)", "info");
     } else {
-      // Revoked: what was read from them is applied before another instance takes them.
-      Flush();
+      // Revoked: what was read from them is applied before another instance takes them; what
+      // cannot be applied now is dropped (the owner reads it again from the stored offsets).
+      const bool applied = Flush();
+      pending.clear();
+      rows.clear();
       if (cooperative) {
         rd_kafka_error_destroy(rd_kafka_incremental_unassign(rk, parts));
         counters.partitions.fetch_sub(parts->cnt);
+        if (!applied) Rewind();  // the partitions kept go back to their stored offsets too
       } else {
         rd_kafka_assign(rk, nullptr);
         counters.partitions.store(0);

@@ -1,5 +1,6 @@
 #include "daemon/notify/delivery.h"
 
+#include <librdkafka/rdkafka.h>
 #include <openssl/evp.h>
 #include <openssl/hmac.h>
 
@@ -83,10 +84,74 @@ std::vector<std::pair<std::string, std::string>> SignatureHeaders(
 
 namespace {
 
+// Where a produced message's delivery result goes: one slot of a round's results, kept alive
+// by every report that may still arrive.
+struct KafkaReport {
+  std::shared_ptr<std::vector<rd_kafka_resp_err_t>> results;
+  std::size_t index = 0;
+};
+
+// A kafka sink's producer (idempotent: librdkafka retries without duplicates or reordering).
+class KafkaProducer {
+ public:
+  static Result<std::shared_ptr<KafkaProducer>> Make(const config::Sink& s,
+                                                     const config::Kafka& kafka) {
+    rd_kafka_conf_t* conf = rd_kafka_conf_new();
+    char why[512];
+    std::vector<std::pair<std::string, std::string>> props = kafka.properties;
+    props.emplace_back("bootstrap.servers", s.brokers);
+    props.emplace_back("enable.idempotence", "true");
+    props.emplace_back("message.timeout.ms", std::to_string(s.timeout_seconds * 1000));
+    for (const auto& [k, v] : props)
+      if (rd_kafka_conf_set(conf, k.c_str(), v.c_str(), why, sizeof why) != RD_KAFKA_CONF_OK) {
+        rd_kafka_conf_destroy(conf);
+        return Status::Invalid("sink " + s.name + ": " + k + ": " + why);
+      }
+    // librdkafka's own lines in the service's log format
+    rd_kafka_conf_set_log_cb(
+        conf, [](const rd_kafka_t* rk, int level, const char* fac, const char* buf) {
+          const char* name = static_cast<const char*>(rd_kafka_opaque(rk));
+          WriteLog(std::cerr,
+                   LogLine(SyslogLevel(level), "kafka sink",
+                           {{"sink", name ? name : ""}, {"what", std::string(fac) + ": " + buf}}));
+        });
+    // each message's result lands in its report (served by poll and flush, on the worker
+    // thread); a report outlives a flush that gave up, so a late result writes nowhere stale
+    rd_kafka_conf_set_dr_msg_cb(conf, [](rd_kafka_t*, const rd_kafka_message_t* m, void*) {
+      auto* report = static_cast<KafkaReport*>(m->_private);
+      if (!report) return;
+      report->results->at(report->index) = m->err;
+      delete report;
+    });
+    auto name = std::make_unique<std::string>(s.name);  // the log callback's opaque
+    rd_kafka_conf_set_opaque(conf, const_cast<char*>(name->c_str()));
+    rd_kafka_t* rk = rd_kafka_new(RD_KAFKA_PRODUCER, conf, why, sizeof why);
+    if (!rk) {
+      rd_kafka_conf_destroy(conf);
+      return Status::Invalid("sink " + s.name + ": " + why);
+    }
+    return std::shared_ptr<KafkaProducer>(new KafkaProducer(rk, std::move(name)));
+  }
+  ~KafkaProducer() {
+    rd_kafka_flush(rk_, 2000);
+    rd_kafka_destroy(rk_);
+  }
+  KafkaProducer(const KafkaProducer&) = delete;
+  KafkaProducer& operator=(const KafkaProducer&) = delete;
+  rd_kafka_t* get() const { return rk_; }
+
+ private:
+  KafkaProducer(rd_kafka_t* rk, std::unique_ptr<std::string> name)
+      : rk_(rk), name_(std::move(name)) {}
+  rd_kafka_t* rk_;
+  std::unique_ptr<std::string> name_;  // outlives rk_ (destroyed after it)
+};
+
 struct SinkConfig {
   config::Sink sink;
   std::vector<SigningKey>
       keys;  // the current key, then the previous one while rotating; never logged
+  std::shared_ptr<KafkaProducer> kafka;  // kafka sinks
 };
 
 using Event = PendingDelivery;
@@ -171,6 +236,7 @@ struct Delivery::Impl {
   void Finish(const SinkConfig& s, const Event& e, const Status& sent, std::int64_t now);
   Status SendWebhook(const SinkConfig& s, const Event& e);
   Status SendAlertmanager(const SinkConfig& s, const std::vector<json>& notes);
+  void SendKafka(const SinkConfig& s, const std::vector<Event>& events, std::int64_t now);
   void Resend(std::int64_t now);
 };
 
@@ -188,7 +254,12 @@ Status Delivery::Update(std::shared_ptr<const config::Settings> settings) {
   std::string error;
   std::vector<SinkConfig> sinks;
   for (const config::Sink& s : settings->alerts.sinks) {
-    SinkConfig c{s, {}};
+    SinkConfig c{s, {}, nullptr};
+    if (s.kind == config::Sink::Kind::kKafka) {
+      Result<std::shared_ptr<KafkaProducer>> made = KafkaProducer::Make(s, settings->kafka);
+      if (!made) return made.status();
+      c.kafka = std::move(*made);
+    }
     std::string secret;
     if (!ReadSecret(s, s.secret_file, s.secret_env, secret, error)) return Status::Invalid(error);
     if (!secret.empty()) c.keys.push_back({s.key_id, secret});
@@ -356,6 +427,51 @@ Status Delivery::Impl::SendAlertmanager(const SinkConfig& s, const std::vector<j
                              : r.error);
 }
 
+// Produces the due events in order, keyed by alert (or group) id, and waits for the brokers'
+// acknowledgements; events after the first one not acknowledged wait for the next round.
+void Delivery::Impl::SendKafka(const SinkConfig& s, const std::vector<Event>& events,
+                               std::int64_t now) {
+  std::vector<Event> due;
+  for (const Event& e : events)
+    if (e.next_ms <= now) due.push_back(e);
+  auto result =
+      std::make_shared<std::vector<rd_kafka_resp_err_t>>(due.size(), RD_KAFKA_RESP_ERR__TIMED_OUT);
+  std::vector<Status> status(due.size(), Status::Ok());
+  rd_kafka_t* rk = s.kafka->get();
+  for (std::size_t i = 0; i < due.size(); ++i) {
+    Result<json> note = notifications.Event(due[i].event);
+    if (!note) {
+      status[i] = note.status();
+      due.resize(i + 1);
+      break;
+    }
+    const std::string key = note->contains("alert")
+                                ? "alert-" + std::to_string((*note)["alert"].value("id", 0L))
+                                : "group-" + std::to_string((*note)["group"].value("id", 0L));
+    const std::string body = note->dump(-1, ' ', false, json::error_handler_t::replace);
+    auto* report = new KafkaReport{result, i};
+    const rd_kafka_resp_err_t err = rd_kafka_producev(
+        rk, RD_KAFKA_V_TOPIC(s.sink.topic.c_str()), RD_KAFKA_V_KEY(key.data(), key.size()),
+        RD_KAFKA_V_VALUE(const_cast<char*>(body.data()), body.size()),
+        RD_KAFKA_V_MSGFLAGS(RD_KAFKA_MSG_F_COPY), RD_KAFKA_V_OPAQUE(report), RD_KAFKA_V_END);
+    if (err != RD_KAFKA_RESP_ERR_NO_ERROR) {
+      delete report;  // not queued: no result will come
+      status[i] = Status::Io(std::string("kafka: ") + rd_kafka_err2str(err));
+      due.resize(i + 1);
+      break;
+    }
+  }
+  // acknowledged or failed within the sink's timeout (message.timeout.ms)
+  rd_kafka_flush(rk, static_cast<int>(s.sink.timeout_seconds * 1000 + 1000));
+  for (std::size_t i = 0; i < due.size(); ++i) {
+    Status sent = status[i];
+    if (sent && (*result)[i] != RD_KAFKA_RESP_ERR_NO_ERROR)
+      sent = Status::Io(std::string("kafka: ") + rd_kafka_err2str((*result)[i]));
+    Finish(s, due[i], sent, clock());
+    if (!sent) break;  // later events wait behind this one
+  }
+}
+
 void Delivery::Impl::Round(std::int64_t now) {
   std::vector<SinkConfig> current;
   {
@@ -395,6 +511,9 @@ void Delivery::Impl::Round(std::int64_t now) {
           Finish(s, e, sent, clock());
           if (!sent) break;  // later events wait behind this one
         }
+        break;
+      case config::Sink::Kind::kKafka:
+        SendKafka(s, events, now);
         break;
       case config::Sink::Kind::kAlertmanager: {
         std::vector<Event> due;

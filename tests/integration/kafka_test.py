@@ -20,6 +20,7 @@ from harness import Server, close, run, temp_dir  # noqa: E402
 MOCK = os.path.join(os.environ.get("FOREWARDEN_BUILD_DIR", "build/dev"), "tests", "forewarden_kafka_mock")
 TOPIC = "actuals"
 DEAD = "actuals-rejected"
+EVENTS = "alert-events"
 
 
 class Cluster:
@@ -27,7 +28,8 @@ class Cluster:
 
     def __init__(self):
         self.dir = temp_dir()
-        self.proc = subprocess.Popen([MOCK, "--brokers", "3", "--topic", TOPIC + ":12", "--topic", DEAD + ":1"],
+        self.proc = subprocess.Popen([MOCK, "--brokers", "3", "--topic", TOPIC + ":12", "--topic", DEAD + ":1",
+                                      "--topic", EVENTS + ":3"],
                                      stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
                                      text=True)
         line = self.proc.stdout.readline()
@@ -212,6 +214,14 @@ def test_a_kafka_feed_applies_as_replay_does_and_bad_rows_go_to_the_dead_letter_
             assert metric(srv, "forewarden_kafka_messages_total") == len(messages)
             assert metric(srv, "forewarden_kafka_rows_total") == len(messages) - len(bad)
             assert metric(srv, "forewarden_kafka_partitions") == 12
+            # the exposition with Kafka passes promtool, and every kafka metric is in the README
+            status, text, _ = srv.request("GET", "/metrics")
+            lint = subprocess.run(["promtool", "check", "metrics"], input=text, capture_output=True, text=True)
+            assert lint.returncode == 0 and not lint.stdout.strip(), (lint.stdout, lint.stderr)
+            with open(os.path.join(os.path.dirname(__file__), "..", "..", "README.md")) as f:
+                readme = f.read()
+            kafka_names = set(re.findall(r"^(forewarden_kafka_\w+)", text, re.M))
+            assert len(kafka_names) == 7 and all("`%s`" % n in readme for n in kafka_names), kafka_names
             assert_equals_replay(srv, keys, good_csv)
             letters = dead_letters(cluster)
             assert sorted(d["message"] for d in letters) == sorted(v for _, v, _ in bad), letters
@@ -267,6 +277,61 @@ def test_a_broker_that_stops_answering_costs_nothing():
             srv.stop()
 
 
+def test_alert_events_go_out_to_a_kafka_topic_keyed_by_alert():
+    """A kafka sink produces each alert event (the webhook's JSON) keyed by its alert, once
+    acknowledged by the brokers; a broker outage delays the events and loses none."""
+    import json
+    with Cluster() as cluster:
+        srv = KafkaServer("""
+alerts:
+  sinks: [{name: stream, type: kafka, topic: %s, brokers: '%s', timeout_seconds: 5}]
+  initial_backoff_seconds: 0.2
+  max_backoff_seconds: 1
+policies:
+  - {name: stores, match: '*', period: week, alpha: 0.2, start: {mean_of_first: 4}, warmup: 4,
+     rules: [{name: shift, signal: cusum, limit: 3, resolve_after: 2}]}
+""" % (EVENTS, cluster.bootstrap))
+        try:
+            def rows(key, values, start=0):
+                return "".join("%s,%s,%r\n" % (key, week(start + t), v) for t, v in enumerate(values))
+            base = [100, 101, 99, 100, 102, 98, 100, 101, 99, 100, 100, 99]
+            status, body, _ = srv.post_csv("series,period,value\n" + rows("north/up", base + [150] * 4)
+                                           + rows("north/flat", base))
+            assert status == 200 and body["alerts_opened"] >= 1, body
+            delivered = lambda: metric_labeled(srv, "forewarden_deliveries_total", 'outcome="delivered",sink="stream"')
+            first = wait_for("the opening delivered", lambda: delivered() >= 1 and delivered())
+            # brokers down: the next events fail and wait; back up, they go out in order
+            for b in (1, 2, 3):
+                cluster.command("down %d" % b)
+            status, body, _ = srv.post_csv("series,period,value\n" + rows("north/up2", base + [150] * 4))
+            assert status == 200 and body["alerts_opened"] >= 1, body
+            wait_for("a failed attempt", lambda: metric_labeled(
+                srv, "forewarden_deliveries_total", 'outcome="failed",sink="stream"') >= 1)
+            for b in (1, 2, 3):
+                cluster.command("up %d" % b)
+            wait_for("the second opening delivered", lambda: delivered() > first)
+            events = [(k, json.loads(v)) for _, _, k, v in cluster.consume(EVENTS)]
+            kinds = [e["kind"] for _, e in events]
+            assert kinds.count("opened") >= 2, kinds
+            for key, e in events:
+                assert key == "alert-%d" % e["alert"]["id"], (key, e)
+                assert e["alert"]["series"] in ("north/up", "north/up2"), e
+                assert e["idempotency_key"].endswith("-%d" % e["event_id"]), e
+            opened = [e for _, e in events if e["kind"] == "opened"][0]
+            assert opened["alert"]["diagnosis"]["kind"] == "step-up", opened
+            # at least once: repeats share their event_id; nothing is missing
+            ids = sorted({e["event_id"] for _, e in events})
+            assert ids == list(range(ids[0], ids[-1] + 1)), ids
+        finally:
+            srv.stop()
+
+
+def metric_labeled(server, name, labels):
+    status, text, _ = server.request("GET", "/metrics")
+    m = re.search(r"^%s\{%s\} ([0-9.e+]+)$" % (re.escape(name), re.escape(labels)), text, re.M)
+    return float(m.group(1)) if m else 0.0
+
+
 def test_kafka_settings_that_cannot_work_are_refused_naming_the_key():
     work = temp_dir()
     cases = [
@@ -278,6 +343,12 @@ def test_kafka_settings_that_cannot_work_are_refused_naming_the_key():
         ("kafka: {brokers: 'h:1', topics: [a], batch_rows: 0}\n", "kafka.batch_rows"),
         ("kafka: {brokers: 'h:1', topics: [a], properties: {group.id: x}}\n", "kafka.properties.group.id"),
         ("kafka: {brokers: 'h:1', topics: [a], offsets: 3}\n", "kafka.offsets"),
+        ("alerts: {sinks: [{name: k, type: kafka}]}\nkafka: {brokers: 'h:1', topics: [a]}\n",
+         "alerts.sinks[0].topic"),
+        ("alerts: {sinks: [{name: k, type: kafka, topic: t}]}\n", "alerts.sinks[0].brokers"),
+        ("alerts: {sinks: [{name: k, type: kafka, topic: t, brokers: 'h:1', url: 'http://x'}]}\n",
+         "alerts.sinks[0].url"),
+        ("alerts: {sinks: [{name: k, type: webhook, url: 'http://x', topic: t}]}\n", "only kafka sinks"),
     ]
     for text, key in cases:
         path = os.path.join(work, "s.yaml")
@@ -299,4 +370,5 @@ if __name__ == "__main__":
     sys.exit(run([test_a_kafka_feed_applies_as_replay_does_and_bad_rows_go_to_the_dead_letter_topic,
                   test_kill9_mid_stream_resumes_from_the_offsets_stored_with_the_actuals,
                   test_a_broker_that_stops_answering_costs_nothing,
+                  test_alert_events_go_out_to_a_kafka_topic_keyed_by_alert,
                   test_kafka_settings_that_cannot_work_are_refused_naming_the_key]))
