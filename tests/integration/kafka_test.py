@@ -50,7 +50,7 @@ class Cluster:
         path = os.path.join(self.dir, "produce-%d.txt" % self.n)
         with open(path, "w") as f:
             for key, value in messages:
-                f.write("%s\t%s\n" % (key, value))
+                f.write("%s\t%s\n" % (key, value.replace("\\", "\\\\").replace("\n", "\\n")))
         return int(self.command("produce %s %s" % (TOPIC, path)).split()[1])
 
     def consume(self, topic):
@@ -58,8 +58,11 @@ class Cluster:
         self.n += 1
         path = os.path.join(self.dir, "consume-%d.txt" % self.n)
         self.command("consume %s %s" % (topic, path))
+        def unescape(v):
+            return re.sub(r"\\(.)", lambda m: "\n" if m.group(1) == "n" else m.group(1), v)
         with open(path) as f:
-            return [tuple(line.rstrip("\n").split("\t", 3)) for line in f]
+            return [tuple(line.rstrip("\n").split("\t", 3)[:3]) + (unescape(line.rstrip("\n").split("\t", 3)[3]),)
+                    for line in f]
 
     def __enter__(self):
         return self
@@ -89,7 +92,7 @@ class KafkaServer(Server):
         threading.Thread(target=lambda: self.log.extend(proc.stderr), daemon=True).start()
 
 
-def settings(bootstrap, batch_rows=200):
+def settings(bootstrap, batch_rows=200, format="csv"):
     return """
 alerts: {sinks: []}
 policies:
@@ -110,9 +113,10 @@ kafka:
   dead_letter_topic: %s
   batch_rows: %d
   batch_ms: 50
+  format: %s
   # a killed member leaves the group after 6 s instead of the default 45
   properties: {topic.metadata.refresh.interval.ms: 1000, session.timeout.ms: 6000, heartbeat.interval.ms: 500}
-""" % (bootstrap, TOPIC, DEAD, batch_rows)
+""" % (bootstrap, TOPIC, DEAD, batch_rows, format)
 
 
 def week(t):
@@ -277,6 +281,41 @@ def test_a_broker_that_stops_answering_costs_nothing():
             srv.stop()
 
 
+def test_ndjson_messages_with_labels_and_several_rows_apply_as_replay_does():
+    """format ndjson: objects with labels, several to a message (a series' weeks together);
+    a message with one bad object goes to the dead-letter topic whole, naming the object's line
+    in the message; the other messages are applied."""
+    import json
+    with Cluster() as cluster:
+        keys, messages, bad, good_csv = feed(series=20, weeks=24, seed=5)
+        by_key = {}
+        for key, value in messages:
+            if value in [v for _, v, _ in bad]:
+                continue
+            k, period, v = value.split(",")
+            by_key.setdefault(key, []).append(json.dumps(
+                {"series": k, "period": period, "value": float(v), "labels": {"channel": "store"}}))
+        out = []
+        for key, objects in by_key.items():  # four weeks to a message, in order
+            for i in range(0, len(objects), 4):
+                out.append((key, "\n".join(objects[i:i + 4])))
+        poisoned = (keys[0], json.dumps({"series": keys[0], "period": week(24), "value": 5}) + "\n" +
+                    json.dumps({"series": keys[0], "period": week(25), "value": "many"}))
+        out.append(poisoned)
+        cluster.produce(out)
+        srv = KafkaServer(settings(cluster.bootstrap, format="ndjson"))
+        try:
+            assert_consumed_once(srv, cluster, len(out), keys, good_csv)
+            status, got, _ = srv.request("GET", "/v1/series/" + keys[1].replace("/", "%2F"))
+            assert got["labels"] == {"channel": "store"}, got
+            letters = dead_letters(cluster)
+            assert len(letters) == 1 and letters[0]["message"] == poisoned[1], letters
+            problem = letters[0]["problems"][0]
+            assert problem["line"] == 2 and problem["field"] == "value", problem
+        finally:
+            srv.stop()
+
+
 def test_alert_events_go_out_to_a_kafka_topic_keyed_by_alert():
     """A kafka sink produces each alert event (the webhook's JSON) keyed by its alert, once
     acknowledged by the brokers; a broker outage delays the events and loses none."""
@@ -370,5 +409,6 @@ if __name__ == "__main__":
     sys.exit(run([test_a_kafka_feed_applies_as_replay_does_and_bad_rows_go_to_the_dead_letter_topic,
                   test_kill9_mid_stream_resumes_from_the_offsets_stored_with_the_actuals,
                   test_a_broker_that_stops_answering_costs_nothing,
+                  test_ndjson_messages_with_labels_and_several_rows_apply_as_replay_does,
                   test_alert_events_go_out_to_a_kafka_topic_keyed_by_alert,
                   test_kafka_settings_that_cannot_work_are_refused_naming_the_key]))

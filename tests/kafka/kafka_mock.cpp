@@ -4,10 +4,12 @@
 //   forewarden_kafka_mock --brokers 3 --topic actuals:12 --topic rejected:1
 //   prints "bootstrap 127.0.0.1:PORT,..." once the cluster is up, then answers each command
 //   with one line, "ok ..." or "error ...":
-//     produce TOPIC FILE   each line of FILE is KEY<TAB>VALUE; produced in order, keyed (so a
-//                          key always lands in one partition); "ok N" once acknowledged
+//     produce TOPIC FILE   each line of FILE is KEY<TAB>VALUE (in VALUE, \n stands for a line
+//                          break and \\ for a backslash); produced in order, keyed (so a key
+//                          always lands in one partition); "ok N" once acknowledged
 //     consume TOPIC FILE   every message of TOPIC, all partitions, from the beginning to the
-//                          end, written as PARTITION<TAB>OFFSET<TAB>KEY<TAB>VALUE; "ok N"
+//                          end, written as PARTITION<TAB>OFFSET<TAB>KEY<TAB>VALUE (escaped as
+//                          for produce); "ok N"
 //     down ID | up ID      broker ID (1..brokers) stops / starts answering
 //     quit                 (also end of input)
 #include <librdkafka/rdkafka.h>
@@ -57,7 +59,16 @@ long Produce(rd_kafka_t* producer, const std::string& topic, const std::string& 
   while (std::getline(in, line)) {
     const std::size_t tab = line.find('\t');
     const std::string key = tab == std::string::npos ? "" : line.substr(0, tab);
-    const std::string value = tab == std::string::npos ? line : line.substr(tab + 1);
+    const std::string escaped = tab == std::string::npos ? line : line.substr(tab + 1);
+    std::string value;
+    for (std::size_t i = 0; i < escaped.size(); ++i) {
+      if (escaped[i] == '\\' && i + 1 < escaped.size()) {
+        value += escaped[i + 1] == 'n' ? '\n' : escaped[i + 1];
+        ++i;
+      } else {
+        value += escaped[i];
+      }
+    }
     for (;;) {
       const rd_kafka_resp_err_t err = rd_kafka_producev(
           producer, RD_KAFKA_V_TOPIC(topic.c_str()), RD_KAFKA_V_KEY(key.data(), key.size()),
@@ -116,9 +127,13 @@ long Consume(const std::string& bootstrap, const std::string& topic, int partiti
       continue;
     }
     if (!m->err) {
+      std::string value;
+      for (const char c : std::string(static_cast<const char*>(m->payload), m->len))
+        value += c == '\n'   ? std::string("\\n")
+                 : c == '\\' ? std::string("\\\\")
+                             : std::string(1, c);
       out << m->partition << '\t' << m->offset << '\t'
-          << std::string(static_cast<const char*>(m->key), m->key_len) << '\t'
-          << std::string(static_cast<const char*>(m->payload), m->len) << '\n';
+          << std::string(static_cast<const char*>(m->key), m->key_len) << '\t' << value << '\n';
       at[m->partition] = m->offset + 1;
       ++n;
     }
