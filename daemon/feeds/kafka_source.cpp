@@ -158,7 +158,12 @@ struct KafkaSource::Impl {
   }
 
   void Run() {
+    Clock::time_point lag_at{};
     while (!stop.load()) {
+      if (Clock::now() - lag_at >= std::chrono::seconds(1)) {
+        counters.lag.store(Lag());
+        lag_at = Clock::now();
+      }
       rd_kafka_message_t* m = rd_kafka_consumer_poll(consumer.get(), 100);
       if (m) {
         Take(*m);
@@ -176,6 +181,27 @@ struct KafkaSource::Impl {
       }
     }
     Flush();
+  }
+
+  // The messages behind (KafkaCounters::lag), from librdkafka's cached watermarks: no request.
+  long Lag() {
+    rd_kafka_topic_partition_list_t* assigned = nullptr;
+    if (rd_kafka_assignment(consumer.get(), &assigned) != RD_KAFKA_RESP_ERR_NO_ERROR)
+      return counters.lag.load();
+    rd_kafka_position(consumer.get(), assigned);
+    long behind = static_cast<long>(pending.size());
+    for (int i = 0; i < assigned->cnt; ++i) {
+      const rd_kafka_topic_partition_t& p = assigned->elems[i];
+      std::int64_t low = 0, high = 0;
+      if (rd_kafka_get_watermark_offsets(consumer.get(), p.topic, p.partition, &low, &high) !=
+              RD_KAFKA_RESP_ERR_NO_ERROR ||
+          high < 0)
+        continue;
+      const std::int64_t at = p.offset >= 0 ? p.offset : low;
+      behind += static_cast<long>(std::max<std::int64_t>(0, high - at));
+    }
+    rd_kafka_topic_partition_list_destroy(assigned);
+    return behind;
   }
 
   // Drops what was gathered and not committed, and moves every assigned partition back to the

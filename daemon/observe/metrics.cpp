@@ -435,6 +435,12 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
     counter("forewarden_kafka_rebalances_total", "Partition assignments and revocations.",
             k->rebalances);
     BuildGauge()
+        .Name("forewarden_kafka_lag_messages")
+        .Help("Kafka messages on this instance's partitions not yet committed here.")
+        .Register(now)
+        .Add({})
+        .Set(static_cast<double>(k->lag.load()));
+    BuildGauge()
         .Name("forewarden_kafka_partitions")
         .Help("Kafka partitions assigned to this instance.")
         .Register(now)
