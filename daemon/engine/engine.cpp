@@ -174,7 +174,7 @@ Status Engine::OpenAlerts() {
   alerts_.SetDiagnoser([this](std::size_t index, std::size_t rule, std::int64_t period) {
     const Series& s = series_[index];
     if (!monitors::StepSignal(s.policy->spec.rules[rule].signal)) return std::string();
-    const Result<monitors::AlertDiagnosis> d = DiagnoseAlert(std::string(s.key), period);
+    const Result<monitors::AlertDiagnosis> d = DiagnoseSeries(index, period);
     if (!d || !d->diagnosis.ok) return std::string();
     return DiagnosisObject(*d, s.policy->period).dump();
   });
@@ -1013,10 +1013,15 @@ Result<monitors::AlertDiagnosis> Engine::DiagnoseAlert(const std::string& key,
                                                        std::int64_t opened) {
   const long pos = index_.Find(key);
   if (pos < 0) return Status::NotFound("no series '" + key + "'");
+  return DiagnoseSeries(static_cast<std::size_t>(pos), opened);
+}
+
+Result<monitors::AlertDiagnosis> Engine::DiagnoseSeries(std::size_t index, std::int64_t opened) {
   std::vector<HistoryRow> rows;
-  std::string error;
-  if (!History(key, INT64_MIN, INT64_MAX, rows, error)) return Status::StoreFailed(error);
-  const monitors::PolicySpec& spec = series_[static_cast<std::size_t>(pos)].policy->spec;
+  monitors::SeriesState ignored;
+  if (!Recompute(series_[index], &rows, ignored))
+    return Status::StoreFailed(failure().empty() ? "the history cannot be recomputed" : failure());
+  const monitors::PolicySpec& spec = series_[index].policy->spec;
   std::vector<monitors::PeriodOrdinal> period;
   std::vector<double> actual, forecast, mad;
   double previous_mad = spec.initial_mad;

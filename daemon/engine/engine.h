@@ -225,6 +225,8 @@ class Engine {
   void OnOutbox(std::function<void()> listener) { on_outbox_ = std::move(listener); }
 
  private:
+  // DiagnoseAlert of the series at engine index `index` (the alert book's diagnoser has it).
+  Result<monitors::AlertDiagnosis> DiagnoseSeries(std::size_t index, std::int64_t opened);
   struct Series {
     std::int64_t id = 0;
     std::string_view key;      // in keys_

@@ -283,13 +283,15 @@ struct KafkaSource::Impl {
     std::set<std::size_t> dead;  // messages refused
     for (std::size_t i = 0; i < pending.size(); ++i)
       if (!pending[i].problems.empty()) dead.insert(i);
-    std::vector<std::size_t> owner;  // batch row -> message
+    std::vector<std::size_t> owner;              // batch row -> message
+    std::vector<long> first(pending.size(), 0);  // message -> its first row in the batch
     for (;;) {
       std::vector<IngestRow> batch;
       owner.clear();
       for (std::size_t i = 0; i < pending.size(); ++i) {
         if (dead.count(i)) continue;
         const Message& m = pending[i];
+        first[i] = static_cast<long>(owner.size());
         for (long r = 0; r < m.rows; ++r) {
           IngestRow row = rows[static_cast<std::size_t>(m.first_row + r)];
           owner.push_back(i);
@@ -312,8 +314,7 @@ struct KafkaSource::Impl {
         const std::size_t i = owner[static_cast<std::size_t>(p.line - 1)];
         Message& m = pending[i];
         RowProblem q = p;
-        q.line = p.line - static_cast<long>(std::find(owner.begin(), owner.end(), i) -
-                                            owner.begin());  // the line within the message
+        q.line = p.line - first[i];  // the line within the message
         m.problems.push_back(std::move(q));
         dead.insert(i);
       }

@@ -48,7 +48,7 @@ class Cluster:
         """messages: [(key, value)] in order."""
         self.n += 1
         path = os.path.join(self.dir, "produce-%d.txt" % self.n)
-        with open(path, "w") as f:
+        with open(path, "w", encoding="utf-8", errors="surrogateescape") as f:
             for key, value in messages:
                 f.write("%s\t%s\n" % (key, value.replace("\\", "\\\\").replace("\n", "\\n")))
         return int(self.command("produce %s %s" % (TOPIC, path)).split()[1])
@@ -60,7 +60,7 @@ class Cluster:
         self.command("consume %s %s" % (topic, path))
         def unescape(v):
             return re.sub(r"\\(.)", lambda m: "\n" if m.group(1) == "n" else m.group(1), v)
-        with open(path) as f:
+        with open(path, encoding="utf-8", errors="surrogateescape") as f:
             return [tuple(line.rstrip("\n").split("\t", 3)[:3]) + (unescape(line.rstrip("\n").split("\t", 3)[3]),)
                     for line in f]
 
@@ -317,6 +317,48 @@ def test_ndjson_messages_with_labels_and_several_rows_apply_as_replay_does():
             srv.stop()
 
 
+def test_hostile_messages_go_to_the_dead_letter_topic_and_never_stall_a_partition():
+    """Messages no producer should send, each among good rows of its own partition key: every one
+    is refused into the dead-letter topic with a problem, the good rows around them are applied
+    as replay applies them, and the service answers throughout."""
+    with Cluster() as cluster:
+        keys, messages, bad, good_csv = feed(series=12, weeks=20, seed=9)
+        k = keys[0]
+        hostile = [
+            "",                                          # empty
+            "%s,%s" % (k, week(20)),                     # a field missing
+            "%s,%s,1,extra" % (k, week(20)),             # a field too many
+            "%s,2026-13-40,1" % k,                       # no such period
+            "%s,%s,abc" % (k, week(20)),                 # not a number
+            "%s,%s,1e400" % (k, week(20)),               # beyond a double
+            "%s,%s,nan" % (k, week(20)),                 # not finite
+            "%s,%s,-1e16" % (k, week(20)),               # beyond the largest actual
+            "\"%s,%s,1" % (k, week(20)),                 # an unterminated quote
+            "%s,%s,1" % ("x" * 5000, week(20)),          # a key beyond server.max_key_bytes
+            ",%s,1" % week(20),                          # an empty key
+            "%s,%s,5" % (k, week(3)),                    # a period before the series' last: a restatement of an old week, applied
+        ]
+        refused = hostile[:-1] + [v for _, v, _ in bad]  # feed() brings three bad rows of its own
+        cluster.produce(messages + [(k, v) for v in hostile])
+        srv = KafkaServer(settings(cluster.bootstrap))
+        try:
+            wait_for("every message consumed", lambda: metric(srv, "forewarden_kafka_messages_total") >= len(messages) + len(hostile))
+            wait_for("every offset committed", lambda: stored_offsets(srv.data) == end_offsets(cluster))
+            assert metric(srv, "forewarden_kafka_dead_letters_total") == len(refused)
+            letters = dead_letters(cluster)
+            assert sorted(d["message"] for d in letters) == sorted(refused), [d["message"][:40] for d in letters]
+            for d in letters:
+                assert d["problems"] and d["problems"][0]["message"], d
+            # the restatement of week 3 was applied like any restatement
+            lines = good_csv.split("\n")
+            restated = "\n".join(l if l.split(",")[:2] != [k, week(3)] else "%s,%s,5" % (k, week(3)) for l in lines)
+            assert_equals_replay(srv, keys[1:], good_csv)
+            assert_equals_replay(srv, [k], restated)
+            assert srv.request("GET", "/healthz")[0] == 200
+        finally:
+            srv.stop()
+
+
 def test_alert_events_go_out_to_a_kafka_topic_keyed_by_alert():
     """A kafka sink produces each alert event (the webhook's JSON) keyed by its alert, once
     acknowledged by the brokers; a broker outage delays the events and loses none."""
@@ -411,5 +453,6 @@ if __name__ == "__main__":
                   test_kill9_mid_stream_resumes_from_the_offsets_stored_with_the_actuals,
                   test_a_broker_that_stops_answering_costs_nothing,
                   test_ndjson_messages_with_labels_and_several_rows_apply_as_replay_does,
+                  test_hostile_messages_go_to_the_dead_letter_topic_and_never_stall_a_partition,
                   test_alert_events_go_out_to_a_kafka_topic_keyed_by_alert,
                   test_kafka_settings_that_cannot_work_are_refused_naming_the_key]))
