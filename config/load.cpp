@@ -31,8 +31,8 @@ using Reader = YamlReader;
 // test compares with these).
 const std::set<std::string> kTopKeys = {"policies", "server", "fallback_policy", "alerts", "kafka"};
 const std::set<std::string> kKafkaKeys = {
-    "brokers",           "topics",    "group", "format", "batch_rows", "batch_ms",
-    "dead_letter_topic", "properties"};
+    "brokers",           "topics",     "group",           "format",     "batch_rows", "batch_ms",
+    "dead_letter_topic", "properties", "changelog_topic", "partitioner"};
 // librdkafka properties forewarden sets itself: the consumed offsets live in the store.
 const std::set<std::string> kKafkaOwnProperties = {"bootstrap.servers",  "group.id",
                                                    "enable.auto.commit", "enable.auto.offset.store",
@@ -634,6 +634,32 @@ void ReadKafka(Reader& r, const YAML::Node& n, Kafka& k) {
     if (t == k.dead_letter_topic)
       r.Add(n["dead_letter_topic"], path + ".dead_letter_topic",
             "must not be one of the topics consumed");
+  if (n["changelog_topic"].IsDefined() &&
+      r.String(n["changelog_topic"], path + ".changelog_topic", k.changelog_topic) &&
+      !k.changelog_topic.empty()) {
+    if (!TopicName(k.changelog_topic))
+      r.Add(n["changelog_topic"], path + ".changelog_topic",
+            "a topic name is 1 to 249 letters, digits, '.', '_' or '-'");
+    else if (k.changelog_topic == k.dead_letter_topic ||
+             std::find(k.topics.begin(), k.topics.end(), k.changelog_topic) != k.topics.end())
+      r.Add(n["changelog_topic"], path + ".changelog_topic",
+            "must differ from the topics consumed and the dead-letter topic");
+    else if (k.topics.size() > 1)
+      r.Add(n["changelog_topic"], path + ".changelog_topic",
+            "instances share series through one source topic: list one topic under "
+            "kafka.topics (its partition numbers are the changelog's)");
+  }
+  if (n["partitioner"].IsDefined()) {
+    std::string f;
+    if (r.String(n["partitioner"], path + ".partitioner", f)) {
+      if (f == "murmur2")
+        k.partitioner = Kafka::Partitioner::kMurmur2;
+      else if (f == "crc32")
+        k.partitioner = Kafka::Partitioner::kCrc32;
+      else
+        r.Add(n["partitioner"], path + ".partitioner", "must be murmur2 or crc32, got '" + f + "'");
+    }
+  }
   r.Int(n, "batch_rows", path, k.batch_rows, 1, 200000);
   r.Int(n, "batch_ms", path, k.batch_ms, 1, 60000);
   const YAML::Node props = n["properties"];
@@ -860,6 +886,9 @@ LoadResult LoadSettingsText(const std::string& text, const std::string& name) {
   result.settings.alerts.sinks = {log_sink};
   if (root["alerts"].IsDefined()) ReadAlerts(r, root["alerts"], result.settings.alerts);
   if (root["kafka"].IsDefined()) ReadKafka(r, root["kafka"], result.settings.kafka);
+  if (!result.settings.kafka.changelog_topic.empty() && !result.settings.server.folder.empty())
+    r.Add(root["kafka"]["changelog_topic"], "kafka.changelog_topic",
+          "instances sharing series take actuals from Kafka only: remove server.folder");
   for (std::size_t i = 0; i < result.settings.alerts.sinks.size(); ++i) {
     Sink& k = result.settings.alerts.sinks[i];
     if (k.kind != Sink::Kind::kKafka || !k.brokers.empty()) continue;

@@ -130,6 +130,13 @@ struct Kafka {
   long batch_ms = 200;            // how long a batch may wait to fill
   // librdkafka properties passed through (security.protocol, sasl.*, ssl.*, ...)
   std::vector<std::pair<std::string, std::string>> properties;
+  // Several instances share the series (daemon/feeds/changelog.h): the compacted topic each
+  // partition's owner writes its series to ("" = one instance holds every series).
+  std::string changelog_topic;
+  // How producers place a series key in a partition (to find the instance holding a series
+  // never seen here): murmur2 (Java clients' default) or crc32 (librdkafka's "consistent").
+  enum class Partitioner { kMurmur2, kCrc32 };
+  Partitioner partitioner = Partitioner::kMurmur2;
 };
 
 struct Settings {

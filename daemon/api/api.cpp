@@ -6,6 +6,7 @@
 #include <cstring>
 #include <ctime>
 #include <iostream>
+#include <map>
 #include <nlohmann/json.hpp>
 #include <unordered_map>
 
@@ -392,6 +393,7 @@ const std::vector<Api::Route>& Api::Routes() {
       {"GET", "/", Need::kNothing, &Api::Page},
       {"GET", "/page/{id}", Need::kNothing, &Api::Page},
       {"GET", "/v1/access", Need::kNothing, &Api::AccessInfo},
+      {"GET", "/v1/instances", Need::kRead, &Api::Instances},
       {"POST", "/v1/actuals", Need::kOperator, &Api::Ingest},
       {"GET", "/v1/policies", Need::kRead, &Api::Policies},
       {"GET", "/v1/attention", Need::kRead, &Api::Attention},
@@ -557,6 +559,7 @@ void Api::Dispatch(const std::shared_ptr<Call>& call) {
     call->key = std::move(key);
     call->id_text = std::move(id);
     if (!Authorized(*call)) return;
+    if (sharing_ && Redirected(*call)) return;
     return (this->*r.handler)(call);
   }
   if (other_method) return call->Answer(Error(405, std::string("use ") + other_method));
@@ -595,9 +598,77 @@ void Api::Health(const std::shared_ptr<Call>& c) {
   c->Answer(Json(200, {{"alive", true}}));
 }
 
+bool Api::Redirected(Call& call) {
+  const std::string pattern = call.route->pattern;
+  std::int32_t part = -1;
+  std::string what;
+  if (pattern.rfind("/v1/series/{key}", 0) == 0) {
+    part = sharing_->partition_of(call.key);
+    what = "series '" + call.key + "'";
+  } else if (pattern.rfind("/v1/alerts/{id}", 0) == 0) {
+    // alert ids carry their partition (engine.h): (partition + 1) * 2^43 + ...
+    const std::int64_t id = std::strtoll(call.id_text.c_str(), nullptr, 10);
+    if (id >= (std::int64_t{1} << 43)) part = static_cast<std::int32_t>((id >> 43) - 1);
+    what = "alert " + call.id_text;
+  }
+  if (part < 0) return false;
+  const std::vector<std::int32_t> held = sharing_->held();
+  if (std::binary_search(held.begin(), held.end(), part)) return false;
+  const std::vector<std::string> owners = sharing_->owners();
+  const std::string owner =
+      part < static_cast<std::int32_t>(owners.size()) ? owners[static_cast<std::size_t>(part)] : "";
+  if (owner.empty() || owner == sharing_->self()) {
+    HttpResponse r = Json(503, {{"error", what + " belongs to partition " + std::to_string(part) +
+                                              ", which is moving between instances; retry "
+                                              "shortly"},
+                                {"partition", part}});
+    r.headers.emplace_back("Retry-After", "2");
+    call.Answer(std::move(r));
+    return true;
+  }
+  const std::string location = owner + call.request.target;
+  HttpResponse r = Json(307, {{"error", what + " is held by another instance"},
+                              {"partition", part},
+                              {"owner", owner},
+                              {"location", location}});
+  r.headers.emplace_back("Location", location);
+  call.Answer(std::move(r));
+  return true;
+}
+
+void Api::Instances(const std::shared_ptr<Call>& c) {
+  if (!sharing_)
+    return c->Answer(Json(200, {{"sharing", false}, {"self", PublicUrl(*settings())}}));
+  const std::vector<std::string> owners = sharing_->owners();
+  const std::vector<std::int32_t> held = sharing_->held();
+  json partitions = json::array();
+  std::map<std::string, std::vector<std::int32_t>> by_owner;
+  for (std::size_t p = 0; p < owners.size(); ++p) {
+    const bool here = std::binary_search(held.begin(), held.end(), static_cast<std::int32_t>(p));
+    const std::string owner = here ? sharing_->self() : owners[p];
+    partitions.push_back({{"partition", p}, {"owner", owner}, {"here", here}});
+    by_owner[owner].push_back(static_cast<std::int32_t>(p));
+  }
+  json instances = json::array();
+  for (const auto& [owner, parts] : by_owner)
+    instances.push_back(
+        {{"url", owner}, {"partitions", parts}, {"self", owner == sharing_->self()}});
+  const std::string not_ready = sharing_->not_ready();
+  c->Answer(Json(200, {{"sharing", true},
+                       {"self", sharing_->self()},
+                       {"ready", not_ready.empty()},
+                       {"reason", not_ready},
+                       {"held", held},
+                       {"partitions", partitions},
+                       {"instances", instances}}));
+}
+
 void Api::Ready(const std::shared_ptr<Call>& c) {
   const std::string failure = engine_.failure();
   if (!failure.empty()) return c->Answer(Json(503, {{"ready", false}, {"reason", failure}}));
+  if (sharing_)
+    if (const std::string why = sharing_->not_ready(); !why.empty())
+      return c->Answer(Json(503, {{"ready", false}, {"reason", why}}));
   c->Answer(Json(200, {{"ready", true}}));
 }
 
@@ -1186,6 +1257,10 @@ void Api::Page(const std::shared_ptr<Call>& c) {
 }
 
 void Api::Ingest(const std::shared_ptr<Call>& c) {
+  if (sharing_)
+    return c->Answer(Error(409,
+                           "this instance shares its series with others through Kafka "
+                           "(kafka.changelog_topic): send actuals to the source topic"));
   const HttpRequest& request = c->request;
   const auto s = settings();
   const std::string type = request.content_type.substr(0, request.content_type.find(';'));

@@ -24,6 +24,7 @@
 // function, HttpStatusOf, and nowhere else.
 #pragma once
 
+#include <functional>
 #include <memory>
 #include <mutex>
 #include <string>
@@ -49,6 +50,19 @@ class Api {
   // Thread-safe: settings and tokens after a reload.
   void Update(std::shared_ptr<const config::Settings> settings, Access access);
   const ApiCounters& counters() const { return counters_; }
+
+  // Instances sharing series through Kafka (daemon/feeds/changelog.h): a request for a series
+  // or an alert of a partition another instance holds is redirected there (307, same path and
+  // query); readiness reports restoring partitions; GET /v1/instances shows who holds what.
+  // Set before the server starts.
+  struct Sharing {
+    std::function<std::string()> self;                                 // this instance's URL
+    std::function<std::string()> not_ready;                            // "" when ready
+    std::function<std::int32_t(const std::string& key)> partition_of;  // -1: not known yet
+    std::function<std::vector<std::string>()> owners;                  // URL by partition
+    std::function<std::vector<std::int32_t>()> held;                   // partitions held here
+  };
+  void Share(Sharing sharing) { sharing_ = std::make_unique<Sharing>(std::move(sharing)); }
 
   struct Call;  // one request on its way through a handler (api.cpp)
   struct Route;
@@ -89,6 +103,9 @@ class Api {
   void Attention(const std::shared_ptr<Call>& c);
   void AccessInfo(const std::shared_ptr<Call>& c);
   void Page(const std::shared_ptr<Call>& c);
+  void Instances(const std::shared_ptr<Call>& c);
+  // Sharing: answers a request for another instance's partition (true) or lets it through.
+  bool Redirected(Call& call);
 
   static const std::vector<Route>& Routes();
 
@@ -98,6 +115,7 @@ class Api {
   std::shared_ptr<const config::Settings> settings_;
   std::shared_ptr<const Access> access_;  // replaced whole on reload
   ApiCounters counters_;
+  std::unique_ptr<Sharing> sharing_;
   ExportPool exports_;  // after what export jobs use: destroyed before it
   ReadWorker reader_;   // last: destroyed first, while what its jobs use still exists
 };

@@ -1,6 +1,7 @@
 // The rows of a batch of actuals as parsed, before the engine matches them to policies.
 #pragma once
 
+#include <cstdint>
 #include <string>
 #include <utility>
 #include <vector>
@@ -16,6 +17,7 @@ struct IngestRow {
   std::string period;
   double value = 0.0;
   Labels labels;
+  std::int32_t partition = -1;  // the Kafka partition it came from (-1: not from Kafka)
 };
 
 // A problem with one row: the line, the field and what is wrong.

@@ -25,6 +25,7 @@
 #include "daemon/notify/delivery.h"
 #include "daemon/observe/metrics.h"
 #include "daemon/observe/systemd_notify.h"
+#include "daemon/store/alert_reads.h"
 
 namespace forewarden {
 
@@ -118,6 +119,21 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   engine.OnCommit([&metrics](double seconds) { metrics.ObserveCommit(seconds); });
   // Settings that cannot work exit 2, failures of the machine or the store exit 1.
   auto exit_code = [](const Status& s) { return s.kind() == ErrorKind::kInvalid ? 2 : 1; };
+  const IngestLimits limits{srv.max_rows_per_batch, static_cast<std::size_t>(srv.max_key_bytes),
+                            static_cast<std::size_t>(srv.max_labels),
+                            static_cast<std::size_t>(srv.max_label_bytes)};
+  std::unique_ptr<KafkaSource> kafka;
+  if (!settings->kafka.brokers.empty()) {
+    kafka = std::make_unique<KafkaSource>(
+        engine, settings->kafka, limits,
+        [&err](const std::string& line, const char* level) { Log(err, line, level); });
+    // Sharing series: the changelog exists before the engine's first commit can publish.
+    if (!settings->kafka.changelog_topic.empty())
+      if (Status shared = kafka->Share(PublicUrl(*settings)); !shared) {
+        err << "forewarden serve: " << shared.message() << '\n';
+        return exit_code(shared);
+      }
+  }
   if (Status started = engine.Start(); !started) {
     err << "forewarden serve: " << started.message() << '\n';
     return exit_code(started);
@@ -129,6 +145,13 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
     return exit_code(started);
   }
   Api api(engine, settings, std::move(*access), &metrics);
+  if (kafka && !settings->kafka.changelog_topic.empty()) {
+    KafkaSource* source = kafka.get();
+    api.Share(Api::Sharing{
+        [source] { return source->Owner(); }, [source] { return source->NotReady(); },
+        [source](const std::string& key) { return source->PartitionOf(key); },
+        [source] { return source->Owners(); }, [source] { return source->Assigned(); }});
+  }
   HttpOptions http;
   http.host = host;
   http.port = port;
@@ -166,14 +189,12 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
       return 1;
     }
   }
-  std::unique_ptr<KafkaSource> kafka;
-  if (!settings->kafka.brokers.empty()) {
-    kafka = std::make_unique<KafkaSource>(
-        engine, settings->kafka,
-        IngestLimits{srv.max_rows_per_batch, static_cast<std::size_t>(srv.max_key_bytes),
-                     static_cast<std::size_t>(srv.max_labels),
-                     static_cast<std::size_t>(srv.max_label_bytes)},
-        [&err](const std::string& line, const char* level) { Log(err, line, level); });
+  if (kafka) {
+    // Other instances reach this one at alerts.public_url, else at the port bound just now.
+    if (settings->alerts.public_url.empty())
+      kafka->SetOwner(std::string(srv.tls_cert_file.empty() ? "http://" : "https://") +
+                      (host.find(':') != std::string::npos ? "[" + host + "]" : host) + ":" +
+                      std::to_string(server.port()));
     if (Status started = kafka->Start(); !started) {
       err << "forewarden serve: " << started.message() << '\n';
       kafka.reset();

@@ -7,6 +7,7 @@
 #include <cmath>
 
 #include "daemon/store/alert_reads.h"
+#include "daemon/store/state_codec.h"
 #include "monitors/interval.h"
 
 namespace forewarden {
@@ -83,6 +84,37 @@ Status Engine::Start() {
                                   srv.max_database_bytes, srv.cache_bytes);
       !opened)
     return opened;
+  if (Status opened = handover_.Open(store_.db()); !opened) return opened;
+  if (Status loaded = LoadAll(); !loaded) return loaded;
+  last_flush_ms_ = last_housekeeping_ms_ = clock_();
+  thread_ = std::thread([this] { Run(); });
+  return Status::Ok();
+}
+
+Status Engine::Reseat() {
+  alerts_.TakeChanged();                 // engine indexes of the memory being replaced
+  keys_ = std::make_shared<KeyArena>();  // read views still using the old keys keep it
+  label_sets_.clear();
+  label_ids_.clear();
+  series_ = ChunkedVector<Series>();
+  index_ = SeriesIndex<KeyOf>{KeyOf{&series_}};
+  dirty_.clear();
+  dirty_count_ = 0;
+  touched_.clear();
+  alerting_.clear();
+  in_alerting_.clear();
+  read_rows_.clear();
+  read_changed_.clear();
+  in_read_changed_.clear();
+  read_all_ = true;
+  read_identity_.reset();
+  read_label_sets_ = 0;
+  next_ordinal_.clear();
+  positions_.clear();
+  return LoadAll();
+}
+
+Status Engine::LoadAll() {
   std::string problem;
   std::vector<std::size_t> stale_states;
   Result<std::int64_t> count = store_.CountSeries();
@@ -106,7 +138,10 @@ Status Engine::Start() {
     }
     Series s;
     s.id = row.id;
-    s.key = keys_.Add(row.key);
+    s.key = keys_->Add(row.key);
+    s.part = row.place.part;
+    s.ordinal = row.place.ordinal;
+    s.episodes = row.place.episodes;
     s.labels = InternLabels(row.labels);
     s.policy = policy;
     s.state = std::move(row.state);
@@ -146,9 +181,18 @@ Status Engine::Start() {
   }
   if (Status opened = OpenAlerts(); !opened) return opened;
   dirty_.assign(series_.size(), 0);
-  last_flush_ms_ = last_housekeeping_ms_ = clock_();
   for (std::size_t i = 0; i < series_.size(); ++i) NoteAlerting(i);
-  thread_ = std::thread([this] { Run(); });
+  if (sharing()) {
+    std::vector<SourceOffset> offsets;
+    if (Status read = store_.Offsets(offsets); !read) return read;
+    for (const SourceOffset& o : offsets) positions_[o.partition] = o;
+    for (std::size_t i = 0; i < series_.size(); ++i)
+      if (series_[i].part >= 0 && !next_ordinal_.count(series_[i].part)) {
+        Result<std::int32_t> next = store_.NextOrdinal(series_[i].part);
+        if (!next) return next.status();
+        next_ordinal_[series_[i].part] = *next;
+      }
+  }
   return Status::Ok();
 }
 
@@ -169,6 +213,14 @@ Status Engine::OpenAlerts() {
   if (Status opened = alerts_.Open(store_.db(), index_of); !opened)
     return opened.Prefix("store: alerts: ");
   alerts_.Configure(*settings_);
+  if (sharing()) {
+    Result<std::string> id = store_.InstallId();
+    if (!id) return id.status();
+    install_id_ = *id;
+    alerts_.ShareIds([this](std::size_t index) { return NextAlertId(index); },
+                     static_cast<std::int64_t>(1 + std::hash<std::string>{}(install_id_) % 0xFFFFE)
+                         << 32);
+  }
   // A single alert carries its diagnosis from the moment it opens (notifications read it from
   // the alert row: the delivery worker never asks the engine).
   alerts_.SetDiagnoser([this](std::size_t index, std::size_t rule, std::int64_t period) {
@@ -249,6 +301,7 @@ Status Engine::AlertAction(const std::function<Status(AlertBook&, std::int64_t n
     return Fail(committed);
   }
   alerts_.Forget();
+  if (sharing()) PublishChanges({}, {});
   if (on_outbox_) on_outbox_();
   return Status::Ok();
 }
@@ -312,6 +365,7 @@ void Engine::Housekeeping() {
   }
   alerts_.Forget();
   Committed(counts);
+  if (sharing()) PublishChanges({}, {});
 }
 
 void Engine::Stop() {
@@ -541,6 +595,19 @@ void Engine::Run() {
         }
       }
       Committed(committed);
+      if (sharing()) {
+        std::vector<std::size_t> changed;
+        std::vector<std::int32_t> moved;
+        for (const Pending& p : pending) {
+          if (p.reply.status != IngestReply::Status::kOk) continue;
+          changed.insert(changed.end(), p.touched.begin(), p.touched.end());
+          for (const SourceOffset& o : p.job.offsets) {
+            positions_[o.partition] = o;
+            moved.push_back(o.partition);
+          }
+        }
+        PublishChanges(std::move(changed), moved);
+      }
     }
     for (Pending& p : pending) p.job.done(std::move(p.reply));
     Housekeeping();
@@ -553,9 +620,11 @@ void Engine::Rewind(Pending& p) {
     Series& s = series_[it->index];
     s.state = std::move(it->state);
     s.retained = it->retained;
+    s.episodes = it->episodes;
     NoteChanged(it->index);
   }
   while (series_.size() > p.series_before) {
+    if (series_.back().part >= 0) next_ordinal_[series_.back().part] = series_.back().ordinal;
     index_.Erase(series_.back().key);
     series_.pop_back();
   }
@@ -627,6 +696,7 @@ void Engine::ApplyBatch(Pending& p) {
       Fail(ok.message());
       return;
     }
+    if (sharing()) p.touched = touched_list;
     p.reply.counts.alerts_opened = counts.opened;
     p.reply.counts.alerts_resolved = counts.resolved;
     p.alert_counts = counts;  // counted once the group commits
@@ -674,13 +744,28 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
                                    ") series already");
     }
     Series s;
-    s.key = keys_.Add(row.series);
+    if (sharing()) {
+      if (row.partition < 0 || row.partition > kMaxSharedPartition)
+        return problem("series",
+                       "this instance shares series through Kafka: actuals come from "
+                       "its source topic (partitions 0-" +
+                           std::to_string(kMaxSharedPartition) + ")");
+      const std::int32_t ordinal = next_ordinal_[row.partition];
+      if (ordinal >= kMaxSharedOrdinal)
+        return problem("series", "partition " + std::to_string(row.partition) + " holds " +
+                                     std::to_string(kMaxSharedOrdinal) +
+                                     " series already; use more partitions");
+      s.part = row.partition;
+      s.ordinal = ordinal;
+      next_ordinal_[row.partition] = ordinal + 1;
+    }
+    s.key = keys_->Add(row.series);
     const std::string labels = LabelsJson(row.labels);
     s.labels = InternLabels(labels);
     s.policy = policy;
     s.state = monitors::NewSeriesState(policy->spec);
-    Result<std::int64_t> id =
-        store_.InsertSeries(std::string(s.key), policy->name, labels, s.state);
+    Result<std::int64_t> id = store_.InsertSeries(std::string(s.key), policy->name, labels, s.state,
+                                                  SeriesPlace{s.part, s.ordinal, 0});
     if (!id) return store_error(id.status());
     s.id = *id;
     index = series_.size();
@@ -692,9 +777,14 @@ bool Engine::ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touch
     ++p.reply.counts.new_series;
   } else {
     index = static_cast<std::size_t>(found_at);
+    if (sharing() && row.partition != series_[index].part)
+      return problem("series", "series '" + row.series + "' is held for partition " +
+                                   std::to_string(series_[index].part) + " but arrived on " +
+                                   std::to_string(row.partition) +
+                                   "; producers must key messages by series key");
     if (index < touched.size() && !touched[index]) {
       const Series& s = series_[index];
-      p.undo.push_back({index, s.state, s.retained});
+      p.undo.push_back({index, s.state, s.retained, s.episodes});
       touched[index] = 1;
       touched_list.push_back(index);
     }
@@ -968,6 +1058,7 @@ std::shared_ptr<const ReadView> Engine::ReadSnapshot() {
       identity->labels.push_back(series_[i].labels);
     }
     identity->label_sets = label_sets_;
+    identity->arena = keys_;
     read_label_sets_ = label_sets_.size();
     read_identity_ = std::move(identity);
     changed = true;
@@ -1103,6 +1194,7 @@ Result<double> Engine::Reset(const std::string& key, const std::string& how, dou
   s.state = std::move(next);
   NoteChanged(static_cast<std::size_t>(pos));
   Committed(counts);
+  if (sharing()) PublishChanges({static_cast<std::size_t>(pos)}, {});
   return new_level;
 }
 
@@ -1195,6 +1287,112 @@ void AddSeriesHealth(const ReadView& view, EngineSnapshot& out) {
 std::int64_t Engine::LastArrival(const std::string& policy) const {
   auto it = last_arrival_.find(policy);
   return it == last_arrival_.end() ? 0 : it->second;
+}
+
+}  // namespace forewarden
+
+namespace forewarden {
+
+std::int64_t Engine::NextAlertId(std::size_t index) {
+  Series& s = series_[index];
+  if (s.part < 0 || s.episodes >= (1 << 16)) return 0;  // the store chooses (not shared)
+  const std::int64_t id = ((static_cast<std::int64_t>(s.part) + 1) << 43) |
+                          (static_cast<std::int64_t>(s.ordinal) << 16) | s.episodes;
+  ++s.episodes;
+  // in the alert's transaction: rolled back with it (a batch's undo restores the count)
+  if (Status kept = store_.SetEpisodes(s.id, s.episodes); !kept) Fail(kept.message());
+  return id;
+}
+
+void Engine::PublishChanges(std::vector<std::size_t> changed,
+                            const std::vector<std::int32_t>& moved) {
+  const std::vector<std::size_t> alerted = alerts_.TakeChanged();
+  changed.insert(changed.end(), alerted.begin(), alerted.end());
+  std::sort(changed.begin(), changed.end());
+  changed.erase(std::unique(changed.begin(), changed.end()), changed.end());
+  std::vector<ChangeRecord> out;
+  out.reserve(changed.size() + moved.size());
+  std::vector<std::int32_t> parts(moved);
+  for (std::size_t i : changed) {
+    if (i >= series_.size()) continue;
+    const Series& s = series_[i];
+    if (s.part < 0) continue;
+    auto pos = positions_.find(s.part);
+    SeriesHead head{s.key,
+                    s.policy->name,
+                    label_sets_[s.labels],
+                    SeriesPlace{s.part, s.ordinal, s.episodes},
+                    EncodeState(s.state),
+                    pos == positions_.end() ? 0 : pos->second.next};
+    std::string record;
+    if (Status exported = handover_.Export(s.id, head, record); !exported) {
+      // committed here but not in the changelog: the next owner would miss it
+      Fail(exported.message());
+      return;
+    }
+    out.push_back({s.part, std::string(s.key), std::move(record), head.through});
+    parts.push_back(s.part);
+  }
+  std::sort(parts.begin(), parts.end());
+  parts.erase(std::unique(parts.begin(), parts.end()), parts.end());
+  for (std::int32_t part : parts) {  // after the series records: a position closes them
+    auto pos = positions_.find(part);
+    auto next = next_ordinal_.find(part);
+    const std::string position =
+        Handover::Position(pos == positions_.end() ? SourceOffset{"", part, 0} : pos->second,
+                           next == next_ordinal_.end() ? 0 : next->second, install_id_);
+    out.push_back({part, kPositionKey, position});
+  }
+  if (!out.empty()) publish_(std::move(out));
+}
+
+std::vector<std::int32_t> Engine::HeldPartitions() const {
+  std::vector<std::int32_t> out;
+  for (const auto& [part, position] : positions_) out.push_back(part);
+  for (const auto& [part, next] : next_ordinal_)
+    if (!positions_.count(part)) out.push_back(part);
+  std::sort(out.begin(), out.end());
+  return out;
+}
+
+Status Engine::Adopt(const std::string& topic, std::int32_t part,
+                     const std::vector<std::string>& records, const std::string& position) {
+  if (std::string sticky = failure(); !sticky.empty()) return Status::StoreFailed(sticky);
+  // lazily written states first: the reload below reads every series from the store
+  if (dirty_count_) {
+    if (Status flushed = FlushAll(); !flushed) return Fail(flushed);
+    ClearDirty();
+  }
+  if (Status begun = store_.Begin(); !begun) return Fail(begun);
+  Status done = handover_.Adopt(topic, part, records, position, alerts_.sinks(), clock_());
+  if (done) done = store_.Commit();
+  if (!done) {
+    store_.Rollback();
+    if (done.kind() == ErrorKind::kStoreFailed) return Fail(done);
+    return done;
+  }
+  if (Status seated = Reseat(); !seated) return Fail(seated);
+  if (on_outbox_) on_outbox_();  // carried notifications
+  return Status::Ok();
+}
+
+Status Engine::Release(const std::vector<std::int32_t>& parts) {
+  if (std::string sticky = failure(); !sticky.empty()) return Status::StoreFailed(sticky);
+  if (parts.empty()) return Status::Ok();
+  if (dirty_count_) {
+    if (Status flushed = FlushAll(); !flushed) return Fail(flushed);
+    ClearDirty();
+  }
+  if (Status begun = store_.Begin(); !begun) return Fail(begun);
+  Status done = Status::Ok();
+  for (std::size_t i = 0; done && i < parts.size(); ++i) done = handover_.DropPartition(parts[i]);
+  if (done) done = store_.Commit();
+  if (!done) {
+    store_.Rollback();
+    return Fail(done);
+  }
+  if (Status seated = Reseat(); !seated) return Fail(seated);
+  return Status::Ok();
 }
 
 }  // namespace forewarden

@@ -35,6 +35,7 @@
 #include "daemon/engine/read_view.h"
 #include "daemon/engine/series_index.h"
 #include "daemon/store/alert_book.h"
+#include "daemon/store/handover.h"
 #include "daemon/store/store.h"
 #include "monitors/diagnosis.h"
 
@@ -143,6 +144,21 @@ struct EngineCounters {
 struct ReadView;
 void AddSeriesHealth(const ReadView& view, EngineSnapshot& out);
 
+// One record for the changelog of instances sharing series (daemon/feeds/changelog.h).
+struct ChangeRecord {
+  std::int32_t partition = 0;
+  std::string key;           // a series key, or kPositionKey
+  std::string value;         // JSON text
+  std::int64_t through = 0;  // series records: the partition's next offset at the commit
+};
+// Sharing series: partitions 0-1022, 2^27 series a partition, 65,536 alert episodes a series;
+// alert id = (partition + 1) * 2^43 + number * 2^16 + episode, below 2^53 (exact in JSON).
+inline constexpr std::int32_t kMaxSharedPartition = 1022;
+inline constexpr std::int32_t kMaxSharedOrdinal = 1 << 27;
+// The key of a partition's position record: never a series key (keys hold no control
+// characters).
+inline const std::string kPositionKey = std::string("\x01position", 9);
+
 class Engine {
  public:
   using Clock = std::function<std::int64_t()>;  // milliseconds since the Unix epoch
@@ -224,6 +240,27 @@ class Engine {
   // Before Start: called (on the engine thread) after each commit that queued notifications.
   void OnOutbox(std::function<void()> listener) { on_outbox_ = std::move(listener); }
 
+  // ---- Sharing series with other instances through Kafka (daemon/feeds/changelog.h) ----
+  // Before Start: series are held per source partition; after every commit `publish` gets, on
+  // the engine thread and in commit order, a record of each series changed and a position
+  // record of each partition whose offsets moved; alert ids are made from the partition, the
+  // series' number in it and its episode count; storm groups get ids from a range of this
+  // store's own (by its installation id).
+  using Publish = std::function<void(std::vector<ChangeRecord>&&)>;
+  void ShareSeries(Publish publish) { publish_ = std::move(publish); }
+  bool sharing() const { return static_cast<bool>(publish_); }
+  // Engine thread: takes partition `part` of `topic` over from its changelog records (series
+  // records by key and its position record, which may be absent for a partition never
+  // written): the series of `part` held here are replaced by them, the partition's offset and
+  // next series number set, and the in-memory state rebuilt. Invalid naming the series for a
+  // record that does not read (nothing is changed); store failed otherwise.
+  Status Adopt(const std::string& topic, std::int32_t part, const std::vector<std::string>& records,
+               const std::string& position);
+  // Engine thread: lets partitions go: their series leave the store and memory.
+  Status Release(const std::vector<std::int32_t>& parts);
+  // Engine thread: the partitions whose series are held here.
+  std::vector<std::int32_t> HeldPartitions() const;
+
  private:
   // DiagnoseAlert of the series at engine index `index` (the alert book's diagnoser has it).
   Result<monitors::AlertDiagnosis> DiagnoseSeries(std::size_t index, std::int64_t opened);
@@ -233,6 +270,7 @@ class Engine {
     std::uint32_t labels = 0;  // index into label_sets_ (series share identical label sets)
     std::int32_t retained = 0;
     const config::Policy* policy = nullptr;
+    std::int32_t part = -1, ordinal = 0, episodes = 0;  // SeriesPlace
     monitors::SeriesState state;
   };
   struct BiasSum {
@@ -250,6 +288,7 @@ class Engine {
     std::size_t index;
     monitors::SeriesState state;
     std::int32_t retained;
+    std::int32_t episodes;
   };
   struct Job {
     std::vector<IngestRow> rows;
@@ -269,9 +308,20 @@ class Engine {
     std::size_t alert_mark = 0;
     AlertCounts alert_counts;  // what the batch recorded, counted after the commit
     std::vector<std::pair<const config::Policy*, BiasSum>> bias;  // a few policies
+    std::vector<std::size_t> touched;  // series the batch changed (kept when sharing series)
   };
 
   void Run();
+  // Loads every stored series into memory, replaying actuals newer than a lazily written state,
+  // and opens the alert book.
+  Status LoadAll();
+  // Empties memory and loads it again (after partitions were adopted or released).
+  Status Reseat();
+  // Sharing: the id of the next alert episode of series `index` (0: let the store choose).
+  std::int64_t NextAlertId(std::size_t index);
+  // Sharing: the changelog records of the series in `changed` and the positions of the
+  // partitions in `moved`, handed to publish_.
+  void PublishChanges(std::vector<std::size_t> changed, const std::vector<std::int32_t>& moved);
   void ApplyBatch(Pending& p);
   bool ApplyRow(const IngestRow& row, Pending& p, std::vector<char>& touched,
                 std::vector<std::size_t>& touched_list, bool& store_failed);
@@ -318,7 +368,7 @@ class Engine {
     std::string_view operator()(std::size_t i) const { return (*series)[i].key; }
   };
   std::uint32_t InternLabels(const std::string& json);
-  KeyArena keys_;
+  std::shared_ptr<KeyArena> keys_ = std::make_shared<KeyArena>();
   std::vector<std::string> label_sets_;
   std::unordered_map<std::string, std::uint32_t> label_ids_;
   ChunkedVector<Series> series_;
@@ -344,10 +394,15 @@ class Engine {
   std::int64_t last_flush_ms_ = 0;
   long recovered_ = 0;
   AlertBook alerts_;
+  Handover handover_;
   std::int64_t last_housekeeping_ms_ = 0;
   std::function<void()> on_outbox_;
   EngineCounters counters_;
   std::function<void(double)> on_commit_;
+  Publish publish_;
+  std::string install_id_;  // the store's (sharing: written in position records)
+  std::unordered_map<std::int32_t, std::int32_t> next_ordinal_;  // by partition (sharing)
+  std::unordered_map<std::int32_t, SourceOffset> positions_;     // by partition (sharing)
   // Portfolio bias per policy: errors and actuals of its newest period (batches add theirs
   // after the commit).
   std::unordered_map<const config::Policy*, BiasSum> bias_;

@@ -42,6 +42,7 @@ struct ReadIdentity {
   std::vector<std::string_view> keys;   // into the engine's key arena, which never moves
   std::vector<std::uint32_t> labels;    // index into label_sets
   std::vector<std::string> label_sets;  // JSON object text
+  std::shared_ptr<const void> arena;    // keeps the key arena alive (it is replaced on reseat)
 };
 
 struct ReadView {

@@ -4,15 +4,20 @@
 
 #include <algorithm>
 #include <chrono>
+#include <cstdlib>
+#include <cstring>
 #include <future>
 #include <map>
+#include <mutex>
 #include <nlohmann/json.hpp>
 #include <optional>
 #include <set>
+#include <sstream>
 #include <utility>
 #include <vector>
 
 #include "daemon/common/log.h"
+#include "daemon/feeds/changelog.h"
 
 namespace forewarden {
 namespace {
@@ -52,6 +57,230 @@ struct KafkaSource::Impl {
   bool started = false;
 
   long undelivered = 0;  // dead letters the brokers did not take (producer callbacks, this thread)
+
+  // ---- sharing series (kafka.changelog_topic) ----
+  std::unique_ptr<Changelog> changelog;
+  std::string owner_url;
+  mutable std::mutex share_mu;           // guards the four below (read by HTTP threads)
+  std::vector<std::string> owners;       // by partition, from the group's commits
+  std::vector<std::int32_t> held_parts;  // assigned here
+  std::string not_ready;                 // "" when answering for `assigned`
+  std::int32_t partition_count = -1;
+  // eager rebalancing revokes every partition before assigning again: partitions revoked,
+  // with their changelog's end offset then; one given back with that end unchanged has
+  // nothing newer in the changelog than what is held here
+  std::map<std::int32_t, std::int64_t> kept;
+  bool sharing() const { return static_cast<bool>(changelog); }
+
+  std::string Owner() const {
+    std::lock_guard lock(share_mu);
+    return owner_url;
+  }
+
+  void SetNotReady(std::string why) {
+    std::lock_guard lock(share_mu);
+    not_ready = std::move(why);
+  }
+
+  // Runs `job` on the engine thread and waits for it; nullopt when stopping first.
+  template <class T>
+  std::optional<T> OnEngine(std::function<T()> job) {
+    for (auto backoff = std::chrono::milliseconds(10);;
+         backoff = std::min(backoff * 2, std::chrono::milliseconds(2000))) {
+      auto promise = std::make_shared<std::promise<T>>();
+      auto future = promise->get_future();
+      if (engine.Post([job, promise] { promise->set_value(job()); })) return future.get();
+      if (stop.load()) return std::nullopt;
+      std::this_thread::sleep_for(backoff);
+    }
+  }
+
+  // The source topic's partition count (metadata request).
+  void LearnPartitionCount() {
+    rd_kafka_topic_t* rkt = rd_kafka_topic_new(consumer.get(), settings.topics[0].c_str(), nullptr);
+    const rd_kafka_metadata_t* md = nullptr;
+    if (rkt && rd_kafka_metadata(consumer.get(), 0, rkt, &md, 5000) == RD_KAFKA_RESP_ERR_NO_ERROR) {
+      if (md->topic_cnt == 1 && md->topics[0].err == RD_KAFKA_RESP_ERR_NO_ERROR) {
+        std::lock_guard lock(share_mu);
+        partition_count = md->topics[0].partition_cnt;
+        owners.resize(static_cast<std::size_t>(partition_count));
+      }
+      rd_kafka_metadata_destroy(md);
+    }
+    if (rkt) rd_kafka_topic_destroy(rkt);
+  }
+
+  // Who owns each partition: the metadata of the group's committed offsets (each owner commits
+  // its URL with them: Announce and Fence).
+  void RefreshOwners() {
+    std::int32_t n;
+    {
+      std::lock_guard lock(share_mu);
+      n = partition_count;
+    }
+    if (n <= 0) return LearnPartitionCount();
+    rd_kafka_topic_partition_list_t* list = rd_kafka_topic_partition_list_new(n);
+    for (std::int32_t p = 0; p < n; ++p)
+      rd_kafka_topic_partition_list_add(list, settings.topics[0].c_str(), p);
+    std::vector<SourceOffset> claim;  // held here but named otherwise: announced again
+    if (rd_kafka_committed(consumer.get(), list, 2000) == RD_KAFKA_RESP_ERR_NO_ERROR) {
+      std::vector<std::string> now(static_cast<std::size_t>(n));
+      for (int i = 0; i < list->cnt; ++i) {
+        const rd_kafka_topic_partition_t& e = list->elems[i];
+        if (e.metadata && e.partition >= 0 && e.partition < n)
+          now[static_cast<std::size_t>(e.partition)] =
+              std::string(static_cast<const char*>(e.metadata), e.metadata_size);
+      }
+      const std::string self = Owner();
+      std::lock_guard lock(share_mu);
+      for (std::int32_t p : held_parts)
+        if (p >= 0 && p < n && now[static_cast<std::size_t>(p)] != self) {
+          const rd_kafka_topic_partition_t* e =
+              rd_kafka_topic_partition_list_find(list, settings.topics[0].c_str(), p);
+          claim.push_back({settings.topics[0], p, e && e->offset >= 0 ? e->offset : 0});
+        }
+      owners = std::move(now);
+    }
+    rd_kafka_topic_partition_list_destroy(list);
+    // an announcement lost in a rebalance (the group refused it) is made again
+    if (!claim.empty()) CommitOwned(claim);
+  }
+
+  // Commits `offsets` to the group synchronously with this instance's URL as their metadata.
+  // The group coordinator refuses a member of an older generation: then this instance no longer
+  // owns them (another may) and must not apply or publish anything of theirs.
+  rd_kafka_resp_err_t CommitOwned(const std::vector<SourceOffset>& offsets) {
+    if (offsets.empty()) return RD_KAFKA_RESP_ERR_NO_ERROR;
+    rd_kafka_topic_partition_list_t* list =
+        rd_kafka_topic_partition_list_new(static_cast<int>(offsets.size()));
+    for (const SourceOffset& o : offsets) {
+      rd_kafka_topic_partition_t* e =
+          rd_kafka_topic_partition_list_add(list, o.topic.c_str(), o.partition);
+      e->offset = o.next;
+      const std::string url = Owner();
+      e->metadata = std::malloc(url.size() + 1);  // freed with the list
+      std::memcpy(e->metadata, url.data(), url.size());
+      e->metadata_size = url.size();
+    }
+    const rd_kafka_resp_err_t err = rd_kafka_commit(consumer.get(), list, 0);
+    rd_kafka_topic_partition_list_destroy(list);
+    return err;
+  }
+
+  static bool Fenced(rd_kafka_resp_err_t err) {
+    return err == RD_KAFKA_RESP_ERR_ILLEGAL_GENERATION ||
+           err == RD_KAFKA_RESP_ERR_UNKNOWN_MEMBER_ID ||
+           err == RD_KAFKA_RESP_ERR_REBALANCE_IN_PROGRESS ||
+           err == RD_KAFKA_RESP_ERR_FENCED_INSTANCE_ID || err == RD_KAFKA_RESP_ERR__STATE ||
+           err == RD_KAFKA_RESP_ERR__NO_OFFSET;
+  }
+
+  // Before a batch is applied: this instance still owns the partitions it read it from.
+  bool Fence() {
+    std::map<std::pair<std::string, std::int32_t>, std::int64_t> first;
+    for (const Message& m : pending) {
+      auto [it, fresh] = first.try_emplace({m.topic, m.partition}, m.offset);
+      if (!fresh) it->second = std::min(it->second, m.offset);
+    }
+    std::vector<SourceOffset> at;
+    for (const auto& [tp, offset] : first) at.push_back({tp.first, tp.second, offset});
+    for (auto backoff = std::chrono::milliseconds(50);;
+         backoff = std::min(backoff * 2, std::chrono::milliseconds(2000))) {
+      const rd_kafka_resp_err_t err = CommitOwned(at);
+      if (err == RD_KAFKA_RESP_ERR_NO_ERROR) return true;
+      if (Fenced(err)) {
+        log(std::string("kafka: no longer the owner of the partitions read (") +
+                rd_kafka_err2name(err) + "): the batch is dropped",
+            "warn");
+        return false;
+      }
+      if (stop.load()) return false;
+      log(std::string("kafka: cannot confirm ownership with the group: ") + rd_kafka_err2str(err),
+          "warn");
+      std::this_thread::sleep_for(backoff);
+    }
+  }
+
+  // The changelog's end offset of partition `part` (-1 when the brokers do not say).
+  std::int64_t ChangelogEnd(std::int32_t part) {
+    std::int64_t low = 0, high = -1;
+    if (rd_kafka_query_watermark_offsets(consumer.get(), settings.changelog_topic.c_str(), part,
+                                         &low, &high, 5000) != RD_KAFKA_RESP_ERR_NO_ERROR)
+      return -1;
+    return high;
+  }
+
+  static std::string PartList(const std::vector<std::int32_t>& parts) {
+    std::ostringstream out;
+    for (std::size_t i = 0; i < parts.size(); ++i) out << (i ? ", " : "") << parts[i];
+    return out.str();
+  }
+
+  // Takes over the partitions of `parts` (sharing): releases the partitions held here that are
+  // not among them, restores the rest from the changelog unless what is held is current, and
+  // announces ownership. False when stopping first.
+  bool TakeOver(rd_kafka_topic_partition_list_t* parts) {
+    std::vector<std::int32_t> want;
+    for (int i = 0; i < parts->cnt; ++i) want.push_back(parts->elems[i].partition);
+    std::sort(want.begin(), want.end());
+    SetNotReady("restoring partitions " + PartList(want) + " from the changelog");
+    std::optional<std::vector<std::int32_t>> held =
+        OnEngine<std::vector<std::int32_t>>([this] { return engine.HeldPartitions(); });
+    if (!held) return false;
+    std::vector<std::int32_t> drop;
+    for (std::int32_t h : *held)
+      if (!std::binary_search(want.begin(), want.end(), h)) drop.push_back(h);
+    if (!drop.empty()) {
+      std::optional<Status> released =
+          OnEngine<Status>([this, drop] { return engine.Release(drop); });
+      if (!released) return false;
+      if (!*released)
+        log("kafka: releasing partitions " + PartList(drop) + ": " + released->message(), "error");
+      else
+        log("kafka: released partitions " + PartList(drop), "info");
+    }
+    for (std::int32_t part : want) {
+      auto k = kept.find(part);
+      if (k != kept.end() && k->second >= 0 && ChangelogEnd(part) == k->second) continue;
+      for (auto backoff = std::chrono::milliseconds(100);;
+           backoff = std::min(backoff * 2, std::chrono::milliseconds(5000))) {
+        if (stop.load()) return false;
+        Result<ChangelogPartition> read = changelog->Read(part, stop);
+        if (!read) {
+          if (stop.load()) return false;
+          log("kafka: restoring partition " + std::to_string(part) + ": " + read.status().message(),
+              "warn");
+          std::this_thread::sleep_for(backoff);
+          continue;
+        }
+        const auto adopting = Clock::now();
+        const std::string topic = settings.topics[0];
+        auto records = std::make_shared<ChangelogPartition>(std::move(*read));
+        std::optional<Status> adopted = OnEngine<Status>([this, topic, part, records] {
+          return engine.Adopt(topic, part, records->records, records->position);
+        });
+        if (!adopted) return false;
+        if (!*adopted) {
+          SetNotReady("partition " + std::to_string(part) +
+                      ": the changelog cannot be adopted: " + adopted->message());
+          log("kafka: partition " + std::to_string(part) +
+                  ": the changelog cannot be adopted: " + adopted->message(),
+              "error");
+          return false;
+        }
+        changelog->CountRestore(
+            static_cast<long>(records->records.size()),
+            std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - adopting).count());
+        log("kafka: partition " + std::to_string(part) +
+                " restored: " + std::to_string(records->records.size()) + " series from " +
+                std::to_string(records->read) + " changelog records",
+            "info");
+        break;
+      }
+    }
+    kept.clear();
+    return true;
+  }
   std::vector<Message> pending;
   std::vector<IngestRow> rows;
   Clock::time_point first_pending{};
@@ -74,6 +303,8 @@ struct KafkaSource::Impl {
     bool ok = true;
     for (const auto& [k, v] : settings.properties) ok = ok && set(k, v);
     ok = ok && set("bootstrap.servers", settings.brokers);
+    if (consumer_side && !settings.changelog_topic.empty())
+      ok = ok && set("client.id", "forewarden");
     if (consumer_side) {
       ok = ok && set("group.id", settings.group) && set("enable.auto.commit", "false") &&
            set("enable.auto.offset.store", "false") && set("auto.offset.reset", "earliest") &&
@@ -91,11 +322,14 @@ struct KafkaSource::Impl {
     }
     rd_kafka_conf_set_opaque(conf, this);
     // librdkafka's own lines in the service's log format (they went to stderr raw)
-    rd_kafka_conf_set_log_cb(
-        conf, [](const rd_kafka_t* rk, int level, const char* fac, const char* buf) {
-          auto* self = static_cast<Impl*>(rd_kafka_opaque(rk));
-          if (self) self->log(std::string("kafka: ") + fac + ": " + buf, SyslogLevel(level));
-        });
+    rd_kafka_conf_set_log_cb(conf, [](const rd_kafka_t* rk, int level, const char* fac,
+                                      const char* buf) {
+      auto* self = static_cast<Impl*>(rd_kafka_opaque(rk));
+      // the pass-through properties serve consumer and producer alike: not a problem
+      if (std::strstr(buf, "is a consumer property") || std::strstr(buf, "is a producer property"))
+        return;
+      if (self) self->log(std::string("kafka: ") + fac + ": " + buf, SyslogLevel(level));
+    });
     rd_kafka_conf_set_error_cb(conf, [](rd_kafka_t*, int err, const char* reason, void* opaque) {
       auto* self = static_cast<Impl*>(opaque);
       self->counters.errors.fetch_add(1);
@@ -155,14 +389,19 @@ struct KafkaSource::Impl {
     consumer.reset();
     if (producer) rd_kafka_flush(producer.get(), 5000);
     producer.reset();
+    if (changelog) changelog->Stop();  // what the last batches published reaches the brokers
   }
 
   void Run() {
-    Clock::time_point lag_at{};
+    Clock::time_point lag_at{}, owners_at{};
     while (!stop.load()) {
       if (Clock::now() - lag_at >= std::chrono::seconds(1)) {
         counters.lag.store(Lag());
         lag_at = Clock::now();
+      }
+      if (sharing() && Clock::now() - owners_at >= std::chrono::seconds(2)) {
+        RefreshOwners();
+        owners_at = Clock::now();
       }
       rd_kafka_message_t* m = rd_kafka_consumer_poll(consumer.get(), 100);
       if (m) {
@@ -256,7 +495,10 @@ struct KafkaSource::Impl {
     } else {
       msg.first_row = static_cast<long>(rows.size());
       msg.rows = static_cast<long>(parsed.rows.size());
-      for (IngestRow& r : parsed.rows) rows.push_back(std::move(r));
+      for (IngestRow& r : parsed.rows) {
+        r.partition = m.partition;  // instances sharing series hold them by partition
+        rows.push_back(std::move(r));
+      }
     }
     if (pending.empty()) first_pending = Clock::now();
     pending.push_back(std::move(msg));
@@ -301,6 +543,8 @@ struct KafkaSource::Impl {
       }
       // The refused messages are in the dead-letter topic before the offsets pass them.
       if (!DeadLetter(dead)) return false;
+      if (sharing() && !changelog->broken().empty()) return false;  // a hole would follow
+      if (sharing() && !Fence()) return false;
       std::optional<IngestReply> reply = Apply(batch);
       if (!reply) return false;  // stopping
       if (reply->status == IngestReply::Status::kOk) {
@@ -426,6 +670,44 @@ struct KafkaSource::Impl {
   void Rebalance(rd_kafka_t* rk, rd_kafka_resp_err_t err, rd_kafka_topic_partition_list_t* parts) {
     counters.rebalances.fetch_add(1);
     const bool cooperative = std::string(rd_kafka_rebalance_protocol(rk)) == "COOPERATIVE";
+    if (sharing() && err == RD_KAFKA_RESP_ERR__ASSIGN_PARTITIONS) {
+      LearnPartitionCount();
+      if (!TakeOver(parts)) return;  // stopping, or a changelog that cannot be adopted
+    }
+    if (sharing() && err != RD_KAFKA_RESP_ERR__ASSIGN_PARTITIONS) {
+      // What was read is applied and in the changelog before another instance reads it back.
+      const bool applied = Flush();
+      pending.clear();
+      rows.clear();
+      const bool drained = changelog->Drain(stop);
+      std::vector<std::int32_t> gone;
+      for (int i = 0; i < parts->cnt; ++i) gone.push_back(parts->elems[i].partition);
+      if (cooperative || !applied || !drained) {
+        kept.clear();
+        std::optional<Status> released =
+            OnEngine<Status>([this, gone] { return engine.Release(gone); });
+        if (released && !*released)
+          log("kafka: releasing partitions: " + released->message(), "error");
+      } else {
+        for (std::int32_t part : gone) kept[part] = ChangelogEnd(part);
+      }
+      {
+        std::lock_guard lock(share_mu);
+        std::vector<std::int32_t> left;
+        for (std::int32_t a : held_parts)
+          if (std::find(gone.begin(), gone.end(), a) == gone.end()) left.push_back(a);
+        held_parts = std::move(left);
+      }
+      if (cooperative) {
+        rd_kafka_error_destroy(rd_kafka_incremental_unassign(rk, parts));
+        counters.partitions.fetch_sub(parts->cnt);
+      } else {
+        rd_kafka_assign(rk, nullptr);
+        counters.partitions.store(0);
+      }
+      log("kafka: " + std::to_string(parts->cnt) + " partition(s) revoked", "info");
+      return;
+    }
     if (err == RD_KAFKA_RESP_ERR__ASSIGN_PARTITIONS) {
       // Resume every partition from the store (its beginning when it has none). Without the
       // stored offsets nothing is assigned: reading from the beginning would apply rows twice.
@@ -443,6 +725,22 @@ struct KafkaSource::Impl {
         rd_kafka_assign(rk, parts);
       counters.partitions.fetch_add(parts->cnt);
       log("kafka: assigned " + std::to_string(parts->cnt) + " partition(s)", "info");
+      if (sharing()) {
+        // ownership announced to the group (the partition map other instances redirect by)
+        std::vector<SourceOffset> at;
+        for (int i = 0; i < parts->cnt; ++i)
+          at.push_back({parts->elems[i].topic, parts->elems[i].partition,
+                        std::max<std::int64_t>(0, parts->elems[i].offset)});
+        if (const rd_kafka_resp_err_t c = CommitOwned(at); c != RD_KAFKA_RESP_ERR_NO_ERROR)
+          log(std::string("kafka: announcing ownership: ") + rd_kafka_err2str(c), "warn");
+        {
+          std::lock_guard lock(share_mu);
+          for (int i = 0; i < parts->cnt; ++i) held_parts.push_back(parts->elems[i].partition);
+          std::sort(held_parts.begin(), held_parts.end());
+        }
+        if (changelog->broken().empty()) SetNotReady("");
+        RefreshOwners();
+      }
     } else {
       // Revoked: what was read from them is applied before another instance takes them; what
       // cannot be applied now is dropped (the owner reads it again from the stored offsets).
@@ -464,6 +762,65 @@ struct KafkaSource::Impl {
 
 KafkaSource::KafkaSource(Engine& engine, config::Kafka settings, IngestLimits limits, Log log)
     : impl_(std::make_unique<Impl>(engine, std::move(settings), limits, std::move(log))) {}
+
+Status KafkaSource::Share(const std::string& owner) {
+  impl_->owner_url = owner;
+  impl_->changelog = std::make_unique<Changelog>(impl_->settings, impl_->log);
+  if (Status started = impl_->changelog->Start(); !started) {
+    impl_->changelog.reset();
+    return started;
+  }
+  impl_->SetNotReady("waiting for partitions from the group");
+  Changelog* changelog = impl_->changelog.get();
+  impl_->engine.ShareSeries(
+      [changelog](std::vector<ChangeRecord>&& records) { changelog->Publish(std::move(records)); });
+  return Status::Ok();
+}
+
+void KafkaSource::SetOwner(const std::string& owner) {
+  std::lock_guard lock(impl_->share_mu);
+  impl_->owner_url = owner;
+}
+
+std::string KafkaSource::Owner() const {
+  std::lock_guard lock(impl_->share_mu);
+  return impl_->owner_url;
+}
+
+std::string KafkaSource::NotReady() const {
+  if (!impl_->sharing()) return "";
+  if (std::string broken = impl_->changelog->broken(); !broken.empty()) return broken;
+  std::lock_guard lock(impl_->share_mu);
+  return impl_->not_ready;
+}
+
+std::int32_t KafkaSource::PartitionOf(const std::string& key) const {
+  std::int32_t n;
+  {
+    std::lock_guard lock(impl_->share_mu);
+    n = impl_->partition_count;
+  }
+  if (n <= 0) return -1;
+  return impl_->settings.partitioner == config::Kafka::Partitioner::kMurmur2
+             ? rd_kafka_msg_partitioner_murmur2(nullptr, key.data(), key.size(), n, nullptr,
+                                                nullptr)
+             : rd_kafka_msg_partitioner_consistent(nullptr, key.data(), key.size(), n, nullptr,
+                                                   nullptr);
+}
+
+std::vector<std::string> KafkaSource::Owners() const {
+  std::lock_guard lock(impl_->share_mu);
+  return impl_->owners;
+}
+
+std::vector<std::int32_t> KafkaSource::Assigned() const {
+  std::lock_guard lock(impl_->share_mu);
+  return impl_->held_parts;
+}
+
+const ChangelogCounters* KafkaSource::changelog_counters() const {
+  return impl_->changelog ? &impl_->changelog->counters() : nullptr;
+}
 
 KafkaSource::~KafkaSource() {
   Stop();

@@ -50,6 +50,9 @@ struct KafkaCounters {
   std::atomic<long> lag{0};
 };
 
+class Changelog;
+struct ChangelogCounters;
+
 class KafkaSource {
  public:
   using Log = std::function<void(const std::string& line, const char* level)>;
@@ -58,9 +61,29 @@ class KafkaSource {
   KafkaSource(const KafkaSource&) = delete;
   KafkaSource& operator=(const KafkaSource&) = delete;
 
+  // Sharing series (kafka.changelog_topic; daemon/feeds/changelog.h), before the engine starts:
+  // creates the changelog and hands the engine its publisher, naming this instance `owner`
+  // (the URL other instances send requests for its series to). Invalid when librdkafka refuses
+  // a property.
+  Status Share(const std::string& owner);
+  // Sharing: this instance's URL, once the port is known (before Start); and as set.
+  void SetOwner(const std::string& owner);
+  std::string Owner() const;
   // Creates the consumer (and the dead-letter producer), subscribes, starts the thread.
   // Invalid when librdkafka refuses a property.
   Status Start();
+  // Sharing: "" when this instance answers for the partitions assigned to it; else why not
+  // ("restoring partitions 3, 7 from the changelog", a changelog failure).
+  std::string NotReady() const;
+  // Sharing: the partition a series key belongs to (by kafka.partitioner), or -1 before the
+  // source topic's partition count is known.
+  std::int32_t PartitionOf(const std::string& key) const;
+  // Sharing: each partition's owner as the group's committed offsets name it ("" unknown), by
+  // partition; refreshed about every 2 seconds.
+  std::vector<std::string> Owners() const;
+  // Sharing: the partitions assigned here.
+  std::vector<std::int32_t> Assigned() const;
+  const ChangelogCounters* changelog_counters() const;
   // Applies what is gathered, leaves the group, stops the thread. Idempotent.
   void Stop();
   const KafkaCounters& counters() const;

@@ -9,6 +9,7 @@
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
+#include <cstring>
 #include <filesystem>
 #include <fstream>
 #include <iostream>
@@ -111,6 +112,8 @@ class KafkaProducer {
     rd_kafka_conf_set_log_cb(
         conf, [](const rd_kafka_t* rk, int level, const char* fac, const char* buf) {
           const char* name = static_cast<const char*>(rd_kafka_opaque(rk));
+          // kafka.properties serve the consumer too: a consumer property here is not a problem
+          if (std::strstr(buf, "is a consumer property")) return;
           WriteLog(std::cerr,
                    LogLine(SyslogLevel(level), "kafka sink",
                            {{"sink", name ? name : ""}, {"what", std::string(fac) + ": " + buf}}));

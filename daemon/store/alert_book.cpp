@@ -12,8 +12,8 @@ bool AlertBook::OpenAll(Db& db, const std::function<long(std::int64_t)>& index_o
   db_ = &db;
   insert_alert_ = db.Prepare(
       "INSERT INTO alerts(series_id, series_key, policy, rule, signal, severity, state, "
-      "opened_period, opened_ms, updated_ms, value, limit_value, group_id, diagnosis) "
-      "VALUES(?1, ?2, ?3, ?4, ?5, ?6, 'open', ?7, ?8, ?8, ?9, ?10, ?11, ?12)");
+      "opened_period, opened_ms, updated_ms, value, limit_value, group_id, diagnosis, id) "
+      "VALUES(?1, ?2, ?3, ?4, ?5, ?6, 'open', ?7, ?8, ?8, ?9, ?10, ?11, ?12, ?13)");
   update_alert_state_ = db.Prepare(
       "UPDATE alerts SET state = ?2, updated_ms = ?3, "
       "ack_by = CASE WHEN ?2 = 'acknowledged' THEN ?4 ELSE ack_by END, "
@@ -31,8 +31,8 @@ bool AlertBook::OpenAll(Db& db, const std::function<long(std::int64_t)>& index_o
   insert_delivery_ = db.Prepare(
       "INSERT INTO deliveries(event_id, sink, state, next_ms) VALUES(?1, ?2, 'pending', ?3)");
   insert_group_ = db.Prepare(
-      "INSERT INTO alert_groups(policy, rule, severity, members, open_members, opened_ms) "
-      "VALUES(?1, ?2, ?3, ?4, ?4, ?5)");
+      "INSERT INTO alert_groups(policy, rule, severity, members, open_members, opened_ms, id) "
+      "VALUES(?1, ?2, ?3, ?4, ?4, ?5, ?6)");
   group_left_ = db.Prepare(
       "UPDATE alert_groups SET open_members = open_members - 1, "
       "resolved_ms = CASE WHEN open_members = 1 THEN ?2 ELSE resolved_ms END WHERE id = ?1 "
@@ -115,6 +115,7 @@ void AlertBook::Put(std::uint64_t key, const std::optional<Live>& value) {
 }
 
 void AlertBook::Set(std::uint64_t key, std::optional<Live> value) {
+  if (track_changes_) changed_.push_back(static_cast<std::size_t>(key >> 8));
   auto it = open_.find(key);
   undo_.push_back({key, it == open_.end() ? std::nullopt : std::optional<Live>(it->second)});
   Put(key, value);
@@ -202,13 +203,21 @@ bool AlertBook::ApplyAll(const std::vector<AlertChange>& changes, const SeriesIn
     if (static_cast<long>(members.size()) <= storm_threshold_) continue;
     const monitors::RuleSpec& rule = where.first->spec.rules[where.second];
     insert_group_.Reset();
-    if (!insert_group_.Bind(1, where.first->name)
-             .Bind(2, rule.name)
-             .Bind(3, std::string(monitors::SeverityName(rule.severity)))
-             .Bind(4, static_cast<std::int64_t>(members.size()))
-             .Bind(5, now_ms)
-             .Run())
-      return Fail("alert group");
+    insert_group_.Bind(1, where.first->name)
+        .Bind(2, rule.name)
+        .Bind(3, std::string(monitors::SeverityName(rule.severity)))
+        .Bind(4, static_cast<std::int64_t>(members.size()))
+        .Bind(5, now_ms);
+    if (group_base_ > 0) {  // sharing series: this instance's own range of group ids
+      Stmt top = db_->Prepare("SELECT max(id) FROM alert_groups WHERE id >= ?1");
+      if (!top.valid() || !top.Bind(1, group_base_).Step()) return Fail("alert group");
+      const std::int64_t next = top.IsNull(0) ? group_base_ : top.Int(0) + 1;
+      top.Reset();
+      insert_group_.Bind(6, next);
+    } else {
+      insert_group_.BindNull(6);
+    }
+    if (!insert_group_.Run()) return Fail("alert group");
     const std::int64_t group = db_->LastInsertId();
     for (std::size_t m : members) group_of[m] = group;
     if (!Event(0, group, "group_opened", now_ms, "", "",
@@ -257,6 +266,10 @@ bool AlertBook::ApplyAll(const std::vector<AlertChange>& changes, const SeriesIn
         insert_alert_.Bind(12, diagnosis);
       else
         insert_alert_.BindNull(12);
+      if (const std::int64_t id = id_maker_ ? id_maker_(c.series) : 0; id > 0)
+        insert_alert_.Bind(13, id);
+      else
+        insert_alert_.BindNull(13);
       if (!insert_alert_.Run()) return Fail("alert");
       Live o;
       o.id = db_->LastInsertId();

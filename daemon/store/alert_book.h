@@ -23,6 +23,7 @@
 #include <optional>
 #include <string>
 #include <unordered_map>
+#include <utility>
 #include <vector>
 
 #include "config/settings.h"
@@ -64,11 +65,23 @@ class AlertBook {
   // `index_of` maps a series id to the engine's index (-1 when unknown).
   Status Open(Db& db, const std::function<long(std::int64_t)>& index_of);
   void Configure(const config::Settings& settings);  // sinks, storm threshold
+  const std::vector<std::string>& sinks() const { return sinks_; }
   // Makes the diagnosis stored with a single (not grouped) alert as it opens: JSON text, or ""
   // for none. Called inside Apply's transaction, with the series' actuals of the batch in it.
   using Diagnoser =
       std::function<std::string(std::size_t index, std::size_t rule, std::int64_t period)>;
   void SetDiagnoser(Diagnoser d) { diagnoser_ = std::move(d); }
+  // Sharing series between instances (engine.h, ShareSeries): the id of a new alert of series
+  // `index` (0: the store chooses); group ids from `group_base` up; the series whose alerts
+  // changed are noted for TakeChanged.
+  using IdMaker = std::function<std::int64_t(std::size_t index)>;
+  void ShareIds(IdMaker id_maker, std::int64_t group_base) {
+    id_maker_ = std::move(id_maker);
+    group_base_ = group_base;
+    track_changes_ = true;
+  }
+  // The series (engine indexes, perhaps repeated) whose alerts changed since the last call.
+  std::vector<std::size_t> TakeChanged() { return std::exchange(changed_, {}); }
   // After Open and Configure: places the loaded alerts under (index, rule) by rule name through
   // `locate` (nullopt: the rule is gone; the alert is left as stored) and parses snooze periods.
   void Index(const std::function<std::optional<std::pair<std::size_t, std::size_t>>(
@@ -175,6 +188,10 @@ class AlertBook {
   Stmt insert_alert_, update_alert_state_, set_severity_, resolve_alert_, insert_event_,
       insert_delivery_, insert_group_, group_left_, select_alert_;
   Diagnoser diagnoser_;
+  IdMaker id_maker_;
+  std::int64_t group_base_ = 0;
+  bool track_changes_ = false;
+  std::vector<std::size_t> changed_;
 };
 
 }  // namespace forewarden

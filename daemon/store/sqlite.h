@@ -52,6 +52,9 @@ class Stmt {
   std::int64_t Int(int col) const { return sqlite3_column_int64(stmt_.get(), col); }
   double Double(int col) const { return sqlite3_column_double(stmt_.get(), col); }
   bool IsNull(int col) const { return sqlite3_column_type(stmt_.get(), col) == SQLITE_NULL; }
+  int Columns() const { return sqlite3_column_count(stmt_.get()); }
+  const char* Name(int col) const { return sqlite3_column_name(stmt_.get(), col); }
+  int Type(int col) const { return sqlite3_column_type(stmt_.get(), col); }
   std::string_view Text(int col) const {
     const auto* p = reinterpret_cast<const char*>(sqlite3_column_text(stmt_.get(), col));
     return p ? std::string_view(p, static_cast<std::size_t>(sqlite3_column_bytes(stmt_.get(), col)))

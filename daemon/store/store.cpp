@@ -116,6 +116,14 @@ const char* const kMigrations[] = {
     "  partition INTEGER NOT NULL,"
     "  next_offset INTEGER NOT NULL,"
     "  PRIMARY KEY(topic, partition)) WITHOUT ROWID;",
+    // 7: instances sharing series through Kafka (daemon/feeds/changelog.h): each series' source
+    //    partition, its number within the partition and the alert episodes it has opened (the
+    //    parts of its alerts' ids), and each partition's next series number
+    "ALTER TABLE series ADD COLUMN part INTEGER NOT NULL DEFAULT -1;"
+    "ALTER TABLE series ADD COLUMN ordinal INTEGER NOT NULL DEFAULT 0;"
+    "ALTER TABLE series ADD COLUMN episodes INTEGER NOT NULL DEFAULT 0;"
+    "CREATE INDEX series_part ON series(part) WHERE part >= 0;"
+    "CREATE TABLE partitions(part INTEGER PRIMARY KEY, next_ordinal INTEGER NOT NULL);",
 };
 constexpr int kSchemaVersion = static_cast<int>(sizeof kMigrations / sizeof kMigrations[0]);
 
@@ -154,8 +162,12 @@ Status Store::Open(const std::string& dir, bool synchronous_full, long long max_
   savepoint_ = db_.Prepare("SAVEPOINT batch");
   release_ = db_.Prepare("RELEASE batch");
   rollback_to_ = db_.Prepare("ROLLBACK TO batch");
-  insert_series_ =
-      db_.Prepare("INSERT INTO series(key, policy, labels, state) VALUES(?1, ?2, ?3, ?4)");
+  insert_series_ = db_.Prepare(
+      "INSERT INTO series(key, policy, labels, state, part, ordinal) "
+      "VALUES(?1, ?2, ?3, ?4, ?5, ?6)");
+  set_episodes_ = db_.Prepare("UPDATE series SET episodes = ?2 WHERE id = ?1");
+  put_next_ordinal_ =
+      db_.Prepare("INSERT OR REPLACE INTO partitions(part, next_ordinal) VALUES(?1, ?2)");
   insert_checkpoint_ = db_.Prepare("INSERT INTO checkpoints(series_id, state) VALUES(?1, ?2)");
   update_state_ = db_.Prepare("UPDATE series SET state = ?2 WHERE id = ?1");
   update_checkpoint_ = db_.Prepare("UPDATE checkpoints SET state = ?2 WHERE series_id = ?1");
@@ -186,6 +198,8 @@ Status Store::Open(const std::string& dir, bool synchronous_full, long long max_
                         &rollback_to_,
                         &insert_series_,
                         &insert_checkpoint_,
+                        &set_episodes_,
+                        &put_next_ordinal_,
                         &update_state_,
                         &update_checkpoint_,
                         &load_checkpoint_,
@@ -255,7 +269,8 @@ Result<std::int64_t> Store::CountSeries() {
 
 Status Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
   // Two ordered scans merged by id: much faster than per-series subqueries for millions.
-  Stmt q = db_.Prepare("SELECT id, key, policy, labels, state FROM series ORDER BY id");
+  Stmt q = db_.Prepare(
+      "SELECT id, key, policy, labels, state, part, ordinal, episodes FROM series ORDER BY id");
   Stmt a = db_.Prepare(
       "SELECT series_id, count(*), min(period), max(period) FROM actuals GROUP BY series_id "
       "ORDER BY series_id");
@@ -276,6 +291,9 @@ Status Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
       a.Reset();
       return Status::StoreFailed("store: series '" + s.key + "': the stored state cannot be read");
     }
+    s.place.part = static_cast<std::int32_t>(q.Int(5));
+    s.place.ordinal = static_cast<std::int32_t>(q.Int(6));
+    s.place.episodes = static_cast<std::int32_t>(q.Int(7));
     while (a.Row() && a.Int(0) < s.id)
       if (!a.Step()) return Failed("load series");
     if (a.Row() && a.Int(0) == s.id) {
@@ -289,11 +307,21 @@ Status Store::LoadSeries(const std::function<void(StoredSeries&&)>& each) {
 
 Result<std::int64_t> Store::InsertSeries(const std::string& key, const std::string& policy,
                                          const std::string& labels,
-                                         const monitors::SeriesState& state) {
+                                         const monitors::SeriesState& state, SeriesPlace place) {
   const std::string blob = EncodeState(state);
-  if (!insert_series_.Bind(1, key).Bind(2, policy).Bind(3, labels).BindBlob(4, blob).Run())
+  if (!insert_series_.Bind(1, key)
+           .Bind(2, policy)
+           .Bind(3, labels)
+           .BindBlob(4, blob)
+           .Bind(5, static_cast<std::int64_t>(place.part))
+           .Bind(6, static_cast<std::int64_t>(place.ordinal))
+           .Run())
     return Failed("insert series");
   const std::int64_t id = db_.LastInsertId();
+  if (place.part >= 0 && !put_next_ordinal_.Bind(1, static_cast<std::int64_t>(place.part))
+                              .Bind(2, static_cast<std::int64_t>(place.ordinal) + 1)
+                              .Run())
+    return Failed("insert series");
   if (!insert_checkpoint_.Bind(1, id).BindBlob(2, blob).Run()) return Failed("insert checkpoint");
   return id;
 }
@@ -301,6 +329,29 @@ Result<std::int64_t> Store::InsertSeries(const std::string& key, const std::stri
 Status Store::UpdateState(std::int64_t id, const monitors::SeriesState& state) {
   const std::string blob = EncodeState(state);
   return Check(update_state_.Bind(1, id).BindBlob(2, blob).Run(), "update state");
+}
+
+Result<std::string> Store::InstallId() {
+  Stmt q = db_.Prepare("SELECT value FROM meta WHERE key = 'install_id'");
+  if (!q.valid() || !q.Step() || !q.Row()) return Failed("installation id");
+  std::string id(q.Text(0));
+  q.Reset();
+  return id;
+}
+
+Status Store::SetEpisodes(std::int64_t id, std::int32_t episodes) {
+  return Check(set_episodes_.Bind(1, id).Bind(2, static_cast<std::int64_t>(episodes)).Run(),
+               "count alert episodes");
+}
+
+Result<std::int32_t> Store::NextOrdinal(std::int32_t part) {
+  Stmt q = db_.Prepare("SELECT next_ordinal FROM partitions WHERE part = ?1");
+  if (!q.valid()) return Failed("next series number");
+  q.Bind(1, static_cast<std::int64_t>(part));
+  if (!q.Step()) return Failed("next series number");
+  const std::int32_t next = q.Row() ? static_cast<std::int32_t>(q.Int(0)) : 0;
+  q.Reset();
+  return next;
 }
 
 Status Store::UpdateCheckpoint(std::int64_t id, const monitors::SeriesState& checkpoint) {

@@ -21,6 +21,15 @@ namespace forewarden {
 // The database file under a data folder (server.data): the one place its name is written.
 std::string DatabasePath(const std::string& data_dir);
 
+// Where a series stands among instances sharing series through Kafka: its source partition
+// (-1: none, a single instance), its number within that partition (in order of first arrival)
+// and the alert episodes it has opened; the last two make its alerts' ids (changelog.h).
+struct SeriesPlace {
+  std::int32_t part = -1;
+  std::int32_t ordinal = 0;
+  std::int32_t episodes = 0;
+};
+
 struct StoredSeries {
   std::int64_t id = 0;
   std::string key;
@@ -30,6 +39,7 @@ struct StoredSeries {
   std::int64_t retained = 0;       // actuals kept
   std::int64_t oldest_period = 0;  // oldest retained actual's period (when retained > 0)
   std::int64_t newest_period = 0;  // newest retained actual's period (when retained > 0)
+  SeriesPlace place;
 };
 
 struct StoredActual {
@@ -72,9 +82,14 @@ class Store {
   // Calls `each` for every series (in id order), with its retained-actual statistics.
   Status LoadSeries(const std::function<void(StoredSeries&&)>& each);
 
-  // Creates a series; its id.
+  // Creates a series; its id. With a partition, that partition's next series number moves past
+  // the series' own.
   Result<std::int64_t> InsertSeries(const std::string& key, const std::string& policy,
-                                    const std::string& labels, const monitors::SeriesState& state);
+                                    const std::string& labels, const monitors::SeriesState& state,
+                                    SeriesPlace place = {});
+  Status SetEpisodes(std::int64_t id, std::int32_t episodes);
+  // The number the next new series of partition `part` gets (0 for a partition never seen).
+  Result<std::int32_t> NextOrdinal(std::int32_t part);
   Status UpdateState(std::int64_t id, const monitors::SeriesState& state);
   Status UpdateCheckpoint(std::int64_t id, const monitors::SeriesState& checkpoint);
   Status LoadCheckpoint(std::int64_t id, monitors::SeriesState& checkpoint);
@@ -101,6 +116,8 @@ class Store {
   Status Audit(std::int64_t at_unix_ms, const std::string& who, const std::string& action,
                const std::string& series_key, const std::string& detail);
 
+  // The installation id: random, made with the database (notifications' idempotency keys).
+  Result<std::string> InstallId();
   int schema_version() const { return schema_version_; }
   Db& db() { return db_; }  // the alert book shares the connection (and its transactions)
 
@@ -112,7 +129,8 @@ class Store {
   Db db_;
   int schema_version_ = 0;
   Stmt begin_, commit_, rollback_, savepoint_, release_, rollback_to_;
-  Stmt insert_series_, insert_checkpoint_, update_state_, update_checkpoint_, load_checkpoint_;
+  Stmt insert_series_, insert_checkpoint_, set_episodes_, put_next_ordinal_, update_state_,
+      update_checkpoint_, load_checkpoint_;
   Stmt put_actual_, get_actual_, oldest_actual_, actuals_, drop_actuals_, drop_adjustments_;
   Stmt put_adjustment_, adjustments_, audit_, put_offset_, offsets_;
 };

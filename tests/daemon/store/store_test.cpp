@@ -19,7 +19,7 @@ TEST_CASE("the store keeps series, actuals and adjustments across a reopen", "[i
   {
     Store store;
     REQUIRE(store.Open(dir.File("data"), true));
-    CHECK(store.schema_version() == 6);
+    CHECK(store.schema_version() == 7);
     REQUIRE(store.Begin());
     forewarden::Result<std::int64_t> created =
         store.InsertSeries("north/store-1/sku-1", "weekly", "{\"channel\":\"store\"}", state);
@@ -123,7 +123,7 @@ TEST_CASE("a version 1 database is migrated and keeps its series and checkpoints
   db = forewarden::Db();
   Store store;
   REQUIRE(store.Open(dir.File("old"), true));
-  CHECK(store.schema_version() == 6);
+  CHECK(store.schema_version() == 7);
   monitors::SeriesState loaded;
   REQUIRE(store.LoadCheckpoint(7, loaded));
   CHECK(loaded.stats.cusum == 3.25);
