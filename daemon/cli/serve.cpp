@@ -209,7 +209,8 @@ int RunServe(const ServeOptions& o, std::ostream& out, std::ostream& err) {
   std::atomic<long> reloads_ok{0}, reloads_failed{0};  // server and engine threads count them
   metrics.SetSources(MetricSources{&engine, &server.counters(), &api.counters(),
                                    folder ? &folder->counters() : nullptr, &delivery, &reloads_ok,
-                                   &reloads_failed, kafka ? &kafka->counters() : nullptr});
+                                   &reloads_failed, kafka ? &kafka->counters() : nullptr,
+                                   kafka ? kafka->changelog_counters() : nullptr});
   bool stopping = false;
   const std::chrono::seconds grace(srv.shutdown_grace_seconds);
   server.OnSignals([&](int signo) {

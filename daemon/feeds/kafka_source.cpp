@@ -224,6 +224,11 @@ struct KafkaSource::Impl {
     for (int i = 0; i < parts->cnt; ++i) want.push_back(parts->elems[i].partition);
     std::sort(want.begin(), want.end());
     SetNotReady("restoring partitions " + PartList(want) + " from the changelog");
+    counters.restoring.store(static_cast<long>(want.size()));
+    struct Done {
+      std::atomic<long>& restoring;
+      ~Done() { restoring.store(0); }
+    } done{counters.restoring};
     std::optional<std::vector<std::int32_t>> held =
         OnEngine<std::vector<std::int32_t>>([this] { return engine.HeldPartitions(); });
     if (!held) return false;

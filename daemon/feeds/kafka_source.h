@@ -44,6 +44,7 @@ struct KafkaCounters {
   std::atomic<long> errors{0};        // consumer and producer errors reported by librdkafka
   std::atomic<long> rebalances{0};    // assignments and revocations
   std::atomic<long> partitions{0};    // assigned now
+  std::atomic<long> restoring{0};     // sharing: partitions being restored from the changelog
   // Messages on the assigned partitions not yet committed here: the brokers' newest offsets
   // (as last seen) less this instance's position, plus those gathered and not yet applied.
   // Updated about once a second.

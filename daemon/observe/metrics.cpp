@@ -16,6 +16,7 @@
 #include <sstream>
 
 #include "daemon/feeds/drop_folder.h"
+#include "daemon/feeds/changelog.h"
 #include "daemon/feeds/kafka_source.h"
 #include "daemon/http/http_server.h"
 #include "daemon/notify/delivery.h"
@@ -446,6 +447,36 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
         .Register(now)
         .Add({})
         .Set(static_cast<double>(k->partitions.load()));
+    BuildGauge()
+        .Name("forewarden_kafka_restoring_partitions")
+        .Help("Partitions being restored from the changelog before this instance consumes them.")
+        .Register(now)
+        .Add({})
+        .Set(static_cast<double>(k->restoring.load()));
+  }
+  if (const ChangelogCounters* c = src.changelog) {
+    auto counter = [&](const char* name, const char* help, double v) {
+      BuildCounter().Name(name).Help(help).Register(now).Add({}).Increment(v);
+    };
+    counter("forewarden_changelog_records_total",
+            "Changelog records written (series changed and partition positions).",
+            static_cast<double>(c->records.load()));
+    counter("forewarden_changelog_bytes_total",
+            "Bytes of changelog keys and values written, before compression.",
+            static_cast<double>(c->bytes.load()));
+    counter("forewarden_changelog_failures_total",
+            "Changelog records the brokers refused for good (consumption stops).",
+            static_cast<double>(c->failed.load()));
+    counter("forewarden_changelog_restores_total", "Partitions restored from the changelog.",
+            static_cast<double>(c->restores.load()));
+    counter("forewarden_changelog_restored_series_total",
+            "Series adopted from the changelog.", static_cast<double>(c->restored.load()));
+    counter("forewarden_changelog_restore_bytes_total",
+            "Changelog bytes read while restoring partitions.",
+            static_cast<double>(c->restore_bytes.load()));
+    counter("forewarden_changelog_restore_seconds_total",
+            "Seconds spent reading and adopting changelog partitions.",
+            static_cast<double>(c->restore_ms.load()) / 1000.0);
   }
 
   std::vector<prometheus::MetricFamily> families = now.Collect();

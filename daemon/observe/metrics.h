@@ -51,6 +51,7 @@ struct ApiCounters {
 };
 
 // Where scrape-time values come from; any pointer may be null (not running).
+struct ChangelogCounters;
 struct MetricSources {
   const Engine* engine = nullptr;
   const HttpCounters* http = nullptr;
@@ -60,6 +61,7 @@ struct MetricSources {
   const std::atomic<long>* reloads_ok = nullptr;
   const std::atomic<long>* reloads_failed = nullptr;
   const KafkaCounters* kafka = nullptr;
+  const ChangelogCounters* changelog = nullptr;  // instances sharing series
 };
 
 class Metrics {
