@@ -654,13 +654,24 @@ void Api::Instances(const std::shared_ptr<Call>& c) {
     instances.push_back(
         {{"url", owner}, {"partitions", parts}, {"self", owner == sharing_->self()}});
   const std::string not_ready = sharing_->not_ready();
-  c->Answer(Json(200, {{"sharing", true},
-                       {"self", sharing_->self()},
-                       {"ready", not_ready.empty()},
-                       {"reason", not_ready},
-                       {"held", held},
-                       {"partitions", partitions},
-                       {"instances", instances}}));
+  json out = {{"sharing", true},
+              {"self", sharing_->self()},
+              {"ready", not_ready.empty()},
+              {"reason", not_ready},
+              {"held", held},
+              {"partitions", partitions},
+              {"instances", instances}};
+  if (const auto key = c->Param("series")) {  // where one series lives
+    const std::int32_t part = sharing_->partition_of(*key);
+    const bool here = std::binary_search(held.begin(), held.end(), part);
+    json where = {{"key", *key}, {"partition", part}, {"here", here}};
+    where["owner"] = here ? sharing_->self()
+                     : part >= 0 && part < static_cast<std::int32_t>(owners.size())
+                         ? owners[static_cast<std::size_t>(part)]
+                         : std::string();
+    out["series"] = std::move(where);
+  }
+  c->Answer(Json(200, out));
 }
 
 void Api::Ready(const std::shared_ptr<Call>& c) {

@@ -283,6 +283,7 @@ void Engine::CollectChanges(std::size_t index, const monitors::StepResult& r, st
 
 Status Engine::AlertAction(const std::function<Status(AlertBook&, std::int64_t now_ms)>& action) {
   if (std::string sticky = failure(); !sticky.empty()) return Status::StoreFailed(sticky);
+  if (seating_) return Status::Busy("partitions are being restored; retry shortly");
   if (Status begun = store_.Begin(); !begun) return Fail(begun);
   const std::size_t mark = alerts_.Mark();
   Status done = action(alerts_, clock_());
@@ -307,6 +308,7 @@ Status Engine::AlertAction(const std::function<Status(AlertBook&, std::int64_t n
 }
 
 void Engine::Housekeeping() {
+  if (seating_) return;  // memory is behind the store (partitions being adopted)
   const std::int64_t now = clock_();
   if (now - last_housekeeping_ms_ < settings_->alerts.check_seconds * 1000) return;
   last_housekeeping_ms_ = now;
@@ -530,7 +532,8 @@ void Engine::Run() {
     const std::size_t group_mark = alerts_.Mark();
     std::vector<Pending> pending(group.size());
     for (std::size_t i = 0; i < group.size(); ++i) pending[i].job = std::move(group[i]);
-    const std::string sticky = failure();
+    const std::string sticky =
+        seating_ ? std::string("partitions are being restored; retry shortly") : failure();
     if (!sticky.empty()) {
       for (Pending& p : pending) {
         ++counters_.batches_unavailable;
@@ -1136,6 +1139,7 @@ Result<monitors::AlertDiagnosis> Engine::DiagnoseSeries(std::size_t index, std::
 
 Result<double> Engine::Reset(const std::string& key, const std::string& how, double value, int k,
                              const std::string& who, const std::string& note) {
+  if (seating_) return Status::Busy("partitions are being restored; retry shortly");
   const long pos = index_.Find(key);
   if (pos < 0) return Status::NotFound("no series '" + key + "'");
   double new_level = 0;
@@ -1356,7 +1360,8 @@ std::vector<std::int32_t> Engine::HeldPartitions() const {
 }
 
 Status Engine::Adopt(const std::string& topic, std::int32_t part,
-                     const std::vector<std::string>& records, const std::string& position) {
+                     const std::vector<std::string>& records, const std::string& position,
+                     bool seat) {
   if (std::string sticky = failure(); !sticky.empty()) return Status::StoreFailed(sticky);
   // lazily written states first: the reload below reads every series from the store
   if (dirty_count_) {
@@ -1371,8 +1376,17 @@ Status Engine::Adopt(const std::string& topic, std::int32_t part,
     if (done.kind() == ErrorKind::kStoreFailed) return Fail(done);
     return done;
   }
-  if (Status seated = Reseat(); !seated) return Fail(seated);
   if (on_outbox_) on_outbox_();  // carried notifications
+  if (!seat) {
+    seating_ = true;  // memory is behind the store until Seat
+    return Status::Ok();
+  }
+  return Seat();
+}
+
+Status Engine::Seat() {
+  if (Status seated = Reseat(); !seated) return Fail(seated);
+  seating_ = false;
   return Status::Ok();
 }
 

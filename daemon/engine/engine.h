@@ -400,6 +400,7 @@ class Engine {
   EngineCounters counters_;
   std::function<void(double)> on_commit_;
   Publish publish_;
+  bool seating_ = false;  // partitions adopted into the store, memory not rebuilt yet
   std::string install_id_;  // the store's (sharing: written in position records)
   std::unordered_map<std::int32_t, std::int32_t> next_ordinal_;  // by partition (sharing)
   std::unordered_map<std::int32_t, SourceOffset> positions_;     // by partition (sharing)

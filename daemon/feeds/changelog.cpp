@@ -276,9 +276,9 @@ const ChangelogCounters& Changelog::counters() const {
   return impl_->counters;
 }
 
-void Changelog::CountRestore(long series, long ms) {
+void Changelog::CountRestore(long partitions, long series, long ms) {
   impl_->counters.restored.fetch_add(series);
-  impl_->counters.restores.fetch_add(1);
+  impl_->counters.restores.fetch_add(partitions);
   impl_->counters.restore_ms.fetch_add(ms);
 }
 

@@ -73,8 +73,8 @@ class Changelog {
   // "" while every record was taken; else why not.
   std::string broken() const;
   const ChangelogCounters& counters() const;
-  // A partition restored: its series adopted in `ms` milliseconds (after reading it).
-  void CountRestore(long series, long ms);
+  // Partitions restored: their series adopted, and the time it took besides reading them.
+  void CountRestore(long partitions, long series, long ms);
   void Stop();
 
  private:

@@ -262,7 +262,7 @@ struct KafkaSource::Impl {
         const std::string topic = settings.topics[0];
         auto records = std::make_shared<ChangelogPartition>(std::move(*read));
         std::optional<Status> adopted = OnEngine<Status>([this, topic, part, records] {
-          return engine.Adopt(topic, part, records->records, records->position);
+          return engine.Adopt(topic, part, records->records, records->position, false);
         });
         if (!adopted) return false;
         if (!*adopted) {
@@ -271,10 +271,11 @@ struct KafkaSource::Impl {
           log("kafka: partition " + std::to_string(part) +
                   ": the changelog cannot be adopted: " + adopted->message(),
               "error");
+          OnEngine<Status>([this] { return engine.Seat(); });  // what was adopted before it
           return false;
         }
         changelog->CountRestore(
-            static_cast<long>(records->records.size()),
+            1, static_cast<long>(records->records.size()),
             std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - adopting).count());
         log("kafka: partition " + std::to_string(part) +
                 " restored: " + std::to_string(records->records.size()) + " series from " +
@@ -284,6 +285,18 @@ struct KafkaSource::Impl {
       }
     }
     kept.clear();
+    // one rebuild of memory for every partition adopted
+    const auto seating = Clock::now();
+    std::optional<Status> seated = OnEngine<Status>([this] { return engine.Seat(); });
+    changelog->CountRestore(
+        0, 0,
+        std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - seating).count());
+    if (!seated) return false;
+    if (!*seated) {
+      SetNotReady("restored partitions cannot be loaded: " + seated->message());
+      log("kafka: restored partitions cannot be loaded: " + seated->message(), "error");
+      return false;
+    }
     return true;
   }
   std::vector<Message> pending;

@@ -9,8 +9,16 @@ the same invented rows (`forewarden simulate`, seed 5) into a fresh `forewarden 
    process on loopback), then consumed by the service (kafka.batch_rows 5,000), until every
    partition's offset is stored.
 
-Reports rows per second of each and their ratio. The mock cluster shares the 2 cores with the
-service (a real cluster would not), so the Kafka figure is a floor.
+3. through Kafka with a changelog (kafka.changelog_topic: the instance shares its series and
+   writes every series changed after each commit), the same rows;
+4. the restore: that instance stops (SIGTERM hands its partitions back) and a fresh instance
+   with an empty store joins the group and restores every partition from the changelog, timed
+   by its forewarden_changelog_restore_seconds_total; and the changelog's size per series (the
+   newest record of each series, as a compacted topic keeps it).
+
+Reports rows per second of each and their ratios. The mock cluster shares the 2 cores with the
+service (a real cluster would not), so the Kafka figures are floors; it does not compact, so the
+restore reads every record written (SERIES x WEEKS), not one per series.
 
 usage: kafka_bench.py BUILD_DIR WORK_DIR SERIES WEEKS
 """
@@ -73,9 +81,9 @@ def metric(port, name):
     return float(m.group(1)) if m else 0.0
 
 
-def kafka_rows_per_second(binary, mock, work, rows):
-    cluster = subprocess.Popen([mock, "--brokers", "3", "--topic", "actuals:12"], stdin=subprocess.PIPE,
-                               stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+def kafka_rows_per_second(binary, mock, work, rows, changelog=False):
+    cluster = subprocess.Popen([mock, "--brokers", "3", "--topic", "actuals:12", "--topic", "changelog:12"],
+                               stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
     try:
         bootstrap = cluster.stdout.readline().split()[1]
         path = os.path.join(work, "messages.txt")
@@ -86,9 +94,9 @@ def kafka_rows_per_second(binary, mock, work, rows):
         cluster.stdin.flush()
         answer = cluster.stdout.readline()
         assert answer.startswith("ok"), answer
-        extra = ("kafka: {brokers: '%s', topics: [actuals], group: bench, batch_rows: %d, batch_ms: 100}\n"
-                 % (bootstrap, BATCH))
-        proc, port, data = serve(binary, work, "kafka", extra)
+        extra = ("kafka: {brokers: '%s', topics: [actuals], group: bench, batch_rows: %d, batch_ms: 100%s}\n"
+                 % (bootstrap, BATCH, ", changelog_topic: changelog, partitioner: crc32" if changelog else ""))
+        proc, port, data = serve(binary, work, "shared" if changelog else "kafka", extra)
         # timed from the first rows committed (the group's join is not ingest) to the last
         first = 0.0
         while True:
@@ -106,9 +114,38 @@ def kafka_rows_per_second(binary, mock, work, rows):
         stored = sum(n for (n,) in db.execute("SELECT next_offset FROM source_offsets"))
         db.close()
         assert stored == len(rows), (stored, len(rows))
+        restore = None
+        if changelog:
+            written = metric(port, "forewarden_changelog_bytes_total")
+            records = metric(port, "forewarden_changelog_records_total")
+            proc.terminate()  # hands its partitions back; what it wrote is in the changelog
+            proc.wait()
+            # the changelog as a compacted topic keeps it: the newest record of each key
+            out = os.path.join(work, "changelog.txt")
+            cluster.stdin.write("consume changelog %s\n" % out)
+            cluster.stdin.flush()
+            assert cluster.stdout.readline().startswith("ok")
+            newest = {}
+            with open(out, encoding="utf-8", errors="surrogateescape") as f:
+                for line in f:
+                    part, _, key, value = line.rstrip("\n").split("\t", 3)
+                    newest[(part, key)] = len(key) + len(value)
+            series = sum(1 for (_, k) in newest if not k.startswith("\x01"))
+            compacted = sum(newest.values())
+            # a fresh instance restores every partition
+            proc, port, data = serve(binary, work, "restore", extra)
+            while metric(port, "forewarden_changelog_restores_total") < 12:
+                if proc.poll() is not None:
+                    raise SystemExit("the service stopped")
+                time.sleep(0.05)  # polling for progress
+            restore = {"seconds": metric(port, "forewarden_changelog_restore_seconds_total"),
+                       "series": metric(port, "forewarden_changelog_restored_series_total"),
+                       "read": metric(port, "forewarden_changelog_restore_bytes_total"),
+                       "written": written, "records": records, "kept_series": series,
+                       "compacted": compacted}
         proc.terminate()
         proc.wait()
-        return (len(rows) - first_rows) / seconds, seconds, first_rows
+        return (len(rows) - first_rows) / seconds, seconds, first_rows, restore
     finally:
         cluster.stdin.write("quit\n")
         cluster.stdin.flush()
@@ -126,13 +163,24 @@ def main():
         header = f.readline()
         rows = f.readlines()
     http_rate, http_s = http_rows_per_second(binary, work, header, rows)
-    kafka_rate, kafka_s, start_s = kafka_rows_per_second(binary, mock, work, rows)
+    kafka_rate, kafka_s, start_s, _ = kafka_rows_per_second(binary, mock, work, rows)
+    shared_rate, shared_s, shared_start, restore = kafka_rows_per_second(binary, mock, work, rows, True)
     print("| path | rows | seconds | rows per second |")
     print("|---|---|---|---|")
     print("| HTTP, CSV batches of %d rows, 1 connection | %d | %.2f | %.0f |" % (BATCH, len(rows), http_s, http_rate))
     print("| Kafka, 1 message a row, 12 partitions, mock cluster | %d | %.2f | %.0f |" % (len(rows) - start_s, kafka_s, kafka_rate))
+    print("| Kafka with a changelog (sharing series) | %d | %.2f | %.0f |" % (len(rows) - shared_start, shared_s, shared_rate))
     print("\nKafka / HTTP: %.2f (Kafka timed from its first committed batch, %d rows, to the last)"
           % (kafka_rate / http_rate, start_s))
+    print("Kafka with a changelog / Kafka: %.2f" % (shared_rate / kafka_rate))
+    r = restore
+    print("\nchangelog written: %d records, %.1f MB before compression (%.0f bytes a record)"
+          % (r["records"], r["written"] / 1e6, r["written"] / max(1, r["records"])))
+    print("changelog compacted (newest record per key): %d series, %.0f bytes a series"
+          % (r["kept_series"], r["compacted"] / max(1, r["kept_series"])))
+    print("restore of 12 partitions by a fresh instance: %d series in %.2f s, %.1f MB read (every "
+          "record: the mock does not compact); %.2f s per 100,000 series"
+          % (r["series"], r["seconds"], r["read"] / 1e6, r["seconds"] / max(1, r["series"]) * 1e5))
 
 
 if __name__ == "__main__":

@@ -105,7 +105,14 @@
       headers,
       body: o.body === undefined ? undefined : JSON.stringify(o.body),
       cache: 'no-store',
+      // instances sharing series redirect to the one holding a series: said, not followed
+      redirect: 'manual',
     });
+    if (r.type === 'opaqueredirect') {
+      const err = new Error('held by another instance');
+      err.status = 307;
+      throw err;
+    }
     const text = await r.text();
     let data = null;
     try {
@@ -363,6 +370,7 @@
     }
     if (!stillCurrent(v)) return;
     banner('');
+    sharingNote(v);
     main.append(countsTable(data.counts), el('h2', { class: 'visually-hidden' }, 'Filters'), filterForm(params, policies));
     const offset = data.offset;
     const shown = data.rows.length;
@@ -843,6 +851,41 @@
       el('div', { class: 'table-wrap' }, el('table', { id: 'rows' }, el('caption', { class: 'visually-hidden' }, 'Every retained period'), el('thead', {}, head), body)));
   }
 
+  // A series another instance holds (instances sharing series through Kafka): a link to it there.
+  async function elsewhere(v, key) {
+    let info = null;
+    try {
+      info = await api('v1/instances?' + new URLSearchParams({ series: key }).toString());
+    } catch (err) {
+      info = null;
+    }
+    if (!stillCurrent(v)) return;
+    const owner = info && info.series && info.series.owner;
+    const text = el('p', { class: 'answer', role: 'status', id: 'held-elsewhere' },
+      'Another instance holds this series' + (info && info.series ? ' (partition ' + info.series.partition + ')' : '') + '. ');
+    if (owner) text.append(el('a', { href: owner + '/' + seriesHref(key) }, 'Open it on ' + owner));
+    v.main.append(el('h1', {}, key), text);
+    v.main.dataset.ready = 'series';
+  }
+
+  // Instances sharing series: which partitions this one holds, and who holds the rest.
+  async function sharingNote(v) {
+    let info;
+    try {
+      info = await api('v1/instances');
+    } catch (err) {
+      return;
+    }
+    if (!info.sharing || !stillCurrent(v)) return;
+    const note = el('p', { class: 'sub', id: 'instances' },
+      'This instance holds partitions ' + (info.held.length ? info.held.join(', ') : 'none') + ' of ' + info.partitions.length + (info.ready ? '' : ' (' + info.reason + ')') + '.');
+    for (const i of info.instances) {
+      if (i.self || !i.url) continue;
+      note.append(' ', el('a', { href: i.url + '/' }, i.url), ' holds ' + i.partitions.join(', ') + '.');
+    }
+    v.main.insertBefore(note, v.main.children[1] || null);
+  }
+
   async function showSeries(key) {
     const v = newView('attention');
     const main = v.main;
@@ -856,6 +899,7 @@
         api('v1/series/' + enc + '/forecast?horizon=' + AHEAD)]);
     } catch (err) {
       if (!stillCurrent(v)) return;
+      if (err.status === 307) return elsewhere(v, key);
       main.append(el('h1', {}, key), el('p', { class: 'answer failed', role: 'alert' }, describeError(err)));
       return;
     }
