@@ -251,11 +251,15 @@ class Engine {
   bool sharing() const { return static_cast<bool>(publish_); }
   // Engine thread: takes partition `part` of `topic` over from its changelog records (series
   // records by key and its position record, which may be absent for a partition never
-  // written): the series of `part` held here are replaced by them, the partition's offset and
-  // next series number set, and the in-memory state rebuilt. Invalid naming the series for a
-  // record that does not read (nothing is changed); store failed otherwise.
+  // written): the series of `part` held here are replaced by them in the store, the
+  // partition's offset and next series number set, and (with `seat`) memory rebuilt. Without
+  // `seat`, batches, re-levels, alert actions and housekeeping wait (busy) until Seat: several
+  // partitions are adopted for one rebuild. Invalid naming the series for a record that does
+  // not read (nothing is changed); store failed otherwise.
   Status Adopt(const std::string& topic, std::int32_t part, const std::vector<std::string>& records,
-               const std::string& position);
+               const std::string& position, bool seat = true);
+  // Engine thread: rebuilds memory from the store after Adopt without `seat`.
+  Status Seat();
   // Engine thread: lets partitions go: their series leave the store and memory.
   Status Release(const std::vector<std::int32_t>& parts);
   // Engine thread: the partitions whose series are held here.
@@ -400,7 +404,7 @@ class Engine {
   EngineCounters counters_;
   std::function<void(double)> on_commit_;
   Publish publish_;
-  bool seating_ = false;  // partitions adopted into the store, memory not rebuilt yet
+  bool seating_ = false;    // partitions adopted into the store, memory not rebuilt yet
   std::string install_id_;  // the store's (sharing: written in position records)
   std::unordered_map<std::int32_t, std::int32_t> next_ordinal_;  // by partition (sharing)
   std::unordered_map<std::int32_t, SourceOffset> positions_;     // by partition (sharing)

@@ -210,6 +210,16 @@ def test_sharing_refuses_http_actuals_and_reports_itself():
             info = instances(srv)
             assert info["sharing"] and info["ready"], info
             assert all(p["owner"] == srv.url for p in info["partitions"]), info
+            status, where, _ = srv.request("GET", "/v1/instances?series=north%2Fa")
+            assert where["series"]["here"] and where["series"]["owner"] == srv.url, where
+            # the changelog's metrics are exported and in the README's table
+            import re
+            _, text, _ = srv.request("GET", "/metrics")
+            names = set(re.findall(r"^(forewarden_changelog_\w+)", text, re.M))
+            with open(os.path.join(os.path.dirname(__file__), "..", "..", "README.md")) as f:
+                readme = f.read()
+            assert len(names) == 7 and all("`%s`" % n in readme for n in names), names
+            assert metric(srv, "forewarden_changelog_restores_total") == 12
         finally:
             srv.stop()
 

@@ -226,7 +226,7 @@ def test_a_kafka_feed_applies_as_replay_does_and_bad_rows_go_to_the_dead_letter_
             with open(os.path.join(os.path.dirname(__file__), "..", "..", "README.md")) as f:
                 readme = f.read()
             kafka_names = set(re.findall(r"^(forewarden_kafka_\w+)", text, re.M))
-            assert len(kafka_names) == 8 and all("`%s`" % n in readme for n in kafka_names), kafka_names
+            assert len(kafka_names) == 9 and all("`%s`" % n in readme for n in kafka_names), kafka_names
             assert_equals_replay(srv, keys, good_csv)
             letters = dead_letters(cluster)
             assert sorted(d["message"] for d in letters) == sorted(v for _, v, _ in bad), letters
