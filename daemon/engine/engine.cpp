@@ -1317,6 +1317,15 @@ void Engine::PublishChanges(std::vector<std::size_t> changed,
   std::vector<ChangeRecord> out;
   out.reserve(changed.size() + moved.size());
   std::vector<std::int32_t> parts(moved);
+  // one read transaction for every export: a lock taken once, not per statement
+  if (Status begun = store_.Begin(); !begun) {
+    Fail(begun.message());
+    return;
+  }
+  struct EndRead {
+    Store& store;
+    ~EndRead() { store.Rollback(); }
+  } end_read{store_};
   for (std::size_t i : changed) {
     if (i >= series_.size()) continue;
     const Series& s = series_[i];

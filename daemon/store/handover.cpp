@@ -3,6 +3,7 @@
 #include <sqlite3.h>
 
 #include <algorithm>
+#include <charconv>
 #include <cmath>
 #include <set>
 
@@ -148,36 +149,52 @@ Status Handover::Adopt(const std::string& topic, std::int32_t part,
 }
 
 Status Handover::Export(std::int64_t id, const SeriesHead& head, std::string& text) {
-  json out = {{"key", head.key},
-              {"policy", head.policy},
-              {"labels", head.labels},
-              {"part", head.place.part},
-              {"ordinal", head.place.ordinal},
-              {"episodes", head.place.episodes},
-              {"state", HexOf(head.state)},
-              {"through", head.through}};
+  // Written by hand but for the alert rows: a record a series a commit, so it is the cost of
+  // sharing (the same JSON nlohmann reads back at a restore).
+  const auto str = [](std::string_view v) {
+    return json(v).dump(-1, ' ', false, json::error_handler_t::replace);
+  };
+  const auto num = [](std::string& out, double v) {
+    char buf[32];
+    const auto r = std::to_chars(buf, buf + sizeof buf, v);  // shortest exact round trip
+    out.append(buf, r.ptr);
+  };
+  text.clear();
+  text.reserve(1024);
+  text += "{\"key\":" + str(head.key) + ",\"policy\":" + str(head.policy) +
+          ",\"labels\":" + str(head.labels) + ",\"part\":" + std::to_string(head.place.part) +
+          ",\"ordinal\":" + std::to_string(head.place.ordinal) +
+          ",\"episodes\":" + std::to_string(head.place.episodes) + ",\"state\":\"" +
+          HexOf(head.state) + "\",\"through\":" + std::to_string(head.through) +
+          ",\"checkpoint\":\"";
   checkpoint_.Bind(1, id);
   if (!checkpoint_.Step()) return Failed("checkpoint");
-  out["checkpoint"] = checkpoint_.Row() ? HexOf(checkpoint_.Blob(0)) : std::string();
+  if (checkpoint_.Row()) text += HexOf(checkpoint_.Blob(0));
   checkpoint_.Reset();
-  json actuals = json::array();
+  text += "\",\"actuals\":[";
   actuals_.Bind(1, id);
-  for (;;) {
+  for (bool first = true;; first = false) {
     if (!actuals_.Step()) return Failed("actuals");
     if (!actuals_.Row()) break;
-    actuals.push_back(json::array({actuals_.Int(0), actuals_.Double(1)}));
+    text += first ? "[" : ",[";
+    text += std::to_string(actuals_.Int(0));
+    text += ',';
+    num(text, actuals_.Double(1));
+    text += ']';
   }
   actuals_.Reset();
-  out["actuals"] = std::move(actuals);
-  json adjustments = json::array();
+  text += "],\"adjustments\":[";
   adjustments_.Bind(1, id);
-  for (;;) {
+  for (bool first = true;; first = false) {
     if (!adjustments_.Step()) return Failed("adjustments");
     if (!adjustments_.Row()) break;
-    adjustments.push_back(json::array({adjustments_.Int(0), adjustments_.Double(1)}));
+    text += first ? "[" : ",[";
+    text += std::to_string(adjustments_.Int(0));
+    text += ',';
+    num(text, adjustments_.Double(1));
+    text += ']';
   }
   adjustments_.Reset();
-  out["adjustments"] = std::move(adjustments);
   json alerts = json::array();
   std::set<std::int64_t> have;
   alerts_.Bind(1, id);
@@ -207,9 +224,8 @@ Status Handover::Export(std::int64_t id, const SeriesHead& head, std::string& te
     if (alert_by_id_.Row()) alerts.push_back(RowObject(alert_by_id_, {"series_id", "group_id"}));
     alert_by_id_.Reset();
   }
-  out["alerts"] = std::move(alerts);
-  out["events"] = std::move(events);
-  text = out.dump(-1, ' ', false, json::error_handler_t::replace);
+  text += "],\"alerts\":" + alerts.dump(-1, ' ', false, json::error_handler_t::replace) +
+          ",\"events\":" + events.dump(-1, ' ', false, json::error_handler_t::replace) + "}";
   return Status::Ok();
 }
 
