@@ -101,7 +101,9 @@ struct Changelog::Impl {
                                    {"enable.auto.commit", "false"},
                                    {"enable.auto.offset.store", "false"},
                                    {"auto.offset.reset", "earliest"},
-                                   {"enable.partition.eof", "true"}},
+                                   {"enable.partition.eof", "true"},
+                                   // a restore reads to the end it saw: no waiting for more
+                                   {"fetch.wait.max.ms", "10"}},
                                   "changelog reader", error);
     if (!rconf) return Status::Invalid(error);
     reader.reset(rd_kafka_new(RD_KAFKA_CONSUMER, rconf, why, sizeof why));

@@ -250,6 +250,7 @@ struct KafkaSource::Impl {
       for (auto backoff = std::chrono::milliseconds(100);;
            backoff = std::min(backoff * 2, std::chrono::milliseconds(5000))) {
         if (stop.load()) return false;
+        const auto reading = Clock::now();
         Result<ChangelogPartition> read = changelog->Read(part, stop);
         if (!read) {
           if (stop.load()) return false;
@@ -274,12 +275,16 @@ struct KafkaSource::Impl {
           OnEngine<Status>([this] { return engine.Seat(); });  // what was adopted before it
           return false;
         }
-        changelog->CountRestore(
-            1, static_cast<long>(records->records.size()),
-            std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - adopting).count());
+        const auto ms = [](Clock::duration d) {
+          return std::chrono::duration_cast<std::chrono::milliseconds>(d).count();
+        };
+        changelog->CountRestore(1, static_cast<long>(records->records.size()),
+                                ms(Clock::now() - adopting));
         log("kafka: partition " + std::to_string(part) +
                 " restored: " + std::to_string(records->records.size()) + " series from " +
-                std::to_string(records->read) + " changelog records",
+                std::to_string(records->read) + " changelog records (read in " +
+                std::to_string(ms(adopting - reading)) + " ms, stored in " +
+                std::to_string(ms(Clock::now() - adopting)) + " ms)",
             "info");
         break;
       }
@@ -288,9 +293,12 @@ struct KafkaSource::Impl {
     // one rebuild of memory for every partition adopted
     const auto seating = Clock::now();
     std::optional<Status> seated = OnEngine<Status>([this] { return engine.Seat(); });
-    changelog->CountRestore(
-        0, 0,
+    const long seat_ms = static_cast<long>(
         std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - seating).count());
+    changelog->CountRestore(0, 0, seat_ms);
+    log("kafka: " + std::to_string(want.size()) + " partition(s) held, loaded in " +
+            std::to_string(seat_ms) + " ms",
+        "info");
     if (!seated) return false;
     if (!*seated) {
       SetNotReady("restored partitions cannot be loaded: " + seated->message());

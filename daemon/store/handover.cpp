@@ -107,8 +107,17 @@ Status Handover::Open(Db& db) {
   alerts_ = db.Prepare("SELECT * FROM alerts WHERE series_id = ?1 AND state != 'resolved'");
   alert_by_id_ = db.Prepare("SELECT * FROM alerts WHERE id = ?1");
   series_by_key_ = db.Prepare("SELECT id FROM series WHERE key = ?1");
+  insert_series_ = db.Prepare(
+      "INSERT INTO series(key, policy, labels, state, part, ordinal, episodes) "
+      "VALUES(?1, ?2, ?3, ?4, ?5, ?6, ?7)");
+  insert_checkpoint_ = db.Prepare("INSERT INTO checkpoints(series_id, state) VALUES(?1, ?2)");
+  insert_actual_ =
+      db.Prepare("INSERT OR REPLACE INTO actuals(series_id, period, value) VALUES(?1, ?2, ?3)");
+  insert_adjustment_ =
+      db.Prepare("INSERT INTO adjustments(series_id, period, level) VALUES(?1, ?2, ?3)");
   for (const Stmt* s :
-       {&checkpoint_, &actuals_, &adjustments_, &events_, &alerts_, &alert_by_id_, &series_by_key_})
+       {&checkpoint_, &actuals_, &adjustments_, &events_, &alerts_, &alert_by_id_, &series_by_key_,
+        &insert_series_, &insert_checkpoint_, &insert_actual_, &insert_adjustment_})
     if (!s->valid()) return Failed("prepare");
   alert_columns_ = ColumnsOf(db, "alerts");
   event_columns_ = ColumnsOf(db, "alert_events");
@@ -306,10 +315,7 @@ Status Handover::Import(const json& r, std::int32_t part, const std::vector<std:
     if (existing)
       if (Status dropped = Drop("id = ?1", old); !dropped) return dropped;
     field = "series";
-    Stmt ins = db_->Prepare(
-        "INSERT INTO series(key, policy, labels, state, part, ordinal, episodes) "
-        "VALUES(?1, ?2, ?3, ?4, ?5, ?6, ?7)");
-    if (!ins.valid()) return Failed("series");
+    Stmt& ins = insert_series_;
     ins.Bind(1, key)
         .Bind(2, r.at("policy").get_ref<const std::string&>())
         .Bind(3, r.at("labels").get_ref<const std::string&>())
@@ -319,13 +325,9 @@ Status Handover::Import(const json& r, std::int32_t part, const std::vector<std:
         .Bind(7, r.at("episodes").get<std::int64_t>());
     if (!ins.Run()) return Failed("series");
     const std::int64_t id = db_->LastInsertId();
-    Stmt cp = db_->Prepare("INSERT INTO checkpoints(series_id, state) VALUES(?1, ?2)");
-    if (!cp.valid() || !cp.Bind(1, id).BindBlob(2, checkpoint).Run()) return Failed("checkpoint");
+    if (!insert_checkpoint_.Bind(1, id).BindBlob(2, checkpoint).Run()) return Failed("checkpoint");
     field = "actuals";
-    Stmt act = db_->Prepare(
-        "INSERT OR REPLACE INTO actuals(series_id, period, value) "
-        "VALUES(?1, ?2, ?3)");
-    if (!act.valid()) return Failed("actuals");
+    Stmt& act = insert_actual_;
     for (const json& a : r.at("actuals")) {
       const double v = a.at(1).get<double>();
       if (!std::isfinite(v)) return Status::Invalid("series '" + key + "': actuals: not finite");
@@ -333,8 +335,7 @@ Status Handover::Import(const json& r, std::int32_t part, const std::vector<std:
         return Failed("actuals");
     }
     field = "adjustments";
-    Stmt adj = db_->Prepare("INSERT INTO adjustments(series_id, period, level) VALUES(?1, ?2, ?3)");
-    if (!adj.valid()) return Failed("adjustments");
+    Stmt& adj = insert_adjustment_;
     for (const json& a : r.at("adjustments"))
       if (!adj.Bind(1, id)
                .Bind(2, a.at(0).get<std::int64_t>())

@@ -71,6 +71,7 @@ class Handover {
   Status Failed(const std::string& what) const;
   Db* db_ = nullptr;
   Stmt checkpoint_, actuals_, adjustments_, alerts_, events_, alert_by_id_, series_by_key_;
+  Stmt insert_series_, insert_checkpoint_, insert_actual_, insert_adjustment_;
   std::vector<std::string> alert_columns_, event_columns_;
 };
 

@@ -2,7 +2,8 @@
 """Several instances sharing series through Kafka (kafka.changelog_topic): real `forewarden
 serve` processes in one consumer group on librdkafka's mock cluster (3 brokers, a 12-partition
 source topic and a 12-partition changelog; tests/kafka/kafka_mock.cpp). One is killed with
-kill -9 mid-stream and a fourth joins later; at the end every series equals a single-instance
+kill -9 mid-stream, a broker stops answering for a while, and a fourth instance joins later;
+at the end every series equals a single-instance
 replay of the same rows, no actual is missing or applied twice, the alert events sent out
 (a kafka sink) hold every episode replay finds once under one id, and a request for a series
 held elsewhere is redirected to its owner."""
@@ -130,6 +131,12 @@ def test_three_instances_a_kill9_and_a_fourth_share_the_series_as_one_replay_wou
             victim.kill9()
             cluster.produce(messages[half:])
             alive = [servers[0], servers[2]]
+            # a broker stops answering while the survivors take the partitions over
+            errors = sum(metric(s, "forewarden_kafka_errors_total") for s in alive)
+            cluster.command("down 2")
+            wait_for("the broker's loss noticed", lambda: sum(
+                metric(s, "forewarden_kafka_errors_total") for s in alive) > errors)
+            cluster.command("up 2")
             wait_for("the survivors holding all 12 partitions", lambda: all_ready(alive) and sorted(
                 sum((instances(s)["held"] for s in alive), [])) == list(range(12)))
             fourth = KafkaServer(settings(cluster.bootstrap))

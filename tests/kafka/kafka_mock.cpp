@@ -7,6 +7,7 @@
 //     produce TOPIC FILE   each line of FILE is KEY<TAB>VALUE (in VALUE, \n stands for a line
 //                          break and \\ for a backslash); produced in order, keyed (so a key
 //                          always lands in one partition); "ok N" once acknowledged
+//     produce-to TOPIC FILE   the same, each line PARTITION<TAB>KEY<TAB>VALUE: to that partition
 //     consume TOPIC FILE   every message of TOPIC, all partitions, from the beginning to the
 //                          end, written as PARTITION<TAB>OFFSET<TAB>KEY<TAB>VALUE (escaped as
 //                          for produce); "ok N"
@@ -48,7 +49,7 @@ rd_kafka_t* Client(rd_kafka_type_t type, const std::string& bootstrap, bool quie
 }
 
 long Produce(rd_kafka_t* producer, const std::string& topic, const std::string& file,
-             std::string& error) {
+             std::string& error, bool to_partition = false) {
   std::ifstream in(file);
   if (!in) {
     error = "cannot read " + file;
@@ -57,6 +58,12 @@ long Produce(rd_kafka_t* producer, const std::string& topic, const std::string& 
   long n = 0;
   std::string line;
   while (std::getline(in, line)) {
+    std::int32_t partition = RD_KAFKA_PARTITION_UA;
+    if (to_partition) {  // PARTITION<TAB>KEY<TAB>VALUE
+      const std::size_t first = line.find('\t');
+      partition = std::atoi(line.substr(0, first).c_str());
+      line = first == std::string::npos ? "" : line.substr(first + 1);
+    }
     const std::size_t tab = line.find('\t');
     const std::string key = tab == std::string::npos ? "" : line.substr(0, tab);
     const std::string escaped = tab == std::string::npos ? line : line.substr(tab + 1);
@@ -70,10 +77,11 @@ long Produce(rd_kafka_t* producer, const std::string& topic, const std::string& 
       }
     }
     for (;;) {
-      const rd_kafka_resp_err_t err = rd_kafka_producev(
-          producer, RD_KAFKA_V_TOPIC(topic.c_str()), RD_KAFKA_V_KEY(key.data(), key.size()),
-          RD_KAFKA_V_VALUE(const_cast<char*>(value.data()), value.size()),
-          RD_KAFKA_V_MSGFLAGS(RD_KAFKA_MSG_F_COPY), RD_KAFKA_V_END);
+      const rd_kafka_resp_err_t err =
+          rd_kafka_producev(producer, RD_KAFKA_V_TOPIC(topic.c_str()),
+                            RD_KAFKA_V_PARTITION(partition), RD_KAFKA_V_KEY(key.data(), key.size()),
+                            RD_KAFKA_V_VALUE(const_cast<char*>(value.data()), value.size()),
+                            RD_KAFKA_V_MSGFLAGS(RD_KAFKA_MSG_F_COPY), RD_KAFKA_V_END);
       if (err == RD_KAFKA_RESP_ERR_NO_ERROR) break;
       if (err != RD_KAFKA_RESP_ERR__QUEUE_FULL) {
         error = rd_kafka_err2str(err);
@@ -185,8 +193,8 @@ int main(int argc, char** argv) {
     words >> cmd >> a >> b;
     std::string error;
     if (cmd == "quit") break;
-    if (cmd == "produce") {
-      const long n = Produce(producer, a, b, error);
+    if (cmd == "produce" || cmd == "produce-to") {
+      const long n = Produce(producer, a, b, error, cmd == "produce-to");
       std::cout << (n < 0 ? "error " + error : "ok " + std::to_string(n)) << std::endl;
     } else if (cmd == "consume") {
       const auto t = topics.find(a);
