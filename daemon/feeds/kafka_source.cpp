@@ -217,8 +217,8 @@ struct KafkaSource::Impl {
   }
 
   // Takes over the partitions of `parts` (sharing): releases the partitions held here that are
-  // not among them, restores the rest from the changelog unless what is held is current, and
-  // announces ownership. False when stopping first.
+  // neither among them nor still assigned, restores `parts` from the changelog unless what is
+  // held is current, and announces ownership. False when stopping first.
   bool TakeOver(rd_kafka_topic_partition_list_t* parts) {
     std::vector<std::int32_t> want;
     for (int i = 0; i < parts->cnt; ++i) want.push_back(parts->elems[i].partition);
@@ -232,9 +232,16 @@ struct KafkaSource::Impl {
     std::optional<std::vector<std::int32_t>> held =
         OnEngine<std::vector<std::int32_t>>([this] { return engine.HeldPartitions(); });
     if (!held) return false;
+    // keep what stays assigned (cooperative rebalancing assigns only the partitions added)
+    std::vector<std::int32_t> keep = want;
+    {
+      std::lock_guard lock(share_mu);
+      keep.insert(keep.end(), held_parts.begin(), held_parts.end());
+    }
+    std::sort(keep.begin(), keep.end());
     std::vector<std::int32_t> drop;
     for (std::int32_t h : *held)
-      if (!std::binary_search(want.begin(), want.end(), h)) drop.push_back(h);
+      if (!std::binary_search(keep.begin(), keep.end(), h)) drop.push_back(h);
     if (!drop.empty()) {
       std::optional<Status> released =
           OnEngine<Status>([this, drop] { return engine.Release(drop); });

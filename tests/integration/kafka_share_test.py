@@ -40,7 +40,7 @@ class Cluster(kafka_test.Cluster):
         self.n = 0
 
 
-def settings(bootstrap):
+def settings(bootstrap, assignment=""):
     return """
 alerts:
   sinks: [{name: stream, type: kafka, topic: %s, brokers: '%s', timeout_seconds: 5}]
@@ -68,8 +68,9 @@ kafka:
   batch_rows: 100
   batch_ms: 50
   properties: {topic.metadata.refresh.interval.ms: 1000, session.timeout.ms: 6000,
-               heartbeat.interval.ms: 500}
-""" % (EVENTS, bootstrap, bootstrap, TOPIC, DEAD, CHANGELOG)
+               heartbeat.interval.ms: 500%s}
+""" % (EVENTS, bootstrap, bootstrap, TOPIC, DEAD, CHANGELOG,
+       ", partition.assignment.strategy: " + assignment if assignment else "")
 
 
 def positions(cluster):
@@ -115,12 +116,12 @@ def series_path(key):
     return "/v1/series/" + urllib.parse.quote(key, safe="")
 
 
-def test_three_instances_a_kill9_and_a_fourth_share_the_series_as_one_replay_would():
+def test_three_instances_a_kill9_and_a_fourth_share_the_series_as_one_replay_would(assignment=""):
     with Cluster() as cluster:
         keys, messages, bad, good_csv = feed(series=60, weeks=30, seed=11)
         half = len(messages) // 2
         cluster.produce(messages[:half])
-        servers = [KafkaServer(settings(cluster.bootstrap)) for _ in range(3)]
+        servers = [KafkaServer(settings(cluster.bootstrap, assignment)) for _ in range(3)]
         try:
             wait_for("three instances holding all 12 partitions", lambda: all_ready(servers) and sorted(
                 sum((instances(s)["held"] for s in servers), [])) == list(range(12)))
@@ -139,7 +140,7 @@ def test_three_instances_a_kill9_and_a_fourth_share_the_series_as_one_replay_wou
             cluster.command("up 2")
             wait_for("the survivors holding all 12 partitions", lambda: all_ready(alive) and sorted(
                 sum((instances(s)["held"] for s in alive), [])) == list(range(12)))
-            fourth = KafkaServer(settings(cluster.bootstrap))
+            fourth = KafkaServer(settings(cluster.bootstrap, assignment))
             alive.append(fourth)
             wait_for("three instances again holding all 12", lambda: all_ready(alive) and sorted(
                 sum((instances(s)["held"] for s in alive), [])) == list(range(12)) and
@@ -207,6 +208,12 @@ def test_three_instances_a_kill9_and_a_fourth_share_the_series_as_one_replay_wou
                     s.stop()
 
 
+def test_the_same_with_cooperative_rebalancing():
+    """Cooperative-sticky assignment moves only the partitions that change owner: the same
+    ending, with partitions assigned and revoked a few at a time."""
+    test_three_instances_a_kill9_and_a_fourth_share_the_series_as_one_replay_would("cooperative-sticky")
+
+
 def test_sharing_refuses_http_actuals_and_reports_itself():
     with Cluster() as cluster:
         srv = KafkaServer(settings(cluster.bootstrap))
@@ -246,6 +253,7 @@ def test_sharing_settings_that_cannot_work_are_refused():
 if __name__ == "__main__":
     sys.exit(run([
         test_three_instances_a_kill9_and_a_fourth_share_the_series_as_one_replay_would,
+        test_the_same_with_cooperative_rebalancing,
         test_sharing_refuses_http_actuals_and_reports_itself,
         test_sharing_settings_that_cannot_work_are_refused,
     ]))
