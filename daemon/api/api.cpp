@@ -615,6 +615,8 @@ bool Api::Redirected(Call& call) {
   const std::vector<std::int32_t> held = sharing_->held();
   if (std::binary_search(held.begin(), held.end(), part)) return false;
   const std::vector<std::string> owners = sharing_->owners();
+  // an id beyond the topic's partitions names no alert: the handler answers it (404)
+  if (part >= static_cast<std::int32_t>(owners.size())) return false;
   const std::string owner =
       part < static_cast<std::int32_t>(owners.size()) ? owners[static_cast<std::size_t>(part)] : "";
   if (owner.empty() || owner == sharing_->self()) {
