@@ -183,6 +183,7 @@ struct KafkaSource::Impl {
       if (!fresh) it->second = std::min(it->second, m.offset);
     }
     std::vector<SourceOffset> at;
+    at.reserve(first.size());
     for (const auto& [tp, offset] : first) at.push_back({tp.first, tp.second, offset});
     for (auto backoff = std::chrono::milliseconds(50);;
          backoff = std::min(backoff * 2, std::chrono::milliseconds(2000))) {
@@ -221,6 +222,7 @@ struct KafkaSource::Impl {
   // held is current, and announces ownership. False when stopping first.
   bool TakeOver(rd_kafka_topic_partition_list_t* parts) {
     std::vector<std::int32_t> want;
+    want.reserve(static_cast<std::size_t>(parts->cnt));
     for (int i = 0; i < parts->cnt; ++i) want.push_back(parts->elems[i].partition);
     std::sort(want.begin(), want.end());
     SetNotReady("restoring partitions " + PartList(want) + " from the changelog");
@@ -714,6 +716,7 @@ struct KafkaSource::Impl {
       rows.clear();
       const bool drained = changelog->Drain(stop);
       std::vector<std::int32_t> gone;
+      gone.reserve(static_cast<std::size_t>(parts->cnt));
       for (int i = 0; i < parts->cnt; ++i) gone.push_back(parts->elems[i].partition);
       if (cooperative || !applied || !drained) {
         kept.clear();
@@ -761,6 +764,7 @@ struct KafkaSource::Impl {
       if (sharing()) {
         // ownership announced to the group (the partition map other instances redirect by)
         std::vector<SourceOffset> at;
+        at.reserve(static_cast<std::size_t>(parts->cnt));
         for (int i = 0; i < parts->cnt; ++i)
           at.push_back({parts->elems[i].topic, parts->elems[i].partition,
                         std::max<std::int64_t>(0, parts->elems[i].offset)});
