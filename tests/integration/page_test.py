@@ -552,8 +552,51 @@ def test_tune_report_draws_every_candidate_of_every_policy():
         b.close()
 
 
+def test_instances_sharing_series_say_who_holds_what_and_link_a_series_held_elsewhere():
+    """Two instances sharing series through Kafka (librdkafka's mock cluster): the list says
+    which partitions this instance holds and links the other; a series the other holds shows a
+    link to it there, and that link opens it."""
+    import kafka_share_test as share
+    from kafka_test import feed as kafka_feed, wait_for
+    with share.Cluster() as cluster:
+        keys, messages, _, _ = kafka_feed(series=24, weeks=12, seed=3)
+        cluster.produce(messages)
+        a = share.KafkaServer(share.settings(cluster.bootstrap))
+        other = share.KafkaServer(share.settings(cluster.bootstrap))
+        b = Browser()
+        try:
+            both = [a, other]
+            urls = sorted(s.url for s in both)
+            wait_for("two instances holding all 12 partitions, each known to the other", lambda:
+                     share.all_ready(both) and all(sorted({p["owner"] for p in share.instances(s)["partitions"]}) == urls
+                                                   for s in both))
+            ends = share.ends(cluster)
+            wait_for("every message applied", lambda: share.positions(cluster) == ends)
+            held_there = [k for k in keys if not a.request("GET", "/v1/instances?series=" + series_path(k))[1]["series"]["here"]]
+            assert held_there, "the other instance holds none of the series"
+            key = held_there[0]
+            b.open(a.url + "/#/", "attention")
+            note = b.wait(lambda d: d.find_element(By.ID, "instances"), "the instances note")
+            assert "holds partitions" in note.text and other.url in note.text, note.text
+            b.open(a.url + "/#/series/" + series_path(key), "series")
+            link = b.one("#held-elsewhere a")
+            assert link.get_attribute("href").startswith(other.url + "/#/series/"), link.get_attribute("href")
+            link.click()
+            b.wait(lambda d: d.current_url.startswith(other.url), "the other instance's page")
+            b.wait_ready("series")
+            assert b.one("#series-key").text == key
+            b.shot("instances-sharing")
+        finally:
+            try:
+                b.close()
+            finally:
+                a.stop()
+                other.stop()
+
+
 if __name__ == "__main__":
-    sys.exit(run([test_attention_list_matches_the_api_and_the_keyboard_opens_a_series,
+    sys.exit(run([test_instances_sharing_series_say_who_holds_what_and_link_a_series_held_elsewhere,
+                  test_attention_list_matches_the_api_and_the_keyboard_opens_a_series,
                   test_series_view_shows_both_charts_the_table_and_its_actions_change_the_api,
                   test_a_hostile_key_shows_as_text_and_no_script_runs,
                   test_with_tokens_an_action_without_one_is_refused_and_the_page_says_so,
