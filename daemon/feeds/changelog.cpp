@@ -25,6 +25,44 @@ constexpr const char* kThrough = "through";
 
 }  // namespace
 
+void ChangelogFold::Series(std::string key, std::string value, std::int64_t through) {
+  if (through <= position_next_) {
+    pending_.erase(key);
+    committed_[std::move(key)] = std::move(value);
+  } else {
+    pending_[std::move(key)] = {std::move(value), through};
+  }
+}
+
+void ChangelogFold::Position(std::string value) {
+  const auto p = nlohmann::json::parse(value, nullptr, false);
+  const nlohmann::json next = p.is_object() ? p.value("next", nlohmann::json()) : nlohmann::json();
+  position_next_ = next.is_number_integer() ? next.get<std::int64_t>() : 0;
+  position_ = std::move(value);
+  for (auto it = pending_.begin(); it != pending_.end();) {
+    if (it->second.second <= position_next_) {
+      committed_[it->first] = std::move(it->second.first);
+      it = pending_.erase(it);
+    } else {
+      ++it;
+    }
+  }
+}
+
+void ChangelogFold::Tombstone(const std::string& key) {
+  committed_.erase(key);
+  pending_.erase(key);
+}
+
+void ChangelogFold::Finish(ChangelogPartition& out) {
+  out.records.reserve(committed_.size());
+  for (auto& [key, value] : committed_) out.records.push_back(std::move(value));
+  out.position = std::move(position_);
+  out.left_out = static_cast<long>(pending_.size());
+  committed_.clear();
+  pending_.clear();
+}
+
 struct Changelog::Impl {
   config::Kafka settings;
   Log log;
@@ -181,8 +219,7 @@ struct Changelog::Impl {
       return Status::Io("changelog " + topic + " partition " + std::to_string(part) + ": " +
                         rd_kafka_err2str(wm));
     ChangelogPartition out;
-    std::unordered_map<std::string, std::pair<std::string, std::int64_t>> newest;
-    std::int64_t position_next = 0;
+    ChangelogFold fold;
     if (high > low) {
       rd_kafka_topic_partition_list_t* list = rd_kafka_topic_partition_list_new(1);
       rd_kafka_topic_partition_list_add(list, topic.c_str(), part)->offset = low;
@@ -215,9 +252,7 @@ struct Changelog::Impl {
         std::string key(static_cast<const char*>(m->key), m->key_len);
         std::string value(static_cast<const char*>(m->payload), m->len);
         if (key == kPositionKey) {
-          const auto p = nlohmann::json::parse(value, nullptr, false);
-          position_next = p.is_object() ? p.value("next", std::int64_t{0}) : 0;
-          out.position = std::move(value);
+          fold.Position(std::move(value));
         } else if (m->payload) {
           std::int64_t through = 0;
           rd_kafka_headers_t* headers = nullptr;
@@ -227,17 +262,15 @@ struct Changelog::Impl {
               rd_kafka_header_get_last(headers, kThrough, &h, &hlen) == RD_KAFKA_RESP_ERR_NO_ERROR)
             through =
                 std::strtoll(std::string(static_cast<const char*>(h), hlen).c_str(), nullptr, 10);
-          newest[std::move(key)] = {std::move(value), through};
+          fold.Series(std::move(key), std::move(value), through);
         } else {
-          newest.erase(key);  // a tombstone
+          fold.Tombstone(key);
         }
         rd_kafka_message_destroy(m);
       }
       rd_kafka_assign(reader.get(), nullptr);
     }
-    out.records.reserve(newest.size());
-    for (auto& [key, value] : newest)
-      if (value.second <= position_next) out.records.push_back(std::move(value.first));
+    fold.Finish(out);
     counters.restore_bytes.fetch_add(out.bytes);
     counters.restore_ms.fetch_add(
         static_cast<long>(std::chrono::duration_cast<std::chrono::milliseconds>(

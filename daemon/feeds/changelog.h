@@ -9,10 +9,11 @@
 // topic is compacted, so it keeps the newest record of every series.
 //
 // When a partition is assigned, the new owner reads its changelog partition from the beginning
-// to the end it had when the reading began, keeps the newest record per key, drops series
-// records written after the newest position (a commit the writer did not finish publishing:
-// header "through", the partition's next offset at that commit, beyond the position's), and
-// adopts the rest (Engine::Adopt) before it consumes the partition from the position's offset.
+// to the end it had when the reading began and keeps, per series, the newest record that a
+// later position covers (header "through", the partition's next offset at the record's commit,
+// at most the position's "next"): a record of a commit whose writer died before publishing its
+// position is left out, and the series keeps its record before it. It adopts them
+// (Engine::Adopt) before it consumes the partition from the newest position's offset.
 //
 // Records are produced by an idempotent producer that retries without limit, in commit order
 // (the engine thread produces them), so that a partition's records never arrive out of order or
@@ -26,6 +27,8 @@
 #include <memory>
 #include <mutex>
 #include <string>
+#include <unordered_map>
+#include <utility>
 #include <vector>
 
 #include "config/settings.h"
@@ -50,6 +53,27 @@ struct ChangelogPartition {
   std::string position;              // "" when the partition was never written
   long read = 0;                     // records read
   long bytes = 0;                    // key and value bytes read
+  long left_out = 0;                 // series records no position covers (an unfinished commit)
+};
+
+// The fold a restore makes of a partition read in order: per series the newest record that a
+// position read after it covers (its "through" at most the position's "next"), and one newer
+// still that none covers yet (a commit whose writer may have died before its position); a
+// position promotes those it covers; those still uncovered at the end are left out, so their
+// series keep the record before. Pure; tested on its own.
+class ChangelogFold {
+ public:
+  void Series(std::string key, std::string value, std::int64_t through);
+  void Position(std::string value);
+  void Tombstone(const std::string& key);
+  // The records kept, the newest position and how many were left out.
+  void Finish(ChangelogPartition& out);
+
+ private:
+  std::unordered_map<std::string, std::string> committed_;
+  std::unordered_map<std::string, std::pair<std::string, std::int64_t>> pending_;
+  std::string position_;
+  std::int64_t position_next_ = 0;
 };
 
 class Changelog {

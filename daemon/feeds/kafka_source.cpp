@@ -291,8 +291,11 @@ struct KafkaSource::Impl {
                                 ms(Clock::now() - adopting));
         log("kafka: partition " + std::to_string(part) +
                 " restored: " + std::to_string(records->records.size()) + " series from " +
-                std::to_string(records->read) + " changelog records (read in " +
-                std::to_string(ms(adopting - reading)) + " ms, stored in " +
+                std::to_string(records->read) + " changelog records" +
+                (records->left_out ? " (" + std::to_string(records->left_out) +
+                                         " of a commit never finished left out)"
+                                   : std::string()) +
+                " (read in " + std::to_string(ms(adopting - reading)) + " ms, stored in " +
                 std::to_string(ms(Clock::now() - adopting)) + " ms)",
             "info");
         break;
