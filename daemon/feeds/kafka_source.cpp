@@ -127,9 +127,16 @@ struct KafkaSource::Impl {
       std::vector<std::string> now(static_cast<std::size_t>(n));
       for (int i = 0; i < list->cnt; ++i) {
         const rd_kafka_topic_partition_t& e = list->elems[i];
-        if (e.metadata && e.partition >= 0 && e.partition < n)
-          now[static_cast<std::size_t>(e.partition)] =
-              std::string(static_cast<const char*>(e.metadata), e.metadata_size);
+        if (!e.metadata || e.partition < 0 || e.partition >= n) continue;
+        std::string url(static_cast<const char*>(e.metadata), e.metadata_size);
+        // only what an instance commits: an http(s) URL, no spaces or control characters (it
+        // becomes a Location header)
+        const bool plain = std::all_of(url.begin(), url.end(), [](char c) {
+          return static_cast<unsigned char>(c) > 0x20 && c != 0x7f;
+        });
+        if (plain && url.size() < 2048 &&
+            (url.rfind("http://", 0) == 0 || url.rfind("https://", 0) == 0))
+          now[static_cast<std::size_t>(e.partition)] = std::move(url);
       }
       const std::string self = Owner();
       std::lock_guard lock(share_mu);
