@@ -15,8 +15,8 @@
 #include <fstream>
 #include <sstream>
 
-#include "daemon/feeds/drop_folder.h"
 #include "daemon/feeds/changelog.h"
+#include "daemon/feeds/drop_folder.h"
 #include "daemon/feeds/kafka_source.h"
 #include "daemon/http/http_server.h"
 #include "daemon/notify/delivery.h"
@@ -469,8 +469,8 @@ std::string Metrics::Render(const EngineSnapshot& snap) const {
             static_cast<double>(c->failed.load()));
     counter("forewarden_changelog_restores_total", "Partitions restored from the changelog.",
             static_cast<double>(c->restores.load()));
-    counter("forewarden_changelog_restored_series_total",
-            "Series adopted from the changelog.", static_cast<double>(c->restored.load()));
+    counter("forewarden_changelog_restored_series_total", "Series adopted from the changelog.",
+            static_cast<double>(c->restored.load()));
     counter("forewarden_changelog_restore_bytes_total",
             "Changelog bytes read while restoring partitions.",
             static_cast<double>(c->restore_bytes.load()));

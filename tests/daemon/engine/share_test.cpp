@@ -24,11 +24,12 @@ namespace {
 
 std::shared_ptr<const config::Settings> Settings(const std::string& data) {
   auto r = config::LoadSettingsText(
-      "server: {data: '" + data + "'}\n"
-      "alerts: {storm_threshold: 0}\n"
-      "policies:\n"
-      "  - {name: weekly, match: '*', period: week, alpha: 0.3, history: 8, warmup: 1,\n"
-      "     rules: [{name: jump, signal: error, limit: 3, resolve_after: 1}]}\n",
+      "server: {data: '" + data +
+          "'}\n"
+          "alerts: {storm_threshold: 0}\n"
+          "policies:\n"
+          "  - {name: weekly, match: '*', period: week, alpha: 0.3, history: 8, warmup: 1,\n"
+          "     rules: [{name: jump, signal: error, limit: 3, resolve_after: 1}]}\n",
       "test.yaml");
   REQUIRE(r.ok());
   return std::make_shared<const config::Settings>(std::move(r.settings));
@@ -83,8 +84,8 @@ struct Shared {
   std::vector<std::int64_t> OpenAlertIds() {
     std::vector<std::int64_t> ids;
     On([&] {
-      forewarden::Stmt q = engine.db().Prepare(
-          "SELECT id FROM alerts WHERE state != 'resolved' ORDER BY id");
+      forewarden::Stmt q =
+          engine.db().Prepare("SELECT id FROM alerts WHERE state != 'resolved' ORDER BY id");
       while (q.Step() && q.Row()) ids.push_back(q.Int(0));
     });
     return ids;
@@ -179,8 +180,7 @@ TEST_CASE("a shared partition moves to another store with its series, open alert
   REQUIRE(r.status == IngestReply::Status::kOk);
   // north/b's episodes go on from where they stood; north/d is number 2
   for (const auto& [id, key] : b.Alerts()) {
-    if (std::find(before_move.begin(), before_move.end(), std::pair{id, key}) !=
-        before_move.end())
+    if (std::find(before_move.begin(), before_move.end(), std::pair{id, key}) != before_move.end())
       continue;
     const std::int64_t n = key == "north/d" ? 2 : number.at(key);
     REQUIRE(id == (std::int64_t{4} << 43) + (n << 16) + episodes[key]);
