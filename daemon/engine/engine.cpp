@@ -1415,6 +1415,7 @@ Status Engine::Release(const std::vector<std::int32_t>& parts) {
     return Fail(done);
   }
   if (Status seated = Reseat(); !seated) return Fail(seated);
+  seating_ = false;
   return Status::Ok();
 }
 

@@ -260,6 +260,10 @@ class Engine {
                const std::string& position, bool seat = true);
   // Engine thread: rebuilds memory from the store after Adopt without `seat`.
   Status Seat();
+  // Engine thread: partitions revoked but kept in memory (eager rebalancing may give them back):
+  // batches, re-levels, alert actions and housekeeping wait (busy) until Seat or Release, so
+  // that nothing is published for partitions another instance may own by now.
+  void Hold() { seating_ = true; }
   // Engine thread: lets partitions go: their series leave the store and memory.
   Status Release(const std::vector<std::int32_t>& parts);
   // Engine thread: the partitions whose series are held here.

@@ -318,10 +318,11 @@ void Changelog::CountRestore(long partitions, long series, long ms) {
 }
 
 void Changelog::Stop() {
+  // The producer stays until the destructor: the engine thread may still publish (it stops
+  // after the Kafka source).
   if (impl_->producer) rd_kafka_flush(impl_->producer.get(), 10000);
   if (impl_->reader) rd_kafka_consumer_close(impl_->reader.get());
   impl_->reader.reset();
-  impl_->producer.reset();
 }
 
 }  // namespace forewarden

@@ -736,6 +736,11 @@ struct KafkaSource::Impl {
           log("kafka: releasing partitions: " + released->message(), "error");
       } else {
         for (std::int32_t part : gone) kept[part] = ChangelogEnd(part);
+        // kept in memory but not owned: nothing of them changes or is published until then
+        OnEngine<bool>([this] {
+          engine.Hold();
+          return true;
+        });
       }
       {
         std::lock_guard lock(share_mu);
