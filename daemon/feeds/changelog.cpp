@@ -69,7 +69,8 @@ struct Changelog::Impl {
   ChangelogCounters counters;
   KafkaHandle producer, reader;
   mutable std::mutex mu;
-  std::string broken;  // guarded by mu
+  std::string broken;    // guarded by mu
+  bool stopped = false;  // Stop flushed once
 
   Impl(config::Kafka s, Log l) : settings(std::move(s)), log(std::move(l)) {}
 
@@ -285,6 +286,10 @@ Changelog::Changelog(config::Kafka settings, Log log)
 
 Changelog::~Changelog() {
   Stop();
+  // Records the brokers never took (all down at a stop) are given up rather than waited for
+  // without end: the next owner applies their actuals again from the last position.
+  if (impl_->producer)
+    rd_kafka_purge(impl_->producer.get(), RD_KAFKA_PURGE_F_QUEUE | RD_KAFKA_PURGE_F_INFLIGHT);
 }
 
 Status Changelog::Start() {
@@ -320,7 +325,8 @@ void Changelog::CountRestore(long partitions, long series, long ms) {
 void Changelog::Stop() {
   // The producer stays until the destructor: the engine thread may still publish (it stops
   // after the Kafka source).
-  if (impl_->producer) rd_kafka_flush(impl_->producer.get(), 10000);
+  if (impl_->producer && !impl_->stopped) rd_kafka_flush(impl_->producer.get(), 10000);
+  impl_->stopped = true;
   if (impl_->reader) rd_kafka_consumer_close(impl_->reader.get());
   impl_->reader.reset();
 }

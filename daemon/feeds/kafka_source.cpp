@@ -169,8 +169,23 @@ struct KafkaSource::Impl {
       std::memcpy(e->metadata, url.data(), url.size());
       e->metadata_size = url.size();
     }
-    const rd_kafka_resp_err_t err = rd_kafka_commit(consumer.get(), list, 0);
+    // Asynchronous on a queue of its own, waited for in slices: a synchronous commit can block
+    // for as long as the group coordinator does not answer, and a stop must not wait on it.
+    rd_kafka_queue_t* queue = rd_kafka_queue_new(consumer.get());
+    rd_kafka_resp_err_t err = rd_kafka_commit_queue(consumer.get(), list, queue, nullptr, nullptr);
     rd_kafka_topic_partition_list_destroy(list);
+    if (err == RD_KAFKA_RESP_ERR_NO_ERROR) {
+      err = RD_KAFKA_RESP_ERR__TIMED_OUT;
+      for (int slice = 0; slice < 100 && !stop.load(); ++slice) {  // 10 s at most
+        rd_kafka_event_t* ev = rd_kafka_queue_poll(queue, 100);
+        if (!ev) continue;
+        const bool done = rd_kafka_event_type(ev) == RD_KAFKA_EVENT_OFFSET_COMMIT;
+        if (done) err = rd_kafka_event_error(ev);
+        rd_kafka_event_destroy(ev);
+        if (done) break;
+      }
+    }
+    rd_kafka_queue_destroy(queue);
     return err;
   }
 
