@@ -12,4 +12,7 @@ cmake --build build/tsan --target forewarden forewarden_tests
 export TSAN_OPTIONS="halt_on_error=1 exitcode=66 second_deadlock_stack=1"
 build/tsan/tests/forewarden_tests "[integration]"
 cd build/tsan
-ctest --output-on-failure --timeout 600 -j 2 -L "serve|alerts|crash|deploy|tls|security|browser"
+# (the sharing browser test needs the Kafka mock cluster program, which does not start when
+# built with ThreadSanitizer: left to the ASan run)
+ctest --output-on-failure --timeout 600 -j 2 -L "serve|alerts|crash|deploy|tls|security|browser" \
+  -E "instances_sharing"
