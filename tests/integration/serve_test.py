@@ -199,8 +199,11 @@ def test_drop_folder():
             f.write(good)
         os.rename(os.path.join(incoming, ".1-good.csv.tmp"), os.path.join(incoming, "1-good.csv"))
         wait_for(os.path.join(incoming, "done", "1-good.csv"))
-        with open(os.path.join(incoming, "2-bad.csv"), "w") as f:
+        # written under a hidden name and renamed, as producers must (the folder is polled
+        # every 20 ms: a file written in place can be read while still empty)
+        with open(os.path.join(incoming, ".2-bad.csv.tmp"), "w") as f:
             f.write("series,period,value\nw/b,2026-02-30,1\nw/b,2026-03-02,x\n")
+        os.rename(os.path.join(incoming, ".2-bad.csv.tmp"), os.path.join(incoming, "2-bad.csv"))
         wait_for(os.path.join(incoming, "rejected", "2-bad.csv"))
         with open(os.path.join(incoming, "rejected", "2-bad.csv.problems")) as f:
             report = f.read()
