@@ -236,6 +236,20 @@ def test_sharing_refuses_http_actuals_and_reports_itself():
                 readme = f.read()
             assert len(names) == 7 and all("`%s`" % n in readme for n in names), names
             assert metric(srv, "forewarden_changelog_restores_total") == 12
+            # hostile paths and queries on what sharing added: answered, never 5xx, process up
+            big = (12 + 1) << 43  # an alert id naming partition 12 of a 12-partition topic
+            for path, allowed in (("/v1/alerts/abc", (400, 404)), ("/v1/alerts/-5", (400, 404)),
+                                  ("/v1/alerts/99999999999999999999999", (400, 404)),
+                                  ("/v1/alerts/%d" % big, (404,)), ("/v1/alerts/%d" % (big - 1), (404,)),
+                                  ("/v1/series/%FF%FE", (404,)),
+                                  ("/v1/instances?series=", (200,)), ("/v1/instances?series=%FF%FE", (200,)),
+                                  ("/v1/instances?series=" + "k" * 20000, (200, 400, 413, 414, 431)),
+                                  ("/v1/instances?series=a&series=b", (200,))):
+                status, body, _ = srv.request("GET", path)
+                assert status in allowed, (path, status, body)
+            assert srv.proc.poll() is None
+            status, where, _ = srv.request("GET", "/v1/instances?series=")
+            assert where["series"]["key"] == "" and where["series"]["here"], where
         finally:
             srv.stop()
 
@@ -243,7 +257,11 @@ def test_sharing_refuses_http_actuals_and_reports_itself():
 def test_sharing_settings_that_cannot_work_are_refused():
     for extra, needle in (("  topics: [a, b]\n  changelog_topic: cl\n", "one topic"),
                           ("  topics: [a]\n  changelog_topic: a\n", "must differ"),
-                          ("  topics: [a]\n  changelog_topic: cl\n  partitioner: fnv\n", "murmur2 or crc32")):
+                          ("  topics: [a]\n  changelog_topic: cl\n  partitioner: fnv\n", "murmur2 or crc32"),
+                          ("  topics: [a]\n  changelog_topic: [cl]\n", "kafka.changelog_topic"),
+                          ("  topics: [a]\n  changelog_topic: 'c l'\n", "kafka.changelog_topic"),
+                          ("  topics: [a]\n  changelog_topic: cl\n  partitioner: {a: 1}\n", "kafka.partitioner"),
+                          ("  topics: [a]\n  changelog_topic: cl\nserver: {folder: /tmp/in}\n", "server.folder")):
         path = os.path.join(harness.temp_dir(), "s.yaml")
         with open(path, "w") as f:
             f.write("policies: [{name: p, match: '*', period: week}]\nkafka:\n  brokers: 'x:1'\n" + extra)

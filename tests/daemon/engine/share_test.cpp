@@ -216,7 +216,19 @@ TEST_CASE("a changelog record that does not read is refused and changes nothing"
        {std::string("not json"), std::string("{\"key\": \"north/z\"}"),
         std::string("{\"key\": \"north/z\", \"policy\": \"weekly\", \"labels\": \"{}\", "
                     "\"state\": \"zz\", \"checkpoint\": \"\", \"ordinal\": 0, \"episodes\": 0, "
-                    "\"actuals\": [], \"adjustments\": [], \"alerts\": [], \"events\": []}")}) {
+                    "\"actuals\": [], \"adjustments\": [], \"alerts\": [], \"events\": []}"),
+        // wrong types: actuals not a list, an alert field that is an object, an unknown column
+        std::string("{\"key\": \"north/z\", \"policy\": \"weekly\", \"labels\": \"{}\", "
+                    "\"state\": \"\", \"checkpoint\": \"\", \"ordinal\": 0, \"episodes\": 0, "
+                    "\"actuals\": \"x\", \"adjustments\": [], \"alerts\": [], \"events\": []}"),
+        std::string("{\"key\": \"north/z\", \"policy\": \"weekly\", \"labels\": \"{}\", "
+                    "\"state\": \"\", \"checkpoint\": \"\", \"ordinal\": 0, \"episodes\": 0, "
+                    "\"actuals\": [], \"adjustments\": [], \"alerts\": [{\"rule\": {}}], "
+                    "\"events\": []}"),
+        std::string("{\"key\": \"north/z\", \"policy\": \"weekly\", \"labels\": \"{}\", "
+                    "\"state\": \"\", \"checkpoint\": \"\", \"ordinal\": 0, \"episodes\": 0, "
+                    "\"actuals\": [], \"adjustments\": [], \"alerts\": [{\"id; DROP\": 1}], "
+                    "\"events\": []}")}) {
     std::vector<std::string> torn = records;
     torn.push_back(bad);
     b.On([&] { adopted = b.engine.Adopt("sales", 2, torn, position); });
