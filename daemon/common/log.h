@@ -5,6 +5,7 @@
 // Secrets (tokens, webhook secrets) are never passed to these functions.
 #pragma once
 
+#include <cstring>
 #include <ostream>
 #include <string>
 #include <utility>
@@ -20,6 +21,12 @@ std::string LogLine(const char* level, const std::string& msg, const LogFields& 
 // The level word of a syslog severity (0-7), as librdkafka reports its log lines.
 inline const char* SyslogLevel(int severity) {
   return severity <= 3 ? "error" : severity == 4 ? "warn" : severity <= 6 ? "info" : "debug";
+}
+
+// Whether a librdkafka log line only says that a property of kafka.properties (shared by the
+// consumer and the producers) does not apply to this client: not worth logging.
+inline bool KafkaPropertyScopeNote(const char* line) {
+  return std::strstr(line, "is a consumer property") || std::strstr(line, "is a producer property");
 }
 
 // Writes a whole line at once (lines from several threads never mix).

@@ -98,14 +98,14 @@ struct Changelog::Impl {
         return nullptr;
       }
     rd_kafka_conf_set_opaque(conf, this);
-    rd_kafka_conf_set_log_cb(conf, [](const rd_kafka_t* rk, int level, const char* fac,
-                                      const char* buf) {
-      auto* self = static_cast<Impl*>(rd_kafka_opaque(rk));
-      // the pass-through properties serve the consumer too: not a problem here
-      if (std::strstr(buf, "is a consumer property") || std::strstr(buf, "is a producer property"))
-        return;
-      if (self) self->log(std::string("kafka changelog: ") + fac + ": " + buf, SyslogLevel(level));
-    });
+    rd_kafka_conf_set_log_cb(
+        conf, [](const rd_kafka_t* rk, int level, const char* fac, const char* buf) {
+          auto* self = static_cast<Impl*>(rd_kafka_opaque(rk));
+          // the pass-through properties serve the consumer too: not a problem here
+          if (KafkaPropertyScopeNote(buf)) return;
+          if (self)
+            self->log(std::string("kafka changelog: ") + fac + ": " + buf, SyslogLevel(level));
+        });
     return conf;
   }
 

@@ -382,14 +382,13 @@ struct KafkaSource::Impl {
     }
     rd_kafka_conf_set_opaque(conf, this);
     // librdkafka's own lines in the service's log format (they went to stderr raw)
-    rd_kafka_conf_set_log_cb(conf, [](const rd_kafka_t* rk, int level, const char* fac,
-                                      const char* buf) {
-      auto* self = static_cast<Impl*>(rd_kafka_opaque(rk));
-      // the pass-through properties serve consumer and producer alike: not a problem
-      if (std::strstr(buf, "is a consumer property") || std::strstr(buf, "is a producer property"))
-        return;
-      if (self) self->log(std::string("kafka: ") + fac + ": " + buf, SyslogLevel(level));
-    });
+    rd_kafka_conf_set_log_cb(
+        conf, [](const rd_kafka_t* rk, int level, const char* fac, const char* buf) {
+          auto* self = static_cast<Impl*>(rd_kafka_opaque(rk));
+          // the pass-through properties serve consumer and producer alike: not a problem
+          if (KafkaPropertyScopeNote(buf)) return;
+          if (self) self->log(std::string("kafka: ") + fac + ": " + buf, SyslogLevel(level));
+        });
     rd_kafka_conf_set_error_cb(conf, [](rd_kafka_t*, int err, const char* reason, void* opaque) {
       auto* self = static_cast<Impl*>(opaque);
       self->counters.errors.fetch_add(1);

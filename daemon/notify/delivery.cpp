@@ -113,7 +113,7 @@ class KafkaProducer {
         conf, [](const rd_kafka_t* rk, int level, const char* fac, const char* buf) {
           const char* name = static_cast<const char*>(rd_kafka_opaque(rk));
           // kafka.properties serve the consumer too: a consumer property here is not a problem
-          if (std::strstr(buf, "is a consumer property")) return;
+          if (KafkaPropertyScopeNote(buf)) return;
           WriteLog(std::cerr,
                    LogLine(SyslogLevel(level), "kafka sink",
                            {{"sink", name ? name : ""}, {"what", std::string(fac) + ": " + buf}}));
